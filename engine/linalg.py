@@ -1,0 +1,218 @@
+"""Least squares from group statistics: stacked QR on scaled columns, raw-basis results.
+
+A design column is ``group[g]`` (constant within a group) or ``group[g] · base`` (a
+covariate varying within the group). With group means ȳ_g, weights W_g and the per-group
+centred cross-products C_g of [bases, y], the weighted residual sum of squares is
+
+    SSE(β) = Σ_g W_g (ȳ_g − x̄_g′β)² + [β_B; −1]′ (Σ_g a a′ ∘ C_g) [β_B; −1]
+
+so the fit solves a small stacked least-squares problem of (groups + within-factor) rows.
+Columns are built in a well-conditioned working basis (centred, scaled powers) and mapped
+back to the raw basis by a fixed matrix (computed in extended precision).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .dist import t_ppf, t_sf2
+from .groups import GroupStats
+from .results import Coefficient, Fit
+
+__all__ = ["Column", "Design", "fit_design", "poly_map", "solve_stacked"]
+
+_EPS = np.finfo(float).eps
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Column:
+    """A working-basis design column."""
+
+    group: np.ndarray
+    """(c,) value per group."""
+    base: int | None = None
+    """Index of a within-varying base multiplying ``group``; None for a pure group column."""
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Design:
+    """Working columns plus the map to raw coefficients (β_raw = to_raw @ β_work)."""
+
+    columns: tuple[Column, ...]
+    """Working columns."""
+    names: tuple[str, ...]
+    """Raw coefficient names, one per column."""
+    to_raw: np.ndarray
+    """Square map from working to raw coefficients (longdouble)."""
+    intercept: bool = True
+    """Whether the column space contains the constant (R² is centred then)."""
+
+    @property
+    def p(self) -> int:
+        """Number of columns."""
+        return len(self.columns)
+
+
+def poly_map(degree: int, centre: float, scale: float, intercept: bool = True) -> np.ndarray:
+    """Map from coefficients of powers of u = (t − centre)/scale to powers of t.
+
+    Column k of the result expresses u^k in raw powers t^j (binomial expansion), in
+    extended precision; rows/columns start at power 0 with an intercept, at 1 without.
+    """
+    ld = np.longdouble
+    m, s = ld(centre), ld(scale)
+    full = np.zeros((degree + 1, degree + 1), dtype=ld)
+    for k in range(degree + 1):
+        for j in range(k + 1):
+            full[j, k] = ld(math.comb(k, j)) * (-m) ** (k - j) / s**k
+    return full if intercept else full[1:, 1:]
+
+
+def _mean_rows(stats: GroupStats, design: Design) -> np.ndarray:
+    cols = []
+    for col in design.columns:
+        if col.base is None:
+            cols.append(col.group)
+        else:
+            cols.append(col.group * stats.base_mean[:, col.base])
+    return np.column_stack(cols) if cols else np.zeros((stats.c, 0))
+
+
+def _within_rows(stats: GroupStats, design: Design) -> np.ndarray | None:
+    """Rows R with R′R = within cross-product of [design columns, y]; None if no base columns."""
+    based = [j for j, col in enumerate(design.columns) if col.base is not None]
+    if not based or stats.cross is None:
+        return None
+    q = stats.cross.shape[1] - 1
+    r = len(based)
+    m = np.zeros((r + 1, r + 1))
+    for a, j in enumerate(based):
+        cj = design.columns[j]
+        for b in range(a, r):
+            ck = design.columns[based[b]]
+            v = float(np.dot(cj.group * ck.group, stats.cross[:, cj.base, ck.base]))
+            m[a, b] = m[b, a] = v
+        v = float(np.dot(cj.group, stats.cross[:, cj.base, q]))
+        m[a, r] = m[r, a] = v
+    m[r, r] = float(stats.cross[:, q, q].sum())
+    lam, vec = np.linalg.eigh(m)
+    keep = lam > lam.max() * 1e-15 * (r + 1) if lam.max() > 0 else np.zeros(r + 1, bool)
+    factor = (np.sqrt(lam[keep])[:, None] * vec[:, keep].T)  # (k, r+1)
+    rows = np.zeros((factor.shape[0], design.p + 1))
+    rows[:, based] = factor[:, :r]
+    rows[:, -1] = factor[:, r]
+    return rows
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _Solution:
+    beta: np.ndarray
+    cov_unscaled: np.ndarray
+    rank: int
+    aliased: tuple[int, ...]
+    rss: float
+
+
+def solve_stacked(a: np.ndarray, t: np.ndarray) -> _Solution:
+    """Least squares min ||t − a β|| by column-scaled, column-pivoted QR with one refinement."""
+    from scipy.linalg import qr, solve_triangular
+
+    m, p = a.shape
+    norms = np.sqrt((a * a).sum(axis=0))
+    norms[norms == 0] = 1.0
+    a_s = a / norms
+    q, r, piv = qr(a_s, mode="economic", pivoting=True)
+    diag = np.abs(np.diag(r))
+    tol = max(m, p) * _EPS * 10 * (diag[0] if diag.size else 0.0)
+    rank = int((diag > tol).sum())
+    r1 = r[:rank, :rank]
+    q1 = q[:, :rank]
+    beta_s = np.zeros(p)
+    sub = solve_triangular(r1, q1.T @ t)
+    resid = t - a_s[:, piv[:rank]] @ sub
+    sub = sub + solve_triangular(r1, q1.T @ resid)  # iterative refinement
+    beta_s[piv[:rank]] = sub
+    resid = t - a_s @ beta_s
+    rinv = solve_triangular(r1, np.eye(rank))
+    cov_s = np.zeros((p, p))
+    cov_s[np.ix_(piv[:rank], piv[:rank])] = rinv @ rinv.T
+    beta = beta_s / norms
+    cov = cov_s / np.outer(norms, norms)
+    aliased = tuple(sorted(int(i) for i in piv[rank:]))
+    return _Solution(beta, cov, rank, aliased, float(resid @ resid))
+
+
+def fit_design(stats: GroupStats, design: Design, conf: float = 0.95) -> Fit:
+    """Fit ``design`` to the grouped response; coefficients reported in the raw basis."""
+    xm = _mean_rows(stats, design)
+    sw = np.sqrt(stats.wsum)
+    a = xm * sw[:, None]
+    t = stats.mean * sw
+    within = _within_rows(stats, design)
+    if within is not None:
+        a = np.vstack([a, within[:, :-1]])
+        t = np.concatenate([t, within[:, -1]])
+    sol = solve_stacked(a, t)
+    sse = sol.rss if within is not None else sol.rss + stats.ss_pure
+    sse = max(sse, 0.0)
+    n = stats.n
+    df = n - sol.rank
+    sigma2 = sse / df if df > 0 else math.nan
+    to_raw = design.to_raw
+    beta_raw = (to_raw @ sol.beta.astype(np.longdouble)).astype(float)
+    cov_work = sol.cov_unscaled * sigma2 if df > 0 else np.full_like(sol.cov_unscaled, np.nan)
+    tr = to_raw.astype(float)
+    cov_raw = (to_raw @ cov_work.astype(np.longdouble) @ to_raw.T).astype(float) if df > 0 else tr @ cov_work @ tr.T
+    tq = t_ppf(0.5 + conf / 2, df) if df > 0 else math.nan
+    aliased_names = tuple(design.names[i] for i in sol.aliased)
+    coefs = []
+    for j, name in enumerate(design.names):
+        est = float(beta_raw[j])
+        var = float(cov_raw[j, j])
+        se = math.sqrt(var) if var > 0 else (0.0 if var == 0 else math.nan)
+        if name in aliased_names or df <= 0:
+            tval = pval = math.nan
+        else:
+            tval = est / se if se > 0 else math.copysign(math.inf, est) if est else math.nan
+            pval = t_sf2(tval, df) if not math.isnan(tval) else math.nan
+        coefs.append(
+            Coefficient(name, est, se, tval, pval, est - tq * se if df > 0 else math.nan,
+                        est + tq * se if df > 0 else math.nan)
+        )
+    wbar = float((stats.wsum * stats.mean).sum() / stats.wsum.sum())
+    if design.intercept:
+        ss_tot = float(stats.ss.sum() + (stats.wsum * (stats.mean - wbar) ** 2).sum())
+        if stats.cross is not None:
+            pass  # within part of y is already in stats.ss
+        dft = n - 1
+    else:
+        ss_tot = float(stats.ss.sum() + (stats.wsum * stats.mean**2).sum())
+        dft = n
+    r2 = 1.0 - sse / ss_tot if ss_tot > 0 else math.nan
+    r2_adj = 1.0 - (sse / df) / (ss_tot / dft) if df > 0 and ss_tot > 0 else math.nan
+    if sse > 0:
+        loglik = -0.5 * n * (math.log(2 * math.pi) + math.log(sse / n) + 1.0) + 0.5 * stats.sum_log_w
+    else:
+        loglik = math.inf
+    fitted = xm @ sol.beta
+    lev = np.einsum("gi,ij,gj->g", xm, sol.cov_unscaled, xm) if design.p else np.zeros(stats.c)
+    return Fit(
+        coefficients=tuple(coefs),
+        cov=tuple(tuple(float(v) for v in row) for row in cov_raw),
+        n=n,
+        rank=sol.rank,
+        df_resid=df,
+        sse=sse,
+        sigma=math.sqrt(sigma2) if df > 0 else math.nan,
+        r2=r2,
+        r2_adj=r2_adj,
+        ss_total=ss_tot,
+        loglik=loglik,
+        aliased=aliased_names,
+        conf_level=conf,
+        group_fitted=tuple(float(v) for v in fitted),
+        group_leverage=tuple(float(v) for v in lev),
+    )

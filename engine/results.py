@@ -1,0 +1,211 @@
+"""Plain result values shared across the engine (frozen; no statsmodels objects inside)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+__all__ = ["Coefficient", "Fit", "LackOfFit", "Criteria", "AnovaRow", "LevelRow", "SideTest"]
+
+
+@dataclass(frozen=True, slots=True)
+class Coefficient:
+    """One coefficient in the raw (user-facing) basis."""
+
+    name: str
+    """Term label, e.g. ``x``, ``x²``, ``run_day[day2]``."""
+    estimate: float
+    """Least-squares estimate."""
+    se: float
+    """Standard error from σ̂² (X′WX)⁻¹."""
+    t: float
+    """estimate / se."""
+    p: float
+    """Two-sided p-value on the residual df."""
+    low: float
+    """Lower end of the confidence interval at the fit's level."""
+    high: float
+    """Upper end of the confidence interval."""
+
+
+@dataclass(frozen=True, slots=True)
+class Fit:
+    """A weighted or ordinary least-squares fit computed from group statistics."""
+
+    coefficients: tuple[Coefficient, ...]
+    """Raw-basis coefficients, in term order."""
+    cov: tuple[tuple[float, ...], ...]
+    """Covariance matrix of the raw coefficients."""
+    n: int
+    """Rows used."""
+    rank: int
+    """Rank of the design (p)."""
+    df_resid: int
+    """n − p."""
+    sse: float
+    """Residual sum of squares (weighted when weights are used)."""
+    sigma: float
+    """Residual standard deviation sqrt(sse / df_resid); NaN only when df_resid = 0."""
+    r2: float
+    """Coefficient of determination (centred; uncentred through the origin)."""
+    r2_adj: float
+    """Adjusted R²."""
+    ss_total: float
+    """Total sum of squares about the weighted mean (about zero through the origin)."""
+    loglik: float
+    """Gaussian log-likelihood on the fitted (possibly transformed) scale."""
+    aliased: tuple[str, ...] = ()
+    """Terms dropped because they are linear combinations of earlier terms."""
+    conf_level: float = 0.95
+    """Level of the coefficient intervals."""
+    group_fitted: tuple[float, ...] = field(default=(), repr=False)
+    """Fitted mean of each replicate group (group order)."""
+    group_leverage: tuple[float, ...] = field(default=(), repr=False)
+    """x̄_g′(X′WX)⁻¹x̄_g per group (leverage of a unit-weight row there)."""
+
+    def coef(self, name: str) -> Coefficient:
+        """The coefficient called ``name``."""
+        for c in self.coefficients:
+            if c.name == name:
+                return c
+        raise KeyError(name)
+
+
+@dataclass(frozen=True, slots=True)
+class LackOfFit:
+    """An F test of a model against a richer one; untestable cases carry a reason."""
+
+    testable: bool
+    """False when the test cannot be run; then ``reason`` says why and numbers are None."""
+    reason: str | None = None
+    """Why the test is unavailable (None when testable)."""
+    kind: str = "pure error"
+    """Which comparison: 'pure error', 'shape in x', 'near-replicate (approximate)'."""
+    ss_lack: float | None = None
+    """Sum of squares for lack of fit."""
+    ss_pure: float | None = None
+    """Pure-error (or richer model's residual) sum of squares."""
+    df_lack: int | None = None
+    """Degrees of freedom for lack of fit (c − p)."""
+    df_pure: int | None = None
+    """Degrees of freedom for pure error (n − c)."""
+    f: float | None = None
+    """F ratio."""
+    p: float | None = None
+    """Upper-tail p-value."""
+    approximate: bool = False
+    """True when groups were formed by a tolerance or weights were estimated."""
+
+    def passes(self, alpha: float) -> bool | None:
+        """True/False at level alpha; None when untestable."""
+        if not self.testable or self.p is None:
+            return None
+        return self.p >= alpha
+
+    def as_json(self) -> dict:
+        """The stable JSON shape other tools rely on."""
+        if not self.testable:
+            return {"testable": False, "reason": self.reason, "kind": self.kind}
+        return {
+            "testable": True,
+            "kind": self.kind,
+            "approximate": self.approximate,
+            "ss_lack": self.ss_lack,
+            "ss_pure": self.ss_pure,
+            "df_lack": self.df_lack,
+            "df_pure": self.df_pure,
+            "f": self.f,
+            "p": self.p,
+        }
+
+
+@dataclass(frozen=True, slots=True)
+class Criteria:
+    """Information criteria on the original response scale."""
+
+    loglik: float
+    """Log-likelihood of the original y (Jacobian included for transforms)."""
+    k: int
+    """Estimated parameters: coefficients, σ, and λ/variance parameters when estimated."""
+    n: int
+    """Rows."""
+    aic: float
+    """−2ℓ + 2k."""
+    aicc: float | None
+    """AIC + 2k(k+1)/(n−k−1); None when n − k − 1 ≤ 0."""
+    bic: float
+    """−2ℓ + k log n."""
+
+    def as_json(self) -> dict:
+        """Stable JSON shape."""
+        return {"loglik": self.loglik, "k": self.k, "aic": self.aic, "aicc": self.aicc, "bic": self.bic}
+
+
+@dataclass(frozen=True, slots=True)
+class AnovaRow:
+    """One line of the sum-of-squares split."""
+
+    source: str
+    """'model', 'residual', 'lack of fit', 'pure error', 'total'."""
+    df: int
+    """Degrees of freedom."""
+    ss: float
+    """Sum of squares."""
+    ms: float | None
+    """Mean square (None where df = 0)."""
+    f: float | None
+    """F ratio where one applies."""
+    p: float | None
+    """p-value where one applies."""
+
+
+@dataclass(frozen=True, slots=True)
+class LevelRow:
+    """Summary of one replicate group."""
+
+    level: str
+    """Label of the setting (x value, or x range under a tolerance)."""
+    x: float
+    """Mean predictor value of the group."""
+    n: int
+    """Rows in the group."""
+    mean: float
+    """(Weighted) mean response."""
+    sd: float | None
+    """Standard deviation of the replicates (None with one row)."""
+    fitted: float
+    """Fitted mean at this group."""
+    residual: float
+    """mean − fitted."""
+
+
+@dataclass(frozen=True, slots=True)
+class SideTest:
+    """A supporting test (Mandel, spread, replicate-free checks)."""
+
+    name: str
+    """Our short name of the test."""
+    testable: bool
+    """False when it cannot be run here (see reason)."""
+    statistic: float | None = None
+    """Test statistic."""
+    df: tuple[float, ...] = ()
+    """Degrees of freedom of the reference distribution."""
+    p: float | None = None
+    """p-value."""
+    reason: str | None = None
+    """Why it is unavailable, or a note on its interpretation."""
+    approximate: bool = False
+    """True when the test is only indicative (no exact replicates)."""
+    alpha: float | None = None
+    """Level used for this test's own verdict (e.g. 0.01 for Mandel by ISO 8466-1)."""
+
+    def as_json(self) -> dict:
+        """JSON shape."""
+        out = {"name": self.name, "testable": self.testable}
+        if self.testable:
+            out.update(statistic=self.statistic, df=list(self.df), p=self.p, approximate=self.approximate)
+            if self.alpha is not None:
+                out["alpha"] = self.alpha
+        if self.reason:
+            out["reason" if not self.testable else "note"] = self.reason
+        return out

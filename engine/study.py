@@ -1,0 +1,373 @@
+"""A Study: the cleaned columns of one analysis, its replicate groups and its caches."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from .data import CleaningReport, DropCount, first_rows, numeric_column, resolve_column
+from .errors import DataError, UsageError
+from .groups import GroupStats, compute_group_stats
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+__all__ = ["Study", "Covariate", "make_study", "parse_tolerance", "MAX_CATEGORIES"]
+
+MAX_CATEGORIES = 30
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Covariate:
+    """An admitted extra variable."""
+
+    name: str
+    """Column name as in the file."""
+    kind: str
+    """'numeric' or 'categorical'."""
+    values: np.ndarray
+    """Float values (numeric) or integer codes 0..k-1 (categorical)."""
+    levels: tuple[str, ...] = ()
+    """Category names in code order; the first is the reference level (treatment coding)."""
+
+
+def parse_tolerance(text: str | float | None) -> tuple[float | None, bool]:
+    """'0.5' → (0.5, False) absolute; '2%' → (0.02, True) relative to the x range."""
+    if text is None:
+        return None, False
+    s = str(text).strip()
+    rel = s.endswith("%")
+    try:
+        val = float(s[:-1] if rel else s)
+    except ValueError:
+        raise UsageError(f"tolerance {text!r} is not a number; give e.g. 0.5 or 2%") from None
+    if not math.isfinite(val) or val < 0:
+        raise UsageError(f"tolerance {text!r} must be a finite number ≥ 0; give e.g. 0.5 or 2%")
+    return (val / 100.0 if rel else val), rel
+
+
+class Study:
+    """Response, predictor, covariates and weights after cleaning, with replicate groups.
+
+    Owns the caches of group codes and group statistics, keyed by hashable descriptions, so
+    every model scored on this study reuses one pass over the rows per distinct key.
+    """
+
+    def __init__(
+        self,
+        *,
+        source: str,
+        report: CleaningReport,
+        y_name: str,
+        x_name: str,
+        y: np.ndarray,
+        x: np.ndarray,
+        covariates: tuple[Covariate, ...] = (),
+        weights: np.ndarray | None = None,
+        weights_name: str | None = None,
+        tolerance: float | None = None,
+        tolerance_text: str | None = None,
+    ) -> None:
+        self.source = source
+        self.report = report
+        self.y_name = y_name
+        self.x_name = x_name
+        self.y = y
+        self.x = x
+        self.covariates = covariates
+        self.weights = weights
+        self.weights_name = weights_name
+        self.tolerance = tolerance
+        self.tolerance_text = tolerance_text
+        self._cache: dict[Any, Any] = {}
+        self.x_codes, self.x_level_values, self.x_level_labels = self._x_groups()
+
+    # ----- grouping -------------------------------------------------------------------
+    @property
+    def n(self) -> int:
+        """Rows used."""
+        return int(self.y.shape[0])
+
+    @property
+    def c(self) -> int:
+        """Number of x levels (replicate groups in x)."""
+        return int(self.x_level_values.shape[0])
+
+    @property
+    def approximate_groups(self) -> bool:
+        """True when a tolerance merged distinct x values into one level."""
+        return self.tolerance is not None and bool(self._cache.get("merged", False))
+
+    def covariate(self, name: str) -> Covariate:
+        """The admitted covariate called ``name``."""
+        for cov in self.covariates:
+            if cov.name == name:
+                return cov
+        raise UsageError(f"covariate {name!r} was not admitted; admit it with --covariates")
+
+    def _x_groups(self) -> tuple[np.ndarray, np.ndarray, tuple[str, ...]]:
+        import pandas as pd
+
+        codes, uniques = pd.factorize(self.x, sort=True)
+        codes = codes.astype(np.intp)
+        uniq = np.asarray(uniques, dtype=float)
+        if self.tolerance is not None and self.tolerance > 0 and uniq.size > 1:
+            cluster = np.zeros(uniq.size, dtype=np.intp)
+            start = uniq[0]
+            k = 0
+            for i in range(1, uniq.size):
+                if uniq[i] - start > self.tolerance:
+                    k += 1
+                    start = uniq[i]
+                cluster[i] = k
+            if k + 1 < uniq.size:
+                self._cache["merged"] = True
+                codes = cluster[codes]
+                cnt = np.bincount(codes)
+                values = np.bincount(codes, weights=self.x) / cnt
+                lo = np.array([uniq[cluster == j].min() for j in range(k + 1)])
+                hi = np.array([uniq[cluster == j].max() for j in range(k + 1)])
+                labels = tuple(
+                    f"{_fmt(a)}" if a == b else f"{_fmt(a)}…{_fmt(b)}" for a, b in zip(lo, hi, strict=True)
+                )
+                return codes, values, labels
+        return codes, uniq, tuple(_fmt(v) for v in uniq)
+
+    def group_codes(self, by: tuple[str, ...] = ()) -> tuple[np.ndarray, int]:
+        """Codes of groups formed by the x level and the named covariates (cached)."""
+        key = ("codes", by)
+        hit = self._cache.get(key)
+        if hit is not None:
+            return hit
+        if not by:
+            out = (self.x_codes, self.c)
+        else:
+            import pandas as pd
+
+            combined = self.x_codes.astype(np.int64)
+            size = self.c
+            for name in by:
+                cov = self.covariate(name)
+                if cov.kind == "categorical":
+                    sub, k = cov.values.astype(np.int64), len(cov.levels)
+                else:
+                    sub_codes, uniq = pd.factorize(cov.values, sort=True)
+                    sub, k = sub_codes.astype(np.int64), len(uniq)
+                combined = combined * k + sub
+                size *= k
+                if size > 2**53:  # re-densify to keep the product small
+                    combined, u = pd.factorize(combined, sort=True)
+                    combined = combined.astype(np.int64)
+                    size = len(u)
+            codes, uniq = pd.factorize(combined, sort=True)
+            out = (codes.astype(np.intp), int(len(uniq)))
+        self._cache[key] = out
+        return out
+
+    def group_stats(
+        self,
+        z: np.ndarray,
+        z_key: Any,
+        *,
+        by: tuple[str, ...] = (),
+        weights: np.ndarray | None = None,
+        weights_key: Any = None,
+        bases: np.ndarray | None = None,
+        bases_key: Any = None,
+        extremes: bool = False,
+    ) -> GroupStats:
+        """Group statistics of response ``z`` (identified by ``z_key``), cached per key."""
+        key = ("stats", z_key, by, weights_key, bases_key, extremes)
+        hit = self._cache.get(key)
+        if hit is None:
+            codes, c = self.group_codes(by)
+            hit = compute_group_stats(codes, c, z, weights, bases, extremes)
+            self._cache[key] = hit
+        return hit
+
+    def cache_get(self, key: Any) -> Any:
+        """Look up a derived value cached on this study."""
+        return self._cache.get(key)
+
+    def cache_put(self, key: Any, value: Any) -> Any:
+        """Store a derived value on this study; returns it."""
+        self._cache[key] = value
+        return value
+
+    def level_counts(self) -> np.ndarray:
+        """Rows per x level."""
+        return np.bincount(self.x_codes, minlength=self.c)
+
+    def describe_design(self) -> str:
+        """'24 rows at 8 levels (3 replicates each)' or a range of replicate counts."""
+        counts = self.level_counts()
+        lo, hi = int(counts.min()), int(counts.max())
+        reps = f"{lo} replicate(s) each" if lo == hi else f"{lo}–{hi} replicates"
+        return f"{self.n} rows at {self.c} levels of {self.x_name} ({reps})"
+
+
+def _fmt(v: float) -> str:
+    return f"{v:.6g}"
+
+
+def _is_numeric_like(series: pd.Series) -> bool:
+    import pandas as pd
+
+    if pd.api.types.is_numeric_dtype(series.dtype) or pd.api.types.is_bool_dtype(series.dtype):
+        return True
+    text = series.dropna().astype("string").str.strip()
+    text = text[text != ""]
+    if text.empty:
+        return False
+    coerced = pd.to_numeric(text, errors="coerce")
+    return bool(coerced.notna().all())
+
+
+def make_study(
+    frame: pd.DataFrame,
+    *,
+    y: str,
+    x: str,
+    covariates: Sequence[str] = (),
+    weights: str | None = None,
+    tolerance: str | float | None = None,
+    source: str = "",
+) -> Study:
+    """Pick and clean the columns of one analysis; every dropped row is counted with a reason.
+
+    Raises :class:`DataError`/:class:`UsageError` with one line naming the column, row or
+    value and what to do.
+    """
+    import pandas as pd
+
+    tol, rel = parse_tolerance(tolerance)
+    y_col = resolve_column(frame, y, "response column")
+    x_col = resolve_column(frame, x, "predictor column")
+    if y_col == x_col:
+        raise UsageError(f"response and predictor are the same column {y_col!r}; choose two columns")
+    cov_cols: list[str] = []
+    for name in covariates:
+        col = resolve_column(frame, name, "covariate column")
+        if col in (y_col, x_col):
+            raise UsageError(f"covariate {col!r} is already the response or predictor; drop it from --covariates")
+        if col in cov_cols:
+            raise UsageError(f"covariate {col!r} is listed twice in --covariates")
+        cov_cols.append(col)
+    w_col = resolve_column(frame, weights, "weights column") if weights else None
+
+    n_read = int(frame.shape[0])
+    keep = np.ones(n_read, dtype=bool)
+    drops: list[DropCount] = []
+
+    def account(column: str, reason: str, mask: np.ndarray) -> None:
+        new = mask & keep
+        if new.any():
+            drops.append(DropCount(column, reason, int(new.sum()), first_rows(new)))
+            keep[new] = False
+
+    def numeric(col: str, role: str) -> np.ndarray:
+        arr, missing, non_num, non_fin = numeric_column(frame[col], col)
+        usable = ~(missing | non_num | non_fin)
+        if not usable.any():
+            if non_num.any():
+                bad_row = int(np.flatnonzero(non_num)[0])
+                raise DataError(
+                    f"{role} column {col!r} is not numeric (e.g. {str(frame[col].iloc[bad_row])!r} in row "
+                    f"{bad_row + 1}); choose a numeric column"
+                )
+            raise DataError(f"{role} column {col!r} has no usable values (all {n_read} rows missing); check the column")
+        account(col, "missing", missing)
+        account(col, "non-numeric", non_num)
+        account(col, "non-finite", non_fin)
+        return arr
+
+    y_arr = numeric(y_col, "response")
+    x_arr = numeric(x_col, "predictor")
+    cov_raw: list[tuple[str, str, Any]] = []
+    for col in cov_cols:
+        series = frame[col]
+        if _is_numeric_like(series):
+            cov_raw.append((col, "numeric", numeric(col, "covariate")))
+        else:
+            text = series.astype("string").str.strip()
+            missing = (text.isna() | (text == "")).to_numpy(dtype=bool)
+            account(col, "missing", missing)
+            cov_raw.append((col, "categorical", text))
+    w_arr = None
+    if w_col is not None:
+        w_all, w_missing, w_non_num, w_non_fin = numeric_column(frame[w_col], w_col)
+        bad = (w_missing | w_non_num | w_non_fin) & keep
+        if bad.any():
+            rows = ", ".join(str(r) for r in first_rows(bad))
+            raise DataError(
+                f"weights column {w_col!r} has {int(bad.sum())} missing or non-numeric value(s) (rows {rows}); "
+                "fill them or remove those rows"
+            )
+        nonpos = (w_all <= 0) & keep
+        if nonpos.any():
+            rows = ", ".join(str(r) for r in first_rows(nonpos))
+            raise DataError(
+                f"weights must be > 0; column {w_col!r} has {int(nonpos.sum())} value(s) ≤ 0 (rows {rows}); "
+                "fix or remove those rows"
+            )
+        w_arr = w_all
+
+    n_used = int(keep.sum())
+    if n_used < 3:
+        raise DataError(
+            f"only {n_used} usable row(s) after cleaning (need at least 3); "
+            + ("; ".join(d.describe() for d in drops) if drops else "add data")
+        )
+    yv = y_arr[keep]
+    xv = x_arr[keep]
+    if np.ptp(xv) == 0:
+        raise DataError(
+            f"predictor {x_col!r} has one distinct value ({xv[0]:g}); a line needs at least 2 settings "
+            "(3 or more to test its shape)"
+        )
+    if np.ptp(yv) == 0:
+        raise DataError(f"response {y_col!r} is constant (all {yv[0]:g}); there is nothing to fit")
+    covs: list[Covariate] = []
+    for col, kind, raw in cov_raw:
+        if kind == "numeric":
+            vals = np.asarray(raw)[keep]
+            if np.ptp(vals) == 0:
+                raise DataError(
+                    f"covariate {col!r} has one value ({vals[0]:g}) in the rows used; it cannot explain "
+                    "anything: drop it from --covariates"
+                )
+            covs.append(Covariate(col, "numeric", vals))
+        else:
+            text = raw[keep].astype(str)
+            codes, uniq = pd.factorize(text, sort=True)
+            if len(uniq) < 2:
+                raise DataError(
+                    f"covariate {col!r} has one category ({uniq[0]!r}) in the rows used; it cannot explain "
+                    "anything: drop it from --covariates"
+                )
+            if len(uniq) > MAX_CATEGORIES:
+                raise DataError(
+                    f"covariate {col!r} has {len(uniq)} categories (at most {MAX_CATEGORIES}); is it an "
+                    "identifier? Drop it or merge categories"
+                )
+            covs.append(Covariate(col, "categorical", codes.astype(np.intp), tuple(str(u) for u in uniq)))
+    if tol is not None and rel:
+        tol = tol * float(np.ptp(xv))
+    report = CleaningReport(source or "<table>", n_read, n_used, tuple(drops))
+    return Study(
+        source=source or "<table>",
+        report=report,
+        y_name=y_col,
+        x_name=x_col,
+        y=yv,
+        x=xv,
+        covariates=tuple(covs),
+        weights=None if w_arr is None else w_arr[keep],
+        weights_name=w_col,
+        tolerance=tol,
+        tolerance_text=None if tolerance is None else str(tolerance),
+    )

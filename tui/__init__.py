@@ -1,0 +1,1 @@
+"""bendwise user interfaces: the Textual app and the line-mode command."""

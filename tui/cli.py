@@ -1,0 +1,85 @@
+"""The ``bendwise`` console entry point.
+
+``bendwise`` alone (or ``bendwise demo``) opens the app on the bundled demo data;
+subcommands print engine results as text or JSON for scripts. Bad input never
+produces a traceback: one line on stderr and exit status 2.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Sequence
+
+# Subcommand modules in tui/commands/, in the order --help lists them.
+_COMMANDS = ("check", "grow", "plan", "export", "apply", "demo", "open")
+
+EXIT_OK = 0
+EXIT_FOUND = 1
+EXIT_USAGE = 2
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports usage errors as one line and exit 2."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        sys.stderr.write(f"bendwise: error: {message} (see 'bendwise {self._cmd()} --help')\n")
+        raise SystemExit(EXIT_USAGE)
+
+    def _cmd(self) -> str:
+        parts = self.prog.split()
+        return parts[1] if len(parts) > 1 else ""
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The full parser with every available subcommand registered."""
+    parser = _Parser(
+        prog="bendwise",
+        description="Test a straight line on replicated data, grow remedies, hand the model on.",
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    for name in _COMMANDS:
+        try:
+            module = importlib.import_module(f"tui.commands.{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name == f"tui.commands.{name}":
+                continue  # command not built yet
+            raise
+        module.register(sub)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; returns the process exit status."""
+    from engine.errors import BendwiseError
+
+    args_list = list(sys.argv[1:] if argv is None else argv)
+    if not args_list:
+        args_list = ["demo"]
+    elif args_list[0] not in _COMMANDS and not args_list[0].startswith("-"):
+        args_list = ["open", *args_list]  # `bendwise DATA ...` opens the app on a table
+    parser = build_parser()
+    args = parser.parse_args(args_list)
+    if not getattr(args, "func", None):
+        parser.print_help()
+        return EXIT_USAGE
+    try:
+        return int(args.func(args))
+    except BendwiseError as exc:
+        sys.stderr.write(f"bendwise: error: {exc}\n")
+        return EXIT_USAGE
+    except KeyboardInterrupt:
+        sys.stderr.write("bendwise: interrupted\n")
+        return 130
+    except BrokenPipeError:
+        return EXIT_OK
+
+
+def entry() -> None:
+    """Console-script wrapper."""
+    raise SystemExit(main())
+
+
+if __name__ == "__main__":
+    entry()

@@ -1,0 +1,73 @@
+"""Options and loading shared by the commands that read a table."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+CAUTION = (
+    "Caution: statistical adequacy is not regulatory acceptance. For clinical, environmental or "
+    "safety measurements follow your laboratory's validated procedures and the applicable guidance."
+)
+
+
+def add_data_args(p: argparse.ArgumentParser, *, need_xy: bool = True, covariates: bool = False) -> None:
+    """DATA, -y, -x and the reading options."""
+    p.add_argument("data", metavar="DATA", help="table file (CSV/TSV/Parquet/Excel/JSON lines) or - for stdin")
+    p.add_argument("-y", "--response", dest="y", required=need_xy, metavar="COL", help="response column")
+    p.add_argument("-x", "--predictor", dest="x", required=need_xy, metavar="COL", help="predictor column")
+    if covariates:
+        p.add_argument("--covariates", metavar="A,B", default="", help="extra columns the tree may add")
+    p.add_argument("--weights", metavar="COL", help="column of positive weights (∝ 1/variance)")
+    p.add_argument("--tolerance", metavar="T", help="merge settings closer than T (or T%% of the x range)")
+    p.add_argument("--sheet", metavar="NAME", help="Excel sheet (default: the first)")
+    p.add_argument("--decimal", choices=[".", ","], help="decimal mark in text files (default .)")
+    p.add_argument("--delimiter", metavar="CHAR", help="field separator in text files (default: detected)")
+
+
+def alpha_arg(text: str) -> float:
+    """argparse type for a level strictly between 0 and 1."""
+    try:
+        val = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"alpha {text!r} is not a number; give e.g. 0.05") from None
+    if not 0 < val < 1:
+        raise argparse.ArgumentTypeError(f"alpha {text!r} must lie strictly between 0 and 1, e.g. 0.05")
+    return val
+
+
+def split_list(text: str | None) -> list[str]:
+    """'a, b' → ['a', 'b']."""
+    return [s.strip() for s in (text or "").split(",") if s.strip()]
+
+
+def load_study(args: argparse.Namespace):
+    """Read the table and build the Study from the common options."""
+    from engine import load_table, make_study
+
+    delim = args.delimiter
+    if delim in {"\\t", "tab", "TAB"}:
+        delim = "\t"
+    frame = load_table(args.data, sheet=args.sheet, decimal=args.decimal, delimiter=delim)
+    source = "<stdin>" if args.data == "-" else Path(args.data).name
+    return make_study(
+        frame,
+        y=args.y,
+        x=args.x,
+        covariates=split_list(getattr(args, "covariates", "")),
+        weights=args.weights,
+        tolerance=args.tolerance,
+        source=source,
+    )
+
+
+def table(rows: list[list[str]], header: list[str], indent: str = "  ", right: set[int] | None = None) -> list[str]:
+    """Plain aligned text table (numbers right-aligned)."""
+    right = right if right is not None else set(range(1, len(header)))
+    widths = [max(len(str(r[i])) for r in [header, *rows]) for i in range(len(header))]
+
+    def line(r: list[str]) -> str:
+        cells = [str(v).rjust(widths[i]) if i in right else str(v).ljust(widths[i]) for i, v in enumerate(r)]
+        return (indent + "  ".join(cells)).rstrip()
+
+    return [line(header), indent + "  ".join("─" * w for w in widths)] + [line(r) for r in rows]

@@ -1,0 +1,49 @@
+"""Small printing helpers shared by the line-mode commands (formatting only)."""
+
+from __future__ import annotations
+
+import json
+import math
+import sys
+from typing import Any
+
+
+def _clean(obj: Any) -> Any:
+    """Make engine values JSON-safe: NaN/inf become None, numpy scalars plain floats."""
+    if isinstance(obj, dict):
+        return {str(k): _clean(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_clean(v) for v in obj]
+    if hasattr(obj, "item") and callable(obj.item) and getattr(obj, "shape", None) == ():
+        obj = obj.item()
+    if isinstance(obj, float):
+        return obj if math.isfinite(obj) else None
+    return obj
+
+
+def emit_json(obj: Any) -> None:
+    """Print one JSON object on stdout."""
+    sys.stdout.write(json.dumps(_clean(obj), indent=2, allow_nan=False) + "\n")
+
+
+def fmt_num(v: float | None, digits: int = 4) -> str:
+    """Format a number with ``digits`` significant digits; '—' for a missing value."""
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
+        return "—"
+    if v == 0:
+        return "0"
+    a = abs(v)
+    if a >= 1e6 or a < 1e-4:
+        return f"{v:.{digits - 1}e}"
+    return f"{v:.{digits}g}"
+
+
+def fmt_p(p: float | None) -> str:
+    """Format a p-value; tiny values as '<1e-12'."""
+    if p is None or not math.isfinite(p):
+        return "—"
+    if p < 1e-12:
+        return "<1e-12"
+    if p < 1e-4:
+        return f"{p:.1e}"
+    return f"{p:.4f}"
