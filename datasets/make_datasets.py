@@ -164,7 +164,7 @@ FILES: dict[str, tuple[tuple[str, ...], Callable[[], list[Row]]]] = {
         ("standard_id", "conc_mg_l", "signal_mv", "run_day", "temp_c"),
         sensor_rows,
     ),
-    "process_trial.csv": (("run_id", "setpoint_c", "yield_pct", "shift"), trial_rows),
+    "process_trial.csv": (("run_id", "setpoint_c", "yield_pct", "work_shift"), trial_rows),
     "straight_line.csv": (("dose_ug", "response_au"), line_rows),
     "no_replicates.csv": (("load_kn", "strain_um"), norep_rows),
 }
@@ -183,6 +183,7 @@ def write_atomic(path: Path, data: bytes) -> None:
             fh.write(data)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, 0o644)  # mkstemp creates 0600; these are ordinary shared files
         os.replace(tmp, path)
     except BaseException:
         try:

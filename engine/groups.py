@@ -62,11 +62,13 @@ def compute_group_stats(
     w: np.ndarray | None = None,
     bases: np.ndarray | None = None,
     extremes: bool = False,
+    order: np.ndarray | None = None,
 ) -> GroupStats:
     """Aggregate response ``z`` (and optional bases) by integer group ``codes`` in 0..c-1.
 
     Two passes (means, then centred squares) keep the pure error accurate when the
-    response has a large offset, as in the NIST StRD sets.
+    response has a large offset, as in the NIST StRD sets. ``order`` (rows sorted by group)
+    may be passed in to reuse one sort for the per-group extremes of many responses.
     """
     n = int(z.shape[0])
     count = np.bincount(codes, minlength=c).astype(np.int64)
@@ -106,7 +108,8 @@ def compute_group_stats(
                 cross[:, m, k] = col
     zmin = zmax = None
     if extremes:
-        order = np.argsort(codes, kind="stable")
+        if order is None:
+            order = np.argsort(codes, kind="stable")
         zs = z[order]
         starts = np.concatenate(([0], np.cumsum(count)[:-1]))
         zmin = np.minimum.reduceat(zs, starts)

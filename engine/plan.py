@@ -91,10 +91,10 @@ class DesignPower:
     """Largest |true mean − straight line| over the levels, in y units."""
     deviations: tuple[float, ...]
     """True mean minus the unweighted straight line through the true means, per level."""
-    lack_of_fit: PowerOfTest
-    """The pure-error lack-of-fit test."""
-    curvature: PowerOfTest
-    """The one-df test for x²."""
+    lack_of_fit: PowerOfTest | None
+    """The pure-error lack-of-fit test; None when it was not asked for."""
+    curvature: PowerOfTest | None
+    """The one-df test for x²; None when it was not asked for."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -420,6 +420,7 @@ def design_power(
     means: Sequence[float] | None = None,
     sigma: float = 1.0,
     alpha: float = 0.05,
+    tests: Sequence[str] = _TESTS,
 ) -> DesignPower:
     """Power of the lack-of-fit test and of the x² test at one design.
 
@@ -429,8 +430,12 @@ def design_power(
     noncentral F(c−2, n−c, λ) with λ = Σ n_j (μ_j − μ̃_j)²/σ², μ̃ the n_j-weighted least-squares
     line through the true means (METHODS.md, "Power of the lack-of-fit test"); the x² statistic is
     F(1, n−3) with numerator noncentrality the part of that sum explained by x² and, when the
-    curve is not a quadratic, a noncentral denominator too.
+    curve is not a quadratic, a noncentral denominator too. ``tests`` limits the work to some
+    of the two; the lack-of-fit test needs a level with 2+ observations, the x² test does not.
     """
+    for name in tests:
+        if name not in _TESTS:
+            raise UsageError(f"test: {name!r} is unknown; use {LACK_OF_FIT!r} or {CURVATURE!r}")
     x = _as_levels(levels)
     reps = _as_replicates(replicates, x.size)
     s = _sigma(sigma)
@@ -452,8 +457,8 @@ def design_power(
         shape=shape,
         delta=d,
         deviations=tuple(float(v) for v in dev),
-        lack_of_fit=_test_power(LACK_OF_FIT, x, reps, dev, s, a),
-        curvature=_test_power(CURVATURE, x, reps, dev, s, a),
+        lack_of_fit=_test_power(LACK_OF_FIT, x, reps, dev, s, a) if LACK_OF_FIT in tests else None,
+        curvature=_test_power(CURVATURE, x, reps, dev, s, a) if CURVATURE in tests else None,
     )
 
 
@@ -537,7 +542,7 @@ def sigma_from_pure_error(
         return SigmaEstimate(
             sigma=est, estimate=est, upper=None, confidence=None, ss_pure=ss, df=df
         )
-    conf = _probability("sigma upper confidence", confidence, "give a level such as 0.9")
+    conf = _probability("sigma upper", confidence, "give a confidence level such as 0.9")
     upper = math.sqrt(ss / float(chi2.ppf(1.0 - conf, df)))
     return SigmaEstimate(sigma=upper, estimate=est, upper=upper, confidence=conf, ss_pure=ss, df=df)
 
@@ -566,7 +571,7 @@ def search_designs(
     t = _target(target, a)
     s = _sigma(sigma)
     if (levels is None) == (span is None):
-        raise UsageError("levels: give either fixed levels or a range to spread them over")
+        raise UsageError("levels: none or both of levels and range given; give exactly one")
     reps_list = [int(r) for r in _as_replicates(list(replicates), len(replicates))]
     if not reps_list:
         raise UsageError("replicates: empty search range; give at least one count")
@@ -588,6 +593,7 @@ def search_designs(
         for r in reps_list:
             dp = design_power(lv, r, delta=delta, means=means, sigma=s, alpha=a)
             first = first or dp
+            assert dp.lack_of_fit is not None and dp.curvature is not None
             rows.append(
                 DesignRow(
                     levels=lv,

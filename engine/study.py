@@ -185,7 +185,40 @@ class Study:
         hit = self._cache.get(key)
         if hit is None:
             codes, c = self.group_codes(by)
-            hit = compute_group_stats(codes, c, z, weights, bases, extremes)
+            order = self.group_order(by) if extremes else None
+            hit = compute_group_stats(codes, c, z, weights, bases, extremes, order)
+            self._cache[key] = hit
+        return hit
+
+    def group_order(self, by: tuple[str, ...] = ()) -> np.ndarray:
+        """Row order sorted by group (one sort per grouping, reused for every response)."""
+        key = ("order", by)
+        hit = self._cache.get(key)
+        if hit is None:
+            codes, c = self.group_codes(by)
+            small = codes.astype(np.int32) if c < 2**31 else codes
+            hit = self._cache[key] = np.argsort(small, kind="stable")
+        return hit
+
+    def group_parent(self, by: tuple[str, ...]) -> np.ndarray:
+        """For groups formed ``by`` covariates, the x level of each group."""
+        key = ("xparent", by)
+        hit = self._cache.get(key)
+        if hit is None:
+            codes, c = self.group_codes(by)
+            hit = np.empty(c, dtype=np.intp)
+            hit[codes] = self.x_codes
+            self._cache[key] = hit
+        return hit
+
+    def group_category(self, by: tuple[str, ...], name: str) -> np.ndarray:
+        """For groups formed ``by`` covariates (including categorical ``name``), its code per group."""
+        key = ("gcat", by, name)
+        hit = self._cache.get(key)
+        if hit is None:
+            codes, c = self.group_codes(by)
+            hit = np.empty(c, dtype=np.intp)
+            hit[codes] = self.covariate(name).values
             self._cache[key] = hit
         return hit
 

@@ -55,11 +55,13 @@ def _simulate(levels, reps, means, sigma, alpha, n_sim, seed):
     group_mean = np.add.reduceat(y, starts, axis=1) / reps
     ss_pure = np.sum((y - np.repeat(group_mean, reps, axis=1)) ** 2, axis=1)
 
-    f_lack = ((sse_line - ss_pure) / (c - 2)) / (ss_pure / (n - c))
     f_quad = (sse_line - sse_quad) / (sse_quad / (n - 3))
-    rej_lack = np.mean(f_lack > stats.f.isf(alpha, c - 2, n - c))
-    rej_quad = np.mean(f_quad > stats.f.isf(alpha, 1, n - 3))
-    return float(rej_lack), float(rej_quad)
+    rej_quad = float(np.mean(f_quad > stats.f.isf(alpha, 1, n - 3)))
+    if n == c:  # no pure error: only the x² test exists
+        return None, rej_quad
+    f_lack = ((sse_line - ss_pure) / (c - 2)) / (ss_pure / (n - c))
+    rej_lack = float(np.mean(f_lack > stats.f.isf(alpha, c - 2, n - c)))
+    return rej_lack, rej_quad
 
 
 def _true_means(dp, intercept=3.0, slope=0.25):
@@ -69,10 +71,10 @@ def _true_means(dp, intercept=3.0, slope=0.25):
 
 SIM_CASES = [
     # (levels, replicates, delta, means, sigma, seed)
-    ((0, 5, 10, 20, 40), 3, 0.9, None, 0.6, 11),  # quadratic bend, equal replicates
-    ((0, 1, 2, 3), 2, 1.6, None, 1.0, 12),  # smallest useful design
-    ((1, 2, 4, 8, 16), (2, 4, 2, 3, 5), None, [3.0, 4.8, 6.6, 7.9, 8.6], 0.5, 13),  # saturating
-    ((0, 1, 2, 3, 4, 5), 3, 0.8, [0, 0, 0, 0, 0.2, 1.0], 0.45, 14),  # late kink, rescaled
+    ((0, 5, 10, 20, 40), 3, 0.6, None, 0.6, 11),  # quadratic bend, equal replicates
+    ((0, 1, 2, 3), 2, 1.1, None, 1.0, 12),  # smallest useful design
+    ((1, 2, 4, 8, 16), (2, 4, 2, 3, 5), None, [0, 1, 1.3, 1.45, 1.5], 0.35, 13),  # sharp knee
+    ((0, 1, 2, 3, 4, 5), 3, 0.45, [0, 0, 0, 0, 0.2, 1.0], 0.45, 14),  # late kink, rescaled
 ]
 
 
@@ -92,15 +94,28 @@ def test_power_matches_monte_carlo(levels, reps, delta, means, sigma, seed):
 
 
 def test_non_quadratic_curve_needs_the_doubly_noncentral_denominator():
-    # The saturating case puts part of the curve into the x² test's residual; ignoring that
-    # overstates power by more than the simulation error, so the Monte Carlo test above checks it.
-    levels, reps, means = SIM_CASES[2][0], SIM_CASES[2][1], SIM_CASES[2][3]
-    dp = design_power(levels, reps, means=means, sigma=0.5)
+    # The sharp knee puts much of the curve into the x² test's residual; ignoring that
+    # overstates power by far more than the simulation error, so the Monte Carlo test above
+    # checks the doubly noncentral computation.
+    levels, reps, _, means, sigma, _ = SIM_CASES[2]
+    dp = design_power(levels, reps, means=means, sigma=sigma)
     cv = dp.curvature
-    assert cv.den_noncentrality > 0.5
+    assert cv.den_noncentrality > 5
     # reference: scipy.stats.ncf (singly noncentral, i.e. denominator noncentrality ignored)
     naive = stats.ncf.sf(cv.critical_f, cv.df_num, cv.df_den, cv.noncentrality)
     assert naive - cv.power > 3.5 * math.sqrt(cv.power * (1 - cv.power) / 5000)
+
+
+def test_curvature_power_without_replicates_matches_monte_carlo():
+    # the calibration-style design: 10 levels, one measurement each; only the x² test applies
+    levels = spaced_levels(10, 0, 9)
+    dp = design_power(levels, 1, delta=0.5, sigma=0.3, tests=[CURVATURE])
+    assert dp.lack_of_fit is None
+    n_sim = 5000
+    _, rej = _simulate(levels, 1, _true_means(dp), 0.3, 0.05, n_sim, 21)
+    p = dp.curvature.power
+    assert 0.1 < p < 0.95
+    assert abs(rej - p) <= 3.5 * math.sqrt(p * (1 - p) / n_sim)
 
 
 # ---------------------------------------------------------------- closed forms and limits
@@ -133,9 +148,14 @@ def test_more_replicates_never_lower_power():
     levels = (0, 5, 10, 20, 40)
     for delta in (0.3, 1.0, 2.5):
         lack = [design_power(levels, r, delta=delta).lack_of_fit.power for r in range(2, 11)]
-        curv = [design_power(levels, r, delta=delta).curvature.power for r in range(1, 11)]
-        assert all(b > a for a, b in zip(lack, lack[1:], strict=False)), lack
-        assert all(b > a for a, b in zip(curv, curv[1:], strict=False)), curv
+        curv = [
+            design_power(levels, r, delta=delta, tests=[CURVATURE]).curvature.power
+            for r in range(1, 11)
+        ]
+        for seq in (lack, curv):
+            # strictly rising until power is 1 to machine precision
+            assert all(b > a or a > 1 - 1e-9 for a, b in zip(seq, seq[1:], strict=False)), seq
+            assert all(b >= a for a, b in zip(seq, seq[1:], strict=False)), seq
     # one more observation at any single level, from an unbalanced start, for a non-quadratic curve
     means = [0.0, 1.0, 1.7, 2.0, 2.1]
     base = [2, 3, 2, 4, 2]
@@ -274,8 +294,9 @@ def test_search_over_spaced_levels_picks_the_cheapest():
                 assert r.power(test) <= ch.power
         # the planned bend is caught with at least the target, so the detectable one is smaller
         assert ch.detectable_delta is not None and ch.detectable_delta <= 0.6
-        dp = design_power(ch.design.levels, ch.design.replicates, delta=ch.detectable_delta,
-                          sigma=0.4)
+        dp = design_power(
+            ch.design.levels, ch.design.replicates, delta=ch.detectable_delta, sigma=0.4
+        )
         assert getattr(dp, test).power == pytest.approx(0.8, abs=1e-8)
     # each row agrees with a direct computation
     r = ps.rows[17]
@@ -349,7 +370,8 @@ BAD = [
     (lambda: detectable_delta([0, 1, 2], 3, test="other"), "test", "'other'"),
     (lambda: search_designs(levels=[0, 1, 2], delta=1, target=1.0), "target power", "1.0"),
     (lambda: search_designs(span=(0, 1), delta=1, means=[1, 2, 3]), "means", "fixed levels"),
-    (lambda: search_designs(delta=1), "levels", "either"),
+    (lambda: search_designs(delta=1), "levels", "none or both"),
+    (lambda: design_power([0, 1, 2], 3, delta=1, tests=["omnibus"]), "test", "'omnibus'"),
     (lambda: search_designs(levels=[0, 1, 2], delta=1, replicates=[0, 2]), "replicates", "0"),
     (lambda: spaced_levels(2, 0, 1), "levels", "2"),
     (lambda: spaced_levels(5, 3, 1), "range", "3"),

@@ -53,8 +53,12 @@ def register(subparsers: Any) -> None:
     noise = p.add_argument_group("noise")
     noise.add_argument("--sigma", metavar="S", help="SD of a single measurement")
     noise.add_argument("--from-data", metavar="FILE", help="take σ from the pure error in FILE")
-    noise.add_argument("-y", metavar="COL", dest="y", help="response column in --from-data")
-    noise.add_argument("-x", metavar="COL", dest="x", help="setting column in --from-data")
+    noise.add_argument(
+        "-y", "--response", metavar="COL", dest="y", help="response column in --from-data"
+    )
+    noise.add_argument(
+        "-x", "--predictor", metavar="COL", dest="x", help="setting column in --from-data"
+    )
     noise.add_argument(
         "--sigma-upper",
         metavar="CONF",
@@ -149,9 +153,12 @@ def _sigma(args: argparse.Namespace) -> dict[str, Any] | None:
         return None
     if args.y is None or args.x is None:
         raise UsageError("--from-data: name the columns with -y COL and -x COL")
+    from pathlib import Path
+
     from engine import load_table, make_study, pure_error
 
-    study = make_study(load_table(args.from_data), y=args.y, x=args.x)
+    frame = load_table(args.from_data)
+    study = make_study(frame, y=args.y, x=args.x, source=Path(args.from_data).name)
     ss_pure, df_pure = pure_error(study)
     conf = None if args.sigma_upper is None else _number("--sigma-upper", args.sigma_upper)
     est = sigma_from_pure_error(ss_pure, df_pure, conf)
@@ -208,7 +215,12 @@ def run(args: argparse.Namespace) -> int:
     }
     single = None
     if levels is not None and reps is not None:
-        single = design_power(levels, reps, delta=delta, means=means, sigma=s, alpha=alpha)
+        counts = reps if isinstance(reps, list) else [reps]
+        # one measurement per level: no pure error, but the x² test still runs
+        tests = ("curvature",) if all(r == 1 for r in counts) else ("lack_of_fit", "curvature")
+        single = design_power(
+            levels, reps, delta=delta, means=means, sigma=s, alpha=alpha, tests=tests
+        )
         report["design"] = _design_json(single)
     search = None
     if target is not None:
@@ -237,14 +249,16 @@ def run(args: argparse.Namespace) -> int:
         if single is not None:
             lines.append("")
         lines += _search_lines(search, known)
-    print("\n".join(lines))
+    print("\n".join(line.rstrip() for line in lines))
     return 0
 
 
 # ---------------------------------------------------------------- JSON
 
 
-def _test_json(tp: Any) -> dict[str, Any]:
+def _test_json(tp: Any) -> dict[str, Any] | None:
+    if tp is None:
+        return None
     return {
         "df": [tp.df_num, tp.df_den],
         "noncentrality": tp.noncentrality,
@@ -335,11 +349,12 @@ def _bend_words(shape: str, delta: float, sigma: float, known: bool) -> str:
 
 
 def _pct(p: float) -> str:
+    """Whole percent, rounded down so a power just short of the target never reads as reaching it."""
     if p >= 0.995:
         return ">99%"
-    if p < 0.005:
+    if p < 0.01:
         return "<1%"
-    return f"{p:.0%}"
+    return f"{math.floor(p * 100 + 1e-9)}%"
 
 
 def _design_lines(dp: Any, known: bool) -> list[str]:
@@ -351,7 +366,14 @@ def _design_lines(dp: Any, known: bool) -> list[str]:
         f"Bend: {_bend_words(dp.shape, dp.delta, dp.sigma, known)}.",
         f"Chance of flagging it at α = {fmt_num(dp.alpha)}:",
     ]
+    if dp.lack_of_fit is None:
+        lines.append(
+            f"  {_TEST_LABELS['lack_of_fit']:<27}   —     no level is repeated, so there is "
+            "no pure error to test against"
+        )
     for tp in (dp.lack_of_fit, dp.curvature):
+        if tp is None:
+            continue
         lines.append(
             f"  {_TEST_LABELS[tp.test]:<27} {_pct(tp.power):>5}"
             f"   F({tp.df_num}, {tp.df_den}) > {fmt_num(tp.critical_f, 3)}, "
@@ -370,8 +392,8 @@ def _cell(p: float, target: float) -> str:
 
 def _search_lines(ps: Any, known: bool) -> list[str]:
     lines = [
-        f"Search: which design reaches {ps.target:.0%} power against "
-        f"{_bend_words(ps.shape, ps.delta, ps.sigma, known)} (α = {fmt_num(ps.alpha)})?",
+        f"Search: designs reaching {ps.target:.0%} power at α = {fmt_num(ps.alpha)} against",
+        f"  {_bend_words(ps.shape, ps.delta, ps.sigma, known)}.",
     ]
     if ps.fixed_levels:
         lines.append(

@@ -1,0 +1,725 @@
+"""Grow the tree of candidate remedies, score every node, and suggest one with reasons.
+
+A child is its parent plus one move: a response transform (log, √, 1/y, Box–Cox λ̂ with
+regressors), a predictor transform (log, √, 1/x, Box–Tidwell power), the next polynomial
+degree, an admitted covariate, an x×covariate interaction, or weights from a power-of-mean
+variance function. Moves that cannot apply are pruned with a reason that stays visible.
+The same model reached by two paths is one node.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .errors import BendwiseError, UsageError
+from .groups import compute_group_stats
+from .linalg import Column, Design, fit_design
+from .linearity import nested_f
+from .results import LackOfFit
+from .scoring import NodeScore, _frame, build_design, score_spec
+from .spec import ModelSpec, WeightRule
+from .study import Study
+from .transforms import CONVENTIONAL_LAMBDAS, IDENTITY, LOG, RECIPROCAL, SQRT, Transform, boxcox, power
+
+__all__ = [
+    "Node",
+    "RemedyTree",
+    "Suggestion",
+    "BoxCoxProfile",
+    "profile_boxcox",
+    "box_tidwell",
+    "RULES",
+    "grow",
+    "POST_SEARCH_CAUTION",
+]
+
+RULES = ("aicc", "bic", "simplest", "press")
+MAX_DEGREE = 3
+HALF_CHI2_95 = 1.9207294103470  # ½ χ²₁(0.95), Box & Cox (1964) interval
+CHI2_95 = 2 * HALF_CHI2_95
+CONVENTIONAL_POWERS = (0.0, 0.5, -1.0, 2.0, -0.5, 1 / 3, 3.0)
+POST_SEARCH_CAUTION = (
+    "p-values after a search are optimistic: every candidate here was tried on the same data, so treat "
+    "them as descriptive and confirm the chosen model on an independent run."
+)
+
+ProgressFn = Callable[[int, int, str], None]
+CancelFn = Callable[[], bool]
+
+
+# ----- Box–Cox with regressors ----------------------------------------------------------
+
+@dataclass(frozen=True, slots=True)
+class BoxCoxProfile:
+    """Profile log-likelihood of λ with the parent's regressors (Box & Cox 1964)."""
+
+    lam_hat: float
+    """Maximising λ."""
+    low: float | None
+    """Lower end of the 95% interval (None: beyond the search range)."""
+    high: float | None
+    """Upper end of the 95% interval."""
+    grid: tuple[tuple[float, float], ...]
+    """(λ, profile log-likelihood) pairs for charts."""
+    chosen: float
+    """λ used: a conventional value inside the interval when there is one, else λ̂."""
+    estimated: bool
+    """True when λ̂ itself is used (then λ counts as an estimated parameter)."""
+
+    def as_json(self) -> dict:
+        """JSON description."""
+        return {"lambda_hat": self.lam_hat, "low": self.low, "high": self.high, "chosen": self.chosen,
+                "estimated": self.estimated}
+
+
+def profile_boxcox(
+    y: np.ndarray,
+    codes: np.ndarray,
+    c: int,
+    design: Design,
+    *,
+    weights: np.ndarray | None = None,
+    bases: np.ndarray | None = None,
+    lo: float = -3.0,
+    hi: float = 3.0,
+) -> BoxCoxProfile:
+    """λ̂ and its 95% interval for (y^λ − 1)/λ regressed on ``design`` (groups ``codes``).
+
+    ℓ(λ) = −(n/2) log(RSS_λ/n) + (λ − 1) Σ log y; interval ℓ(λ̂) − ℓ(λ) ≤ ½χ²₁(0.95).
+    Each λ costs one pass over the rows (group totals), then a small fit.
+    """
+    from scipy.optimize import brentq, minimize_scalar
+
+    if (y <= 0).any():
+        raise UsageError("Box–Cox needs y > 0")
+    n = y.shape[0]
+    logy = np.log(y)
+    slog = float(logy.sum())
+
+    def ll(lam: float) -> float:
+        z = logy if lam == 0 else np.expm1(lam * logy) / lam
+        st = compute_group_stats(codes, c, z, weights, bases)
+        rss = fit_design(st, design).sse
+        return -0.5 * n * math.log(rss / n) + (lam - 1.0) * slog if rss > 0 else math.inf
+
+    grid_l = np.round(np.arange(lo, hi + 1e-9, 0.25), 6)
+    vals = np.array([ll(float(v)) for v in grid_l])
+    i = int(np.argmax(vals))
+    a, b = grid_l[max(i - 1, 0)], grid_l[min(i + 1, len(grid_l) - 1)]
+    res = minimize_scalar(lambda v: -ll(v), bounds=(a, b), method="bounded", options={"xatol": 1e-7})
+    lam_hat = float(res.x)
+    top = ll(lam_hat)
+    if vals[i] > top:
+        lam_hat, top = float(grid_l[i]), float(vals[i])
+
+    def gap(v: float) -> float:
+        return top - ll(v) - HALF_CHI2_95
+
+    low = high = None
+    edge = lam_hat - 0.05
+    while edge > lo - 3 and gap(edge) < 0:
+        edge -= 0.5
+    if gap(edge) > 0:
+        low = float(brentq(gap, edge, lam_hat, xtol=1e-9))
+    edge = lam_hat + 0.05
+    while edge < hi + 3 and gap(edge) < 0:
+        edge += 0.5
+    if gap(edge) > 0:
+        high = float(brentq(gap, lam_hat, edge, xtol=1e-9))
+    inside = [v for v in CONVENTIONAL_LAMBDAS if (low is None or v >= low) and (high is None or v <= high)]
+    if inside:
+        chosen = min(inside, key=lambda v: abs(v - lam_hat))
+        estimated = False
+    else:
+        chosen, estimated = round(lam_hat, 2), True
+    grid = tuple((float(g), float(v)) for g, v in zip(grid_l, vals, strict=True))
+    return BoxCoxProfile(lam_hat, low, high, grid, chosen, estimated)
+
+
+# ----- Box–Tidwell power of x -----------------------------------------------------------
+
+@dataclass(frozen=True, slots=True)
+class PowerSearch:
+    """Box–Tidwell (1962) estimate of the power α in y = β₀ + β₁x^α (+ other terms)."""
+
+    alpha_hat: float
+    """Converged power."""
+    p_alpha1: float
+    """p-value of the first-step test of α = 1 (t of the x·log x term)."""
+    low: float | None
+    """Lower end of the likelihood interval for α (95%)."""
+    high: float | None
+    """Upper end."""
+    chosen: float
+    """Power used (a conventional value inside the interval when there is one)."""
+    estimated: bool
+    """True when α̂ itself is used."""
+    iterations: int
+    """Box–Tidwell iterations to convergence."""
+
+
+def box_tidwell(study: Study, spec: ModelSpec, max_iter: int = 50) -> PowerSearch:
+    """Iterate α_{k+1} = α_k + γ/β₁ (regress on x^α and x^α·log x), then a likelihood interval."""
+    from .dist import t_sf2
+
+    x_lv = study.x_level_values
+    if (x_lv <= 0).any():
+        raise UsageError("a power of x needs x > 0")
+    fr = _frame(study, spec)
+    stats = study.group_stats(fr.z, ("z", spec.response.key()), by=fr.by, weights=fr.w, weights_key=fr.wkey,
+                              bases=fr.bases, bases_key=fr.bases_key)
+    xg = study.group_parent(fr.by)
+    logx = np.log(x_lv)[xg]
+
+    def design_for(alpha: float, extra: bool) -> Design:
+        s2 = spec.with_(predictor=Transform("power", alpha) if alpha != 1 else IDENTITY)
+        fr2 = _frame(study, s2)
+        d, _ = build_design(study, s2, fr2)
+        if not extra:
+            return d
+        t = np.exp(alpha * logx)
+        col = Column(t * logx / (np.abs(t * logx).max() or 1.0))
+        p = d.p + 1
+        to_raw = np.eye(p, dtype=np.longdouble)
+        to_raw[: d.p, : d.p] = d.to_raw
+        return Design(d.columns + (col,), d.names + ("xlogx",), to_raw, True)
+
+    def slope_gamma(alpha: float) -> tuple[float, float, float]:
+        f1 = fit_design(stats, design_for(alpha, False))
+        f2 = fit_design(stats, design_for(alpha, True))
+        b1 = f1.coefficients[1].estimate
+        g = f2.coefficients[-1]
+        scale = np.abs(np.exp(alpha * logx) * logx).max() or 1.0
+        # γ on the unscaled x^α·log x column; b1 on x^α (raw basis)
+        return b1, g.estimate / scale, g.p
+
+    b1, gamma, p1 = slope_gamma(1.0)
+    alpha, it = 1.0, 0
+    for it in range(1, max_iter + 1):  # noqa: B007 - count is reported
+        b1, gamma, _ = slope_gamma(alpha)
+        # the x^α·log x column equals (1/α)·t·log t; γ estimates β₁(α_new − α)
+        step = gamma / b1 if b1 else 0.0
+        if not math.isfinite(step):
+            break
+        new = alpha + step
+        new = float(np.clip(new, -4.0, 4.0))
+        if abs(new - alpha) < 1e-9:
+            alpha = new
+            break
+        alpha = new if abs(new) > 1e-8 else 1e-8
+    # likelihood interval on the profile of SSE(α)
+    n = study.n
+
+    def sse(a: float) -> float:
+        return fit_design(stats, design_for(a, False)).sse
+
+    s_hat = sse(alpha)
+
+    def gap(a: float) -> float:
+        return n * math.log(sse(a) / s_hat) - CHI2_95
+
+    from scipy.optimize import brentq
+
+    low = high = None
+    edge = alpha - 0.05
+    while edge > alpha - 8 and gap(edge if edge != 0 else 1e-6) < 0:
+        edge -= 0.5
+    try:
+        if gap(edge if edge != 0 else 1e-6) > 0:
+            low = float(brentq(lambda a: gap(a if a != 0 else 1e-9), edge, alpha, xtol=1e-8))
+    except ValueError:
+        low = None
+    edge = alpha + 0.05
+    while edge < alpha + 8 and gap(edge if edge != 0 else 1e-6) < 0:
+        edge += 0.5
+    try:
+        if gap(edge if edge != 0 else 1e-6) > 0:
+            high = float(brentq(lambda a: gap(a if a != 0 else 1e-9), alpha, edge, xtol=1e-8))
+    except ValueError:
+        high = None
+    inside = [v for v in CONVENTIONAL_POWERS if (low is None or v >= low) and (high is None or v <= high)]
+    if inside:
+        chosen, estimated = min(inside, key=lambda v: abs(v - alpha)), False
+    else:
+        chosen, estimated = round(alpha, 2), True
+    _ = t_sf2  # imported for callers' symmetry
+    return PowerSearch(alpha, p1, low, high, chosen, estimated, it)
+
+
+# ----- weights ------------------------------------------------------------------------
+
+def power_of_mean(study: Study, z: np.ndarray) -> tuple[float, float, int] | None:
+    """θ̂ = slope of log s_j on log |mean_j| over replicated levels; returns (θ̂, p, levels)."""
+    from .dist import t_sf2
+
+    st = study.group_stats(z, ("zz", id(z)))  # not cached by value: keyed by object
+    ok = (st.count >= 2) & (st.ss > 0) & (np.abs(st.mean) > 0)
+    if ok.sum() < 3:
+        return None
+    s = np.sqrt(st.ss[ok] / (st.count[ok] - 1))
+    lx, ly = np.log(np.abs(st.mean[ok])), np.log(s)
+    if np.ptp(lx) == 0:
+        return None
+    xc = lx - lx.mean()
+    theta = float((xc * (ly - ly.mean())).sum() / (xc * xc).sum())
+    resid = ly - ly.mean() - theta * xc
+    dfr = int(ok.sum()) - 2
+    if dfr <= 0:
+        return theta, math.nan, int(ok.sum())
+    se = math.sqrt(float((resid**2).sum()) / dfr / float((xc * xc).sum()))
+    p = t_sf2(theta / se, dfr) if se > 0 else 0.0
+    return theta, p, int(ok.sum())
+
+
+# ----- the tree -------------------------------------------------------------------------
+
+@dataclass(slots=True)
+class Node:
+    """One candidate in the tree (its scores are frozen; links are filled as the tree grows)."""
+
+    id: str
+    """'root', then 'n1', 'n2', … in creation order."""
+    parent: str | None
+    """Parent id (None for the root)."""
+    move: str
+    """The move from the parent, in words."""
+    spec: ModelSpec
+    """The model."""
+    depth: int
+    """Moves from the root."""
+    score: NodeScore | None = None
+    """Scores (None when scoring failed: see ``error``)."""
+    error: str | None = None
+    """Why the node could not be scored."""
+    nested: LackOfFit | None = None
+    """Nested F against the parent, or the reason there is none."""
+    children: list[str] = field(default_factory=list)
+    """Child ids in creation order."""
+    pruned: list[tuple[str, str]] = field(default_factory=list)
+    """(move, reason) for moves that could not apply here."""
+    also_from: list[tuple[str, str]] = field(default_factory=list)
+    """(node id, move) of other paths that reach the same model."""
+    expanded: bool = False
+    """True once its moves were generated."""
+    detail: dict = field(default_factory=dict)
+    """Move details (Box–Cox profile, Box–Tidwell search, variance fit)."""
+
+
+@dataclass(frozen=True, slots=True)
+class Suggestion:
+    """The suggested node and why."""
+
+    node: str | None
+    """Node id, or None when no node qualifies."""
+    rule: str
+    """Rule used."""
+    reason: str
+    """The reason in words."""
+
+
+def _nested(parent: Node, child: Node) -> LackOfFit:
+    kind = "nested F"
+    ps, cs = parent.spec, child.spec
+    if ps.response != cs.response:
+        return LackOfFit(False, f"different response scale ({ps.response.short('y')} vs {cs.response.short('y')}): "
+                         "compare AICc, not F", kind)
+    if ps.weights != cs.weights:
+        return LackOfFit(False, "different weights: compare AICc, not F", kind)
+    if ps.predictor != cs.predictor:
+        return LackOfFit(False, "not nested: the predictor transform changes the x columns", kind)
+    if parent.score is None or child.score is None:
+        return LackOfFit(False, "a model could not be scored", kind)
+    pf, cf = parent.score.fit, child.score.fit
+    return nested_f(pf.sse, pf.df_resid, cf.sse, cf.df_resid, kind, approximate=cs.weights is not None)
+
+
+class RemedyTree:
+    """The candidate tree on one study; deterministic order, cached and deduplicated."""
+
+    def __init__(self, study: Study, *, alpha: float = 0.05, allowable_deviation: float | None = None) -> None:
+        if not 0 < alpha < 1:
+            raise UsageError(f"alpha {alpha!r} must lie strictly between 0 and 1, e.g. 0.05")
+        if allowable_deviation is not None and not allowable_deviation > 0:
+            raise UsageError(f"allowable deviation {allowable_deviation!r} must be > 0 (in y units)")
+        self.study = study
+        self.alpha = alpha
+        self.allowable_deviation = allowable_deviation
+        self.nodes: dict[str, Node] = {}
+        self._by_spec: dict[ModelSpec, str] = {}
+        self._counter = 0
+        root = Node("root", None, "start: straight line", ModelSpec(), 0)
+        self._add(root)
+        self._score(root)
+        self._root_line = None if root.score is None else np.asarray(root.score.level_fitted_y)
+
+    # ---- building --------------------------------------------------------------------
+    def _add(self, node: Node) -> None:
+        self.nodes[node.id] = node
+        self._by_spec[node.spec] = node.id
+
+    def _score(self, node: Node) -> None:
+        try:
+            node.score = score_spec(self.study, node.spec, root_line=getattr(self, "_root_line", None))
+        except BendwiseError as exc:
+            node.error = str(exc)
+        if node.parent is not None:
+            node.nested = _nested(self.nodes[node.parent], node)
+
+    @property
+    def root(self) -> Node:
+        """The straight line."""
+        return self.nodes["root"]
+
+    def _moves(self, node: Node) -> tuple[list[tuple[str, ModelSpec, dict]], list[tuple[str, str]]]:
+        """(move, child spec, detail) for applicable moves; (move, reason) for pruned ones."""
+        st, sp = self.study, node.spec
+        ok: list[tuple[str, ModelSpec, dict]] = []
+        pruned: list[tuple[str, str]] = []
+        ylab, xlab = st.y_name, st.x_name
+        # response transforms
+        if sp.response == IDENTITY and sp.weights is None:
+            for t, move in ((LOG, "log y"), (SQRT, "√y"), (RECIPROCAL, "1/y")):
+                prob = t.domain_problem(st.y, ylab, "y")
+                if prob:
+                    pruned.append((move, prob))
+                else:
+                    ok.append((move, sp.with_(response=t), {}))
+            prob = Transform("boxcox", 0.5).domain_problem(st.y, ylab, "y")
+            if prob:
+                pruned.append(("Box–Cox y", prob))
+            else:
+                try:
+                    fr = _frame(st, sp)
+                    design, _ = build_design(st, sp, fr)
+                    codes, c = st.group_codes(fr.by)
+                    prof = profile_boxcox(st.y, codes, c, design, weights=st.weights, bases=fr.bases)
+                except BendwiseError as exc:
+                    pruned.append(("Box–Cox y", str(exc)))
+                else:
+                    interval = f"λ̂ = {prof.lam_hat:.3g}, 95% interval {_iv(prof.low, prof.high)}"
+                    t = boxcox(prof.chosen)
+                    if t == IDENTITY:
+                        pruned.append(("Box–Cox y", f"no transform needed: λ = 1 lies inside ({interval})"))
+                    else:
+                        move = f"Box–Cox y (λ = {prof.chosen:.3g}{', estimated' if prof.estimated else ''}; {interval})"
+                        ok.append((move, sp.with_(response=t, response_estimated=prof.estimated),
+                                   {"boxcox": prof}))
+        elif sp.response != IDENTITY:
+            pruned.append(("response transform", f"the response is already transformed ({sp.response.short('y')})"))
+        else:
+            pruned.append(("response transform", "weights were estimated for the untransformed response; "
+                           "transform first, then weight"))
+        # predictor transforms
+        if sp.predictor == IDENTITY and not sp.interactions:
+            for t, move in ((LOG, "log x"), (SQRT, "√x"), (RECIPROCAL, "1/x")):
+                prob = t.domain_problem(st.x, xlab, "x")
+                if prob:
+                    pruned.append((move, prob))
+                else:
+                    ok.append((move, sp.with_(predictor=t), {}))
+            if sp.degree != 1:
+                pruned.append(("power of x (Box–Tidwell)", "only for a straight line in x (degree 1)"))
+            elif st.approximate_groups:
+                pruned.append(("power of x (Box–Tidwell)", "not available when settings are grouped by a tolerance"))
+            elif (st.x <= 0).any():
+                pruned.append(("power of x (Box–Tidwell)", Transform("power", 0.5).domain_problem(st.x, xlab, "x") or "needs x > 0"))
+            else:
+                try:
+                    ps = box_tidwell(st, sp)
+                except (BendwiseError, ValueError, ZeroDivisionError, FloatingPointError) as exc:
+                    pruned.append(("power of x (Box–Tidwell)", f"did not converge ({exc})"))
+                else:
+                    t = power(ps.chosen)
+                    iv = f"α̂ = {ps.alpha_hat:.3g}, 95% interval {_iv(ps.low, ps.high)}, test of α = 1 p = {ps.p_alpha1:.3g}"
+                    if t == IDENTITY or ps.p_alpha1 >= self.alpha:
+                        pruned.append(("power of x (Box–Tidwell)", f"no evidence the power differs from 1 ({iv})"))
+                    else:
+                        move = f"x^α (α = {ps.chosen:.3g}{', estimated' if ps.estimated else ''}; {iv})"
+                        ok.append((move, sp.with_(predictor=t, predictor_estimated=ps.estimated), {"box_tidwell": ps}))
+        elif sp.predictor != IDENTITY:
+            pruned.append(("predictor transform", f"the predictor is already transformed ({sp.predictor.short('x')})"))
+        else:
+            pruned.append(("predictor transform", "this model has interactions with x; transform x before adding them"))
+        # polynomial degree
+        nd = sp.degree + 1
+        if nd > MAX_DEGREE:
+            pruned.append((f"degree {nd}", f"bendwise stops at degree {MAX_DEGREE}: higher degrees chase noise"))
+        elif nd > st.c - 2:
+            pruned.append((f"degree {nd}", f"{st.c} levels of x: degree {nd} would leave no degree of freedom for lack of fit"))
+        else:
+            ok.append((f"+ {'x²' if nd == 2 else 'x³'}", sp.with_(degree=nd), {}))
+        # covariates and interactions
+        for cov in st.covariates:
+            if cov.name not in sp.covariates:
+                ok.append((f"+ {cov.name}", sp.with_(covariates=sp.covariates + (cov.name,)), {}))
+        for name in sp.covariates:
+            if name in sp.interactions:
+                continue
+            if st.approximate_groups:
+                pruned.append((f"+ x:{name}", "not available when settings are grouped by a tolerance"))
+            else:
+                ok.append((f"+ x:{name}", sp.with_(interactions=sp.interactions + (name,)), {}))
+        # weights
+        if sp.weights is None and node.score is not None:
+            z = np.asarray(sp.response.forward(st.y), dtype=float)
+            pm = power_of_mean(st, z)
+            spread_p = node.score.spread.p if node.score.spread.testable else None
+            if pm is None:
+                pruned.append(("weights", "needs at least 3 replicated levels with spread to fit a variance function"))
+            else:
+                theta, p_theta, _ = pm
+                differ = (spread_p is not None and spread_p < 0.10) or (math.isfinite(p_theta) and p_theta < 0.10)
+                if not differ:
+                    pruned.append(("weights", f"spreads do not differ across levels (Brown–Forsythe p = "
+                                   f"{_fp(spread_p)}, trend of SD with the mean p = {_fp(p_theta)})"))
+                elif abs(theta) < 0.1:
+                    pruned.append(("weights", f"the spread does not follow the mean (θ̂ = {theta:.2g})"))
+                else:
+                    th = round(theta, 2)
+                    ok.append((f"weights ∝ mean^(−2θ), θ = {th:.3g} (approximate)",
+                               sp.with_(weights=WeightRule("power-of-mean", th)), {"theta": theta, "p": p_theta}))
+        elif sp.weights is not None:
+            pruned.append(("weights", "already weighted"))
+        return ok, pruned
+
+    def expand(self, node_id: str, progress: ProgressFn | None = None, cancel: CancelFn | None = None) -> list[str]:
+        """Generate and score the children of one node (best-first growth); returns new ids."""
+        node = self.nodes[node_id]
+        if node.expanded:
+            return []
+        moves, pruned = self._moves(node)
+        node.pruned = pruned
+        new: list[str] = []
+        for i, (move, spec, detail) in enumerate(moves):
+            if cancel is not None and cancel():
+                return new
+            if spec == node.spec:
+                node.pruned.append((move, "gives the same model"))
+                continue
+            hit = self._by_spec.get(spec)
+            if hit is not None:
+                self.nodes[hit].also_from.append((node_id, move))
+                continue
+            self._counter += 1
+            child = Node(f"n{self._counter}", node_id, move, spec, node.depth + 1, detail=detail)
+            self._add(child)
+            node.children.append(child.id)
+            self._score(child)
+            new.append(child.id)
+            if progress is not None:
+                progress(i + 1, len(moves), child.spec.label())
+        node.expanded = True
+        return new
+
+    def grow(self, depth: int = 2, progress: ProgressFn | None = None, cancel: CancelFn | None = None) -> None:
+        """Breadth-first growth to ``depth`` moves from the root."""
+        if depth < 0:
+            raise UsageError(f"depth {depth} must be ≥ 0")
+        frontier = ["root"]
+        for _ in range(depth):
+            nxt: list[str] = []
+            for nid in frontier:
+                if cancel is not None and cancel():
+                    return
+                if self.nodes[nid].score is None:
+                    continue
+                nxt += self.expand(nid, progress, cancel)
+            frontier = nxt
+
+    # ---- judging -----------------------------------------------------------------------
+    def scored(self) -> list[Node]:
+        """Nodes with scores, in creation order."""
+        return [n for n in self.nodes.values() if n.score is not None]
+
+    def best_aicc(self) -> float | None:
+        """Lowest AICc among scored nodes."""
+        vals = [n.score.criteria.aicc for n in self.scored() if n.score.criteria.aicc is not None]  # type: ignore[union-attr]
+        return min(vals) if vals else None
+
+    def passes(self, node: Node, alpha: float | None = None) -> bool:
+        """Candidate for the suggestion: passes lack of fit at α, or is untestable and fails nothing else."""
+        a = self.alpha if alpha is None else alpha
+        s = node.score
+        if s is None:
+            return False
+        verdict = s.lack_of_fit.passes(a)
+        if verdict is None:
+            return not s.fit.aliased and math.isfinite(s.fit.sigma)
+        return verdict
+
+    def sort_key(self, rule: str) -> Callable[[Node], tuple]:
+        """Ordering of nodes under a rule (missing values last)."""
+        if rule not in RULES:
+            raise UsageError(f"unknown rule {rule!r}; choose one of {', '.join(RULES)}")
+        inf = math.inf
+
+        def key(n: Node) -> tuple:
+            s = n.score
+            if s is None:
+                return (inf, inf, n.id)
+            aicc = s.criteria.aicc if s.criteria.aicc is not None else inf
+            if rule == "aicc":
+                return (aicc, s.k, _order(n.id))
+            if rule == "bic":
+                return (s.criteria.bic, s.k, _order(n.id))
+            if rule == "simplest":
+                return (s.k, aicc, _order(n.id))
+            return (s.press if s.press is not None else inf, s.k, _order(n.id))
+
+        return key
+
+    def suggest(self, rule: str = "aicc", alpha: float | None = None) -> Suggestion:
+        """Pick a node by ``rule`` among those that pass lack of fit (see README)."""
+        a = self.alpha if alpha is None else alpha
+        cands = [n for n in self.scored() if self.passes(n, a)]
+        key = self.sort_key(rule)
+        if not cands:
+            fails = sorted(self.scored(), key=key)
+            near = fails[0].spec.label(self.study.y_name, self.study.x_name) if fails else "—"
+            return Suggestion(None, rule, f"no candidate passes lack of fit at α = {a:g}; the best by {rule} is "
+                              f"{near}, which still fails. Look for a missing variable, or grow further.")
+        if rule == "aicc":
+            best = min(cands, key=key)
+            ba = best.score.criteria.aicc  # type: ignore[union-attr]
+            if ba is None:
+                chosen = min(cands, key=self.sort_key("bic"))
+            else:
+                close = [n for n in cands if n.score.criteria.aicc is not None and n.score.criteria.aicc <= ba + 2.0]  # type: ignore[union-attr]
+                chosen = min(close, key=lambda n: (n.score.k, n.score.criteria.aicc, _order(n.id)))  # type: ignore[union-attr]
+        elif rule == "press":
+            with_press = [n for n in cands if n.score.press is not None]  # type: ignore[union-attr]
+            if not with_press:
+                return Suggestion(None, rule, "PRESS is unavailable for these candidates (large table); use another rule")
+            chosen = min(with_press, key=key)
+        else:
+            chosen = min(cands, key=key)
+        return Suggestion(chosen.id, rule, self._reason(chosen, rule, a))
+
+    def _reason(self, node: Node, rule: str, alpha: float) -> str:
+        s = node.score
+        assert s is not None
+        lab = node.spec.label(self.study.y_name, self.study.x_name)
+        lof = s.lack_of_fit
+        part = (f"passes lack of fit (p = {_fp(lof.p)})" if lof.testable else f"lack of fit untestable ({lof.reason})")
+        root = self.root.score
+        rs = f"{lab}: {part}"
+        if root is not None and node.id != "root" and s.criteria.aicc is not None and root.criteria.aicc is not None:
+            d = root.criteria.aicc - s.criteria.aicc
+            rs += f", AICc {abs(d):.1f} {'below' if d >= 0 else 'above'} the straight line"
+        if rule == "aicc":
+            rs += "; simplest model within 2 AICc of the best passing candidate"
+        elif rule == "bic":
+            rs += f"; lowest BIC ({s.criteria.bic:.1f}) among passing candidates"
+        elif rule == "simplest":
+            rs += f"; fewest parameters (k = {s.k}) among passing candidates"
+        else:
+            rs += f"; lowest PRESS ({s.press:.4g}) among passing candidates"
+        if node.id == "root":
+            rs = f"the straight line {part}; no remedy improves AICc enough to justify it"
+        dev = self.allowable_deviation
+        if dev is not None and node.id != "root" and s.max_deviation is not None:
+            rs += (f"; its largest departure from the line is {s.max_deviation:.4g} (allowable {dev:g}: "
+                   f"{'within' if s.max_deviation <= dev else 'beyond'} it)")
+        return rs
+
+    def path(self, node_id: str) -> list[Node]:
+        """Nodes from the root to ``node_id``."""
+        out = []
+        cur: str | None = node_id
+        while cur is not None:
+            out.append(self.nodes[cur])
+            cur = self.nodes[cur].parent
+        return out[::-1]
+
+    def node_json(self, node: Node) -> dict:
+        """The stable JSON shape of a node (documented in the README)."""
+        st = self.study
+        kinds = {c.name: c.kind for c in st.covariates}
+        s = node.score
+        best = self.best_aicc()
+        out: dict = {
+            "id": node.id,
+            "parent": node.parent,
+            "move": node.move,
+            "depth": node.depth,
+            "label": node.spec.label(st.y_name, st.x_name),
+            "formula": node.spec.formula(st.y_name, st.x_name, kinds),
+            "spec": node.spec.as_json(),
+            "children": list(node.children),
+            "pruned": [{"move": m, "reason": r} for m, r in node.pruned],
+            "also_reached_from": [{"node": i, "move": m} for i, m in node.also_from],
+        }
+        if s is None:
+            out.update(k=None, error=node.error, lack_of_fit={"testable": False, "reason": node.error})
+            return out
+        out.update(
+            k=s.k,
+            coefficients={c.name: {"estimate": c.estimate, "se": c.se, "p": c.p} for c in s.fit.coefficients},
+            sigma=s.fit.sigma,
+            lack_of_fit=s.lack_of_fit.as_json(),
+            lack_of_fit_pure=s.lack_of_fit_pure.as_json(),
+            passes=self.passes(node),
+            nested=(_nested_json(node.nested) if node.nested is not None else {"reason": "the root has no parent"}),
+            criteria={**s.criteria.as_json(),
+                      "delta_aicc": (s.criteria.aicc - best) if (best is not None and s.criteria.aicc is not None) else None},
+            press=s.press,
+            press_note=s.press_note,
+            max_studentized_residual=s.max_studentized,
+            spread=s.spread.as_json(),
+            max_deviation_from_line=s.max_deviation,
+            deviation_note=s.deviation_note,
+            warnings=list(s.warnings),
+        )
+        if "boxcox" in node.detail:
+            out["boxcox"] = node.detail["boxcox"].as_json()
+        if "box_tidwell" in node.detail:
+            ps = node.detail["box_tidwell"]
+            out["box_tidwell"] = {"alpha_hat": ps.alpha_hat, "low": ps.low, "high": ps.high, "chosen": ps.chosen,
+                                  "estimated": ps.estimated, "p_alpha_is_1": ps.p_alpha1}
+        return out
+
+    def as_json(self, rule: str = "aicc") -> dict:
+        """``{"suggested", "reason", "rule", "alpha", "caution", "nodes"}``."""
+        sug = self.suggest(rule)
+        return {
+            "suggested": sug.node,
+            "reason": sug.reason,
+            "rule": rule,
+            "alpha": self.alpha,
+            "caution": POST_SEARCH_CAUTION,
+            "nodes": [self.node_json(n) for n in self.nodes.values()],
+        }
+
+
+def _nested_json(t: LackOfFit) -> dict:
+    if not t.testable:
+        return {"reason": t.reason}
+    return {"f": t.f, "df_num": t.df_lack, "df_den": t.df_pure, "p": t.p, "approximate": t.approximate}
+
+
+def _order(node_id: str) -> int:
+    return 0 if node_id == "root" else int(node_id[1:])
+
+
+def _iv(lo: float | None, hi: float | None) -> str:
+    a = "−∞" if lo is None else f"{lo:.3g}"
+    b = "∞" if hi is None else f"{hi:.3g}"
+    return f"({a}, {b})"
+
+
+def _fp(p: float | None) -> str:
+    if p is None or not math.isfinite(p):
+        return "—"
+    return "<1e-12" if p < 1e-12 else f"{p:.3g}"
+
+
+def grow(study: Study, *, depth: int = 2, alpha: float = 0.05, allowable_deviation: float | None = None,
+         progress: ProgressFn | None = None, cancel: CancelFn | None = None) -> RemedyTree:
+    """Build the remedy tree breadth-first to ``depth``."""
+    tree = RemedyTree(study, alpha=alpha, allowable_deviation=allowable_deviation)
+    tree.grow(depth, progress, cancel)
+    return tree
