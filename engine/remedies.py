@@ -426,7 +426,8 @@ class RemedyTree:
             elif st.approximate_groups:
                 pruned.append(("power of x (Box–Tidwell)", "not available when settings are grouped by a tolerance"))
             elif (st.x <= 0).any():
-                pruned.append(("power of x (Box–Tidwell)", Transform("power", 0.5).domain_problem(st.x, xlab, "x") or "needs x > 0"))
+                bad = int((st.x <= 0).sum())
+                pruned.append(("power of x (Box–Tidwell)", f"a power of x needs x > 0: {bad} row(s) of {xlab!r} have x ≤ 0"))
             else:
                 try:
                     ps = box_tidwell(st, sp)

@@ -22,7 +22,10 @@ from .spec import ModelSpec
 from .study import Study
 from .transforms import Transform
 
-__all__ = ["Term", "NodeScore", "score_spec", "ROW_PASS_LIMIT", "MAX_FACTOR_LEVELS", "predict_terms"]
+__all__ = [
+    "Term", "NodeScore", "score_spec", "ROW_PASS_LIMIT", "MAX_FACTOR_LEVELS", "predict_terms",
+    "LevelResiduals", "residuals_by_level",
+]
 
 ROW_PASS_LIMIT = 200_000
 """Above this many rows, per-row diagnostics that have no group-level shortcut are skipped."""
@@ -479,3 +482,51 @@ def _row_diagnostics(study, spec, fr, stats, design, fit, big):
     reason = None if not spec.covariates else "computed on the response, not the residuals (large table)"
     spread = SideTest(name, sp.testable, sp.statistic, sp.df, sp.p, sp.reason or reason)
     return press, note, rmax, spread
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class LevelResiduals:
+    """Residuals of a node grouped by x level, for charts (fitted scale, weighted by √w)."""
+
+    x: np.ndarray
+    """x of every row."""
+    residual: np.ndarray
+    """√w·(z − ẑ) of every row."""
+    level_x: np.ndarray
+    """x of each level."""
+    level_mean: np.ndarray
+    """Mean residual per level (the lack-of-fit signal)."""
+    level_sd: np.ndarray
+    """Replicate SD per level (pure-error spread; NaN with one row)."""
+
+
+def residuals_by_level(study: Study, score: NodeScore, max_rows: int = 100_000) -> LevelResiduals:
+    """Row residuals of a scored node (a sample of ``max_rows`` evenly spaced rows when larger)."""
+    spec = score.spec
+    fr = _frame(study, spec)
+    stats = _stats(study, spec, fr)
+    design, _ = build_design(study, spec, fr)
+    to_raw = design.to_raw.astype(float)
+    beta_raw = np.array([0.0 if c.name in score.fit.aliased else c.estimate for c in score.fit.coefficients])
+    beta_w = np.linalg.solve(to_raw, beta_raw)
+    idx = np.arange(study.n)
+    if study.n > max_rows:
+        idx = np.linspace(0, study.n - 1, max_rows).astype(np.intp)
+    codes, _ = study.group_codes(fr.by)
+    cols = []
+    for col in design.columns:
+        v = col.group[codes[idx]]
+        if col.base is not None:
+            v = v * fr.bases[idx, col.base]  # type: ignore[index]
+        cols.append(v)
+    zhat = np.column_stack(cols) @ beta_w
+    w = np.ones(idx.size) if fr.w is None else fr.w[idx]
+    e = np.sqrt(w) * (fr.z[idx] - zhat)
+    xc = study.x_codes[idx]
+    cnt = np.bincount(xc, minlength=study.c).astype(float)
+    with np.errstate(all="ignore"):
+        mean = np.bincount(xc, weights=e, minlength=study.c) / cnt
+        dev = e - mean[xc]
+        sd = np.sqrt(np.bincount(xc, weights=dev * dev, minlength=study.c) / (cnt - 1))
+    _ = stats
+    return LevelResiduals(study.x[idx], e, study.x_level_values.copy(), mean, np.where(cnt > 1, sd, np.nan))

@@ -92,7 +92,10 @@ class Transform:
         k = self.kind
         if k == "identity":
             return None
-        if k in {"log", "boxcox", "sqrt"} or (k == "power" and not float(self.param).is_integer()):  # type: ignore[arg-type]
+        if k == "sqrt" and role == "x":
+            bad = v < 0
+            need = f"√{role} needs {role} ≥ 0"
+        elif k in {"log", "boxcox", "sqrt"} or (k == "power" and not float(self.param).is_integer()):  # type: ignore[arg-type]
             bad = v <= 0
             need = f"{self.short(role)} needs {role} > 0"
         elif k == "reciprocal":
@@ -106,7 +109,8 @@ class Transform:
             return None
         rows = np.flatnonzero(bad)
         shown = ", ".join(str(int(r) + 1) for r in rows[:5]) + (", …" if rows.size > 5 else "")
-        return f"{need}: {rows.size} row(s) of {column!r} have {role} ≤ 0 (rows {shown} of those used)" if k != "reciprocal" else f"{need}: {rows.size} row(s) of {column!r} are 0 (rows {shown} of those used)"
+        what = "are 0" if k == "reciprocal" else ("are negative" if k == "sqrt" and role == "x" else f"have {role} ≤ 0")
+        return f"{need}: {rows.size} row(s) of {column!r} {what} (rows {shown} of those used)"
 
     # ---- labels ----------------------------------------------------------------------
     def short(self, var: str) -> str:

@@ -1,0 +1,117 @@
+"""``bendwise grow``: grow the remedy tree, score every node, suggest one with reasons."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from ..output import emit_json, fmt_num, fmt_p
+from .common import CAUTION, add_data_args, alpha_arg, load_study, table
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    """Add the ``grow`` subcommand."""
+    from engine.remedies import RULES
+
+    p = sub.add_parser(
+        "grow",
+        help="grow and score candidate remedies; suggest one",
+        description="Grow a tree of remedies from the straight line (transforms, powers, covariates, "
+        "weights), score every node on one scale and suggest one.",
+    )
+    add_data_args(p, covariates=True)
+    p.add_argument("--depth", type=int, default=2, help="moves from the straight line (default 2)")
+    p.add_argument("--rule", choices=RULES, default="aicc", help="suggestion rule (default aicc)")
+    p.add_argument("--alpha", type=alpha_arg, default=0.05, help="level for lack of fit (default 0.05)")
+    p.add_argument("--allowable-deviation", type=float, metavar="D",
+                   help="largest departure from the line that matters in practice (y units)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--quiet", action="store_true", help="no progress on stderr")
+    p.set_defaults(func=run)
+
+
+def build_tree(args: argparse.Namespace, progress=None):
+    """Load, grow and return (study, tree); shared with export."""
+    from engine.errors import UsageError
+    from engine.remedies import RemedyTree
+
+    if args.depth < 0 or args.depth > 4:
+        raise UsageError(f"depth {args.depth} is out of range; use 0 to 4")
+    study = load_study(args)
+    tree = RemedyTree(study, alpha=args.alpha, allowable_deviation=getattr(args, "allowable_deviation", None))
+    tree.grow(args.depth, progress)
+    return study, tree
+
+
+def run(args: argparse.Namespace) -> int:
+    """Grow and print."""
+    from engine.remedies import POST_SEARCH_CAUTION
+
+    progress = None
+    if not args.quiet and not args.json and sys.stderr.isatty():
+        def progress(done: int, total: int, label: str) -> None:
+            sys.stderr.write(f"\r  scoring {done}/{total}: {label[:50]:<50}")
+            sys.stderr.flush()
+    study, tree = build_tree(args, progress)
+    if progress is not None:
+        sys.stderr.write("\r" + " " * 72 + "\r")
+    if args.json:
+        emit_json(tree.as_json(args.rule))
+        return 0
+    print("\n".join(render(study, tree, args.rule)))
+    _ = POST_SEARCH_CAUTION
+    return 0
+
+
+def verdict_word(tree, node) -> str:
+    """'pass', 'FAIL', 'untestable' or 'error' (words, not colours)."""
+    s = node.score
+    if s is None:
+        return "error"
+    v = s.lack_of_fit.passes(tree.alpha)
+    return "untestable" if v is None else ("pass" if v else "FAIL")
+
+
+def render(study, tree, rule: str) -> list[str]:
+    """Text report: suggestion, ranked table, tree with pruned moves."""
+    from engine.remedies import POST_SEARCH_CAUTION
+
+    sug = tree.suggest(rule)
+    y, x = study.y_name, study.x_name
+    out = [f"bendwise grow · {study.source} · {study.describe_design()}"]
+    if study.report.n_dropped:
+        out.append(f"  rows dropped: {study.report.n_dropped} ({'; '.join(study.report.lines())})")
+    out.append(f"  {len(tree.nodes)} models scored; rule {rule}; lack of fit at α = {tree.alpha:g}")
+    out += ["", "Suggestion"]
+    out.append(f"  {sug.node or 'none'} — {sug.reason}")
+    out += ["", f"Candidates, best first by {rule}"]
+    best = tree.best_aicc()
+    rows = []
+    for n in sorted(tree.nodes.values(), key=tree.sort_key(rule)):
+        s = n.score
+        mark = "→" if n.id == sug.node else " "
+        if s is None:
+            rows.append([mark + n.id, n.spec.label(y, x)[:44], "—", "—", "—", "—", "—", "error"])
+            continue
+        nested = fmt_p(n.nested.p) if n.nested is not None and n.nested.testable else "—"
+        d = s.criteria.aicc - best if (s.criteria.aicc is not None and best is not None) else None
+        rows.append([mark + n.id, n.spec.label("y", "x")[:44], str(s.k), fmt_p(s.lack_of_fit.p), nested,
+                     fmt_num(d, 3) if d is not None else "—", fmt_num(s.criteria.bic, 5), verdict_word(tree, n)])
+    out += table(rows, ["node", "model", "k", "lack-of-fit p", "nested p", "ΔAICc", "BIC", "verdict"],
+                 right={2, 3, 4, 5, 6})
+    out += ["", "Tree (move → model)"]
+
+    def walk(nid: str, indent: str) -> None:
+        n = tree.nodes[nid]
+        label = n.spec.label("y", "x")
+        extra = f"  (also via {', '.join(i for i, _ in n.also_from)})" if n.also_from else ""
+        head = "" if n.parent is None else f"{n.move} → "
+        out.append(f"{indent}{n.id} [{verdict_word(tree, n)}] {head}{label}{extra}")
+        for cid in n.children:
+            walk(cid, indent + "  ")
+        for move, reason in n.pruned:
+            out.append(f"{indent}  ✗ {move}: {reason}")
+
+    walk("root", "  ")
+    out += ["", POST_SEARCH_CAUTION, CAUTION]
+    return out
