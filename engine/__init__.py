@@ -6,6 +6,7 @@ imported inside the functions that need them, so ``import engine`` stays cheap.
 
 from __future__ import annotations
 
+from .cautions import CAUTION
 from .data import CleaningReport, load_table, resolve_column
 from .errors import BendwiseError, DataError, SpecError, UsageError
 from .linearity import CheckResult, check, pure_error
@@ -17,6 +18,7 @@ from .study import Study, make_study
 from .transforms import Transform
 
 __all__ = [
+    "CAUTION",
     "POST_SEARCH_CAUTION",
     "RULES",
     "BendwiseError",

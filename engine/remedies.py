@@ -15,6 +15,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .cautions import POST_SEARCH_CAUTION
 from .errors import BendwiseError, UsageError
 from .groups import compute_group_stats
 from .linalg import Column, Design, fit_design
@@ -23,7 +24,16 @@ from .results import LackOfFit
 from .scoring import NodeScore, _frame, build_design, score_spec
 from .spec import ModelSpec, WeightRule
 from .study import Study
-from .transforms import CONVENTIONAL_LAMBDAS, IDENTITY, LOG, RECIPROCAL, SQRT, Transform, boxcox, power
+from .transforms import (
+    CONVENTIONAL_LAMBDAS,
+    IDENTITY,
+    LOG,
+    RECIPROCAL,
+    SQRT,
+    Transform,
+    boxcox,
+    power,
+)
 
 __all__ = [
     "Node",
@@ -42,10 +52,6 @@ MAX_DEGREE = 3
 HALF_CHI2_95 = 1.9207294103470  # ½ χ²₁(0.95), Box & Cox (1964) interval
 CHI2_95 = 2 * HALF_CHI2_95
 CONVENTIONAL_POWERS = (0.0, 0.5, -1.0, 2.0, -0.5, 1 / 3, 3.0)
-POST_SEARCH_CAUTION = (
-    "p-values after a search are optimistic: every candidate here was tried on the same data, so treat "
-    "them as descriptive and confirm the chosen model on an independent run."
-)
 
 ProgressFn = Callable[[int, int, str], None]
 CancelFn = Callable[[], bool]

@@ -5,10 +5,9 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-CAUTION = (
-    "Caution: statistical adequacy is not regulatory acceptance. For clinical, environmental or "
-    "safety measurements follow your laboratory's validated procedures and the applicable guidance."
-)
+from engine.cautions import CAUTION
+
+__all__ = ["CAUTION", "add_data_args", "alpha_arg", "split_list", "load_study", "table"]
 
 
 def add_data_args(p: argparse.ArgumentParser, *, need_xy: bool = True, covariates: bool = False) -> None:
