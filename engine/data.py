@@ -173,9 +173,11 @@ def load_table(
             frame = _read_text(path, name, dec, sep)
     except DataError:
         raise
-    except (ValueError, OSError, UnicodeDecodeError) as exc:
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        raise DataError(f"cannot read {name}: {first}; check the file format") from None
+    except Exception as exc:  # noqa: BLE001 - readers raise many types; the user needs one line
+        text = str(exc).strip()
+        first = text.splitlines()[0] if text else ""
+        kind = type(exc).__name__
+        raise DataError(f"cannot read {name} ({kind}{': ' + first if first else ''}); check the file format") from None
     if frame.shape[0] == 0:
         raise DataError(f"{name} has no data rows; check the file")
     frame.columns = [str(c).strip() for c in frame.columns]

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["GroupStats", "compute_group_stats"]
+__all__ = ["GroupStats", "compute_group_stats", "compute_base_parts"]
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -63,12 +63,15 @@ def compute_group_stats(
     bases: np.ndarray | None = None,
     extremes: bool = False,
     order: np.ndarray | None = None,
+    base_parts: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
 ) -> GroupStats:
     """Aggregate response ``z`` (and optional bases) by integer group ``codes`` in 0..c-1.
 
     Two passes (means, then centred squares) keep the pure error accurate when the
     response has a large offset, as in the NIST StRD sets. ``order`` (rows sorted by group)
-    may be passed in to reuse one sort for the per-group extremes of many responses.
+    may be passed in to reuse one sort for the per-group extremes of many responses;
+    ``base_parts`` = (base means, rows of bases centred within groups, base-by-base cross
+    products) from :func:`base_parts` lets many responses share the work on the bases.
     """
     n = int(z.shape[0])
     count = np.bincount(codes, minlength=c).astype(np.int64)
@@ -89,23 +92,17 @@ def compute_group_stats(
         cross = None
     else:
         q = bases.shape[1]
-        base_mean = np.empty((c, q))
-        centred = np.empty((n, q + 1))
-        for k in range(q):
-            b = bases[:, k]
-            bw = b if w is None else w * b
-            base_mean[:, k] = np.bincount(codes, weights=bw, minlength=c) / wsum
-            centred[:, k] = b - base_mean[codes, k]
-        centred[:, q] = d
+        if base_parts is None:
+            base_parts = compute_base_parts(codes, c, wsum, w, bases)
+        base_mean, centred_b, bcross = base_parts
         cross = np.empty((c, q + 1, q + 1))
-        for k in range(q + 1):
-            for m in range(k, q + 1):
-                prod = centred[:, k] * centred[:, m]
-                if w is not None:
-                    prod = prod * w
-                col = np.bincount(codes, weights=prod, minlength=c)
-                cross[:, k, m] = col
-                cross[:, m, k] = col
+        cross[:, :q, :q] = bcross
+        dw = d if w is None else d * w
+        for k in range(q):
+            col = np.bincount(codes, weights=centred_b[:, k] * dw, minlength=c)
+            cross[:, k, q] = col
+            cross[:, q, k] = col
+        cross[:, q, q] = ss
     zmin = zmax = None
     if extremes:
         if order is None:
@@ -115,3 +112,27 @@ def compute_group_stats(
         zmin = np.minimum.reduceat(zs, starts)
         zmax = np.maximum.reduceat(zs, starts)
     return GroupStats(n, count, wsum, mean, ss, slw, base_mean, cross, zmin, zmax)
+
+
+def compute_base_parts(
+    codes: np.ndarray, c: int, wsum: np.ndarray, w: np.ndarray | None, bases: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Group means of the bases, the bases centred within groups, and their cross-products."""
+    n, q = bases.shape
+    base_mean = np.empty((c, q))
+    centred = np.empty((n, q))
+    for k in range(q):
+        b = bases[:, k]
+        bw = b if w is None else w * b
+        base_mean[:, k] = np.bincount(codes, weights=bw, minlength=c) / wsum
+        centred[:, k] = b - base_mean[codes, k]
+    cross = np.empty((c, q, q))
+    for k in range(q):
+        for m in range(k, q):
+            prod = centred[:, k] * centred[:, m]
+            if w is not None:
+                prod = prod * w
+            col = np.bincount(codes, weights=prod, minlength=c)
+            cross[:, k, m] = col
+            cross[:, m, k] = col
+    return base_mean, centred, cross

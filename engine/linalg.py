@@ -22,7 +22,7 @@ from .dist import t_ppf, t_sf2
 from .groups import GroupStats
 from .results import Coefficient, Fit
 
-__all__ = ["Column", "Design", "fit_design", "poly_map", "solve_stacked"]
+__all__ = ["Column", "Design", "fit_design", "design_rss", "poly_map", "solve_stacked"]
 
 _EPS = np.finfo(float).eps
 
@@ -116,9 +116,38 @@ class _Solution:
     rss: float
 
 
+def _back_substitute(r: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Solve r x = b for upper-triangular r (small p; plain loops beat library call overhead)."""
+    p = r.shape[0]
+    x = np.array(b, dtype=float, copy=True)
+    for i in range(p - 1, -1, -1):
+        if i + 1 < p:
+            x[i] -= r[i, i + 1 :] @ x[i + 1 :]
+        x[i] /= r[i, i]
+    return x
+
+
+def design_rss(stats: GroupStats, design: Design) -> float:
+    """Residual sum of squares only (no inference): for profiles that call it many times."""
+    xm = _mean_rows(stats, design)
+    sw = np.sqrt(stats.wsum)
+    a = xm * sw[:, None]
+    t = stats.mean * sw
+    within = _within_rows(stats, design)
+    if within is not None:
+        a = np.vstack([a, within[:, :-1]])
+        t = np.concatenate([t, within[:, -1]])
+    norms = np.sqrt((a * a).sum(axis=0))
+    norms[norms == 0] = 1.0
+    beta, *_ = np.linalg.lstsq(a / norms, t, rcond=None)
+    r = t - (a / norms) @ beta
+    rss = float(r @ r)
+    return max(rss if within is not None else rss + stats.ss_pure, 0.0)
+
+
 def solve_stacked(a: np.ndarray, t: np.ndarray) -> _Solution:
     """Least squares min ||t − a β|| by column-scaled, column-pivoted QR with one refinement."""
-    from scipy.linalg import qr, solve_triangular
+    from scipy.linalg import qr
 
     m, p = a.shape
     norms = np.sqrt((a * a).sum(axis=0))
@@ -131,12 +160,12 @@ def solve_stacked(a: np.ndarray, t: np.ndarray) -> _Solution:
     r1 = r[:rank, :rank]
     q1 = q[:, :rank]
     beta_s = np.zeros(p)
-    sub = solve_triangular(r1, q1.T @ t)
+    sub = _back_substitute(r1, q1.T @ t)
     resid = t - a_s[:, piv[:rank]] @ sub
-    sub = sub + solve_triangular(r1, q1.T @ resid)  # iterative refinement
+    sub = sub + _back_substitute(r1, q1.T @ resid)  # iterative refinement
     beta_s[piv[:rank]] = sub
     resid = t - a_s @ beta_s
-    rinv = solve_triangular(r1, np.eye(rank))
+    rinv = _back_substitute(r1, np.eye(rank))
     cov_s = np.zeros((p, p))
     cov_s[np.ix_(piv[:rank], piv[:rank])] = rinv @ rinv.T
     beta = beta_s / norms

@@ -168,8 +168,12 @@ def spread_test(z: np.ndarray, codes: np.ndarray, c: int) -> SideTest:
     ssb = float((nk * (means - grand) ** 2).sum())
     dev = d - np.bincount(cc, weights=d, minlength=c)[cc] / counts[cc]
     ssw = float((dev * dev).sum())
-    if ssw <= 0:
-        return SideTest(name, False, reason="all replicates lie exactly at their level median")
+    scale = float((d * d).sum())
+    if ssw <= 1e-12 * scale or scale == 0:
+        # e.g. two rows per level: both deviations from the median are equal, so the within
+        # sum of squares is 0 up to rounding and F would be a ratio of rounding noise
+        return SideTest(name, False, reason="the absolute deviations do not vary within levels (e.g. two "
+                        "replicates per level): the spread test needs three or more replicates somewhere")
     f = (ssb / (k - 1)) / (ssw / (total - k))
     return SideTest(name, True, f, (k - 1, total - k), f_sf(f, k - 1, total - k))
 
@@ -387,7 +391,7 @@ def check(study: Study, *, alpha: float = 0.05) -> CheckResult:
     replicated = int((counts > 1).sum())
     mandel = _mandel(fit1, fit2, n, c)
     spread = spread_test(study.y, study.x_codes, c)
-    exact_replicates = bool((np.bincount(study.group_codes()[0] if not study.approximate_groups else study.x_codes) > 1).any()) and not study.approximate_groups
+    exact_replicates = int(np.unique(study.x).size) < n
     if not exact_replicates and n >= 6:
         free = _replicate_free(study)
     else:

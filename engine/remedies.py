@@ -17,8 +17,8 @@ import numpy as np
 
 from .cautions import POST_SEARCH_CAUTION
 from .errors import BendwiseError, UsageError
-from .groups import compute_group_stats
-from .linalg import Column, Design, fit_design
+from .groups import GroupStats, compute_group_stats
+from .linalg import Column, Design, design_rss, fit_design
 from .linearity import nested_f
 from .results import LackOfFit
 from .scoring import NodeScore, _frame, build_design, score_spec
@@ -82,6 +82,70 @@ class BoxCoxProfile:
                 "estimated": self.estimated}
 
 
+EXACT_PROFILE_LIMIT = 50_000
+"""Up to this many rows the Box–Cox profile is maximised exactly (one pass per λ); above it a
+0.1-step grid computed in one batched pass is interpolated (cubic spline)."""
+GRID_STEP = 0.1
+
+
+def _bc(logy: np.ndarray, lam: float) -> np.ndarray:
+    return logy if lam == 0 else np.expm1(lam * logy) / lam
+
+
+def grid_group_stats(
+    logy: np.ndarray,
+    codes: np.ndarray,
+    c: int,
+    lams: np.ndarray,
+    weights: np.ndarray | None = None,
+    bases: np.ndarray | None = None,
+    chunk: int = 65536,
+) -> list[GroupStats]:
+    """Group statistics of (y^λ − 1)/λ for every λ in ``lams`` from one batched pass.
+
+    Per group: Σw z, Σw z² (one-pass, after a per-λ shift to the median's value so the
+    subtraction stays accurate) and Σw z·b̃ with the bases centred within groups.
+    """
+    from scipy.sparse import csr_matrix
+
+    n = logy.shape[0]
+    L = lams.shape[0]
+    base = compute_group_stats(codes, c, logy, weights, bases)  # counts, weights, base parts
+    med = np.array([float(np.median(logy))])
+    shift = np.array([float(_bc(med, float(v))[0]) for v in lams])
+    s1 = np.zeros((c, L))
+    s2 = np.zeros((c, L))
+    q = 0 if bases is None else bases.shape[1]
+    sb = np.zeros((c, q, L))
+    if q:
+        bc = bases - base.base_mean[codes]
+    safe = np.where(lams == 0, 1.0, lams)
+    for a in range(0, n, chunk):
+        b = min(n, a + chunk)
+        lc = logy[a:b, None]
+        z = np.where(lams == 0, lc, np.expm1(lc * lams) / safe) - shift
+        data = np.ones(b - a) if weights is None else weights[a:b]
+        g = csr_matrix((data, (codes[a:b], np.arange(b - a))), shape=(c, b - a))
+        s1 += g @ z
+        s2 += g @ (z * z)
+        for k in range(q):
+            sb[:, k, :] += g @ (z * bc[a:b, k, None])
+    mean = s1 / base.wsum[:, None]
+    ss = np.maximum(s2 - base.wsum[:, None] * mean**2, 0.0)
+    out = []
+    for j in range(L):
+        cross = None
+        if q:
+            cross = np.empty((c, q + 1, q + 1))
+            cross[:, :q, :q] = base.cross[:, :q, :q]  # type: ignore[index]
+            cross[:, :q, q] = sb[:, :, j]
+            cross[:, q, :q] = sb[:, :, j]
+            cross[:, q, q] = ss[:, j]
+        out.append(GroupStats(n, base.count, base.wsum, mean[:, j] + shift[j], ss[:, j], base.sum_log_w,
+                              base.base_mean, cross))
+    return out
+
+
 def profile_boxcox(
     y: np.ndarray,
     codes: np.ndarray,
@@ -92,11 +156,14 @@ def profile_boxcox(
     bases: np.ndarray | None = None,
     lo: float = -3.0,
     hi: float = 3.0,
+    grid_cache: dict | None = None,
 ) -> BoxCoxProfile:
     """λ̂ and its 95% interval for (y^λ − 1)/λ regressed on ``design`` (groups ``codes``).
 
-    ℓ(λ) = −(n/2) log(RSS_λ/n) + (λ − 1) Σ log y; interval ℓ(λ̂) − ℓ(λ) ≤ ½χ²₁(0.95).
-    Each λ costs one pass over the rows (group totals), then a small fit.
+    ℓ(λ) = −(n/2) log(RSS_λ/n) + (λ − 1) Σ log y; interval ℓ(λ̂) − ℓ(λ) ≤ ½χ²₁(0.95)
+    (Box & Cox 1964). Small tables: exact maximisation, one pass per λ. Large tables: one
+    batched pass for a 0.1-step grid (shared by every node through ``grid_cache``), then a
+    cubic spline through the profile.
     """
     from scipy.optimize import brentq, minimize_scalar
 
@@ -105,37 +172,60 @@ def profile_boxcox(
     n = y.shape[0]
     logy = np.log(y)
     slog = float(logy.sum())
+    grid_l = np.round(np.arange(lo, hi + 1e-9, GRID_STEP), 6)
 
-    def ll(lam: float) -> float:
-        z = logy if lam == 0 else np.expm1(lam * logy) / lam
-        st = compute_group_stats(codes, c, z, weights, bases)
-        rss = fit_design(st, design).sse
+    def from_rss(rss: float, lam: float) -> float:
         return -0.5 * n * math.log(rss / n) + (lam - 1.0) * slog if rss > 0 else math.inf
 
-    grid_l = np.round(np.arange(lo, hi + 1e-9, 0.25), 6)
-    vals = np.array([ll(float(v)) for v in grid_l])
-    i = int(np.argmax(vals))
-    a, b = grid_l[max(i - 1, 0)], grid_l[min(i + 1, len(grid_l) - 1)]
-    res = minimize_scalar(lambda v: -ll(v), bounds=(a, b), method="bounded", options={"xatol": 1e-7})
-    lam_hat = float(res.x)
-    top = ll(lam_hat)
-    if vals[i] > top:
-        lam_hat, top = float(grid_l[i]), float(vals[i])
+    if n > EXACT_PROFILE_LIMIT:
+        from scipy.interpolate import CubicSpline
 
-    def gap(v: float) -> float:
-        return top - ll(v) - HALF_CHI2_95
+        stats_list = None if grid_cache is None else grid_cache.get("bc")
+        if stats_list is None:
+            stats_list = grid_group_stats(logy, codes, c, grid_l, weights, bases)
+            if grid_cache is not None:
+                grid_cache["bc"] = stats_list
+        vals = np.array([from_rss(design_rss(st, design), float(v)) for st, v in zip(stats_list, grid_l, strict=True)])
+        spline = CubicSpline(grid_l, vals)
+        fine = np.arange(lo, hi + 1e-9, 0.0005)
+        fv = spline(fine)
+        i = int(np.argmax(fv))
+        lam_hat, top = float(fine[i]), float(fv[i])
+        below = fv < top - HALF_CHI2_95
+        left = np.flatnonzero(below[:i])
+        right = np.flatnonzero(below[i:])
+        low = float(brentq(lambda v: spline(v) - top + HALF_CHI2_95, fine[left[-1]], fine[left[-1] + 1])) if left.size else None
+        high = float(brentq(lambda v: spline(v) - top + HALF_CHI2_95, fine[i + right[0] - 1], fine[i + right[0]])) if right.size else None
+    else:
+        def ll(lam: float) -> float:
+            st = compute_group_stats(codes, c, _bc(logy, lam), weights, bases)
+            return from_rss(design_rss(st, design), lam)
 
-    low = high = None
-    edge = lam_hat - 0.05
-    while edge > lo - 3 and gap(edge) < 0:
-        edge -= 0.5
-    if gap(edge) > 0:
-        low = float(brentq(gap, edge, lam_hat, xtol=1e-9))
-    edge = lam_hat + 0.05
-    while edge < hi + 3 and gap(edge) < 0:
-        edge += 0.5
-    if gap(edge) > 0:
-        high = float(brentq(gap, lam_hat, edge, xtol=1e-9))
+        coarse = grid_l[::2]
+        vals = np.array([ll(float(v)) for v in coarse])
+        i = int(np.argmax(vals))
+        a, b = coarse[max(i - 1, 0)], coarse[min(i + 1, len(coarse) - 1)]
+        res = minimize_scalar(lambda v: -ll(v), bounds=(a, b), method="bounded", options={"xatol": 1e-8})
+        lam_hat = float(res.x)
+        top = ll(lam_hat)
+        if vals[i] > top:
+            lam_hat, top = float(coarse[i]), float(vals[i])
+
+        def gap(v: float) -> float:
+            return top - ll(v) - HALF_CHI2_95
+
+        low = high = None
+        edge = lam_hat - 0.05
+        while edge > lo - 3 and gap(edge) < 0:
+            edge -= 0.5
+        if gap(edge) > 0:
+            low = float(brentq(gap, edge, lam_hat, xtol=1e-10))
+        edge = lam_hat + 0.05
+        while edge < hi + 3 and gap(edge) < 0:
+            edge += 0.5
+        if gap(edge) > 0:
+            high = float(brentq(gap, lam_hat, edge, xtol=1e-10))
+        grid_l, vals = coarse, vals
     inside = [v for v in CONVENTIONAL_LAMBDAS if (low is None or v >= low) and (high is None or v <= high)]
     if inside:
         chosen = min(inside, key=lambda v: abs(v - lam_hat))
@@ -221,7 +311,7 @@ def box_tidwell(study: Study, spec: ModelSpec, max_iter: int = 50) -> PowerSearc
     n = study.n
 
     def sse(a: float) -> float:
-        return fit_design(stats, design_for(a, False)).sse
+        return design_rss(stats, design_for(a, False))
 
     s_hat = sse(alpha)
 
@@ -402,7 +492,11 @@ class RemedyTree:
                     fr = _frame(st, sp)
                     design, _ = build_design(st, sp, fr)
                     codes, c = st.group_codes(fr.by)
-                    prof = profile_boxcox(st.y, codes, c, design, weights=st.weights, bases=fr.bases)
+                    cache = st.cache_get(("bcgrid", fr.by, fr.bases_key, st.weights_name))
+                    if cache is None:
+                        cache = st.cache_put(("bcgrid", fr.by, fr.bases_key, st.weights_name), {})
+                    prof = profile_boxcox(st.y, codes, c, design, weights=st.weights, bases=fr.bases,
+                                          grid_cache=cache)
                 except BendwiseError as exc:
                     pruned.append(("Box–Cox y", str(exc)))
                 else:

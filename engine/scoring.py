@@ -175,15 +175,19 @@ def _frame(study: Study, spec: ModelSpec) -> _Frame:
     by = _cat_names(study)
     nums = _num_names(study)
     centre, scale = t_range(study, spec.predictor)
-    cols = [study.covariate(nm).values for nm in nums]
     bkey: tuple = ("nums", nums)
     if study.approximate_groups:
-        u = (np.asarray(spec.predictor.forward(study.x), dtype=float) - centre) / scale
-        cols += [u**k for k in range(1, spec.degree + 1)]
         bkey = ("nums", nums, spec.predictor.key(), spec.degree)
-    bases = np.column_stack(cols) if cols else None
+    bases = study.cache_get(("bases", bkey))
+    if bases is None:
+        cols = [study.covariate(nm).values for nm in nums]
+        if study.approximate_groups:
+            u = (np.asarray(spec.predictor.forward(study.x), dtype=float) - centre) / scale
+            cols += [u**k for k in range(1, spec.degree + 1)]
+        bases = study.cache_put(("bases", bkey), np.column_stack(cols) if cols else False)
+    bases = bases if bases is not False else None
     approx = study.approximate_groups or spec.weights is not None
-    return _Frame(z, jac, w, wkey, by, nums, bases, bkey if cols else None, centre, scale, approx)
+    return _Frame(z, jac, w, wkey, by, nums, bases, bkey if bases is not None else None, centre, scale, approx)
 
 
 def _stats(study: Study, spec: ModelSpec, fr: _Frame, extremes: bool = False):
@@ -335,10 +339,12 @@ def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = 
         if study.approximate_groups:
             lof_pure = LackOfFit(False, "settings were grouped by a tolerance: there are no exact replicates", "pure error")
         else:
-            sp = study.group_stats(fr.z, ("z", spec.response.key()), by=tuple(spec.covariates), weights=fr.w,
-                                   weights_key=fr.wkey)
-            lof_pure = lack_of_fit(sp, fit, approximate=fr.approximate)
-            if not lof_pure.testable and sp.c == sp.n:
+            _, c_fine = study.group_codes(tuple(spec.covariates))
+            if c_fine < study.n:
+                sp = study.group_stats(fr.z, ("z", spec.response.key()), by=tuple(spec.covariates), weights=fr.w,
+                                       weights_key=fr.wkey)
+                lof_pure = lack_of_fit(sp, fit, approximate=fr.approximate)
+            if c_fine == study.n:
                 lof_pure = LackOfFit(False, "no combination of the predictor variables is repeated "
                                      f"({', '.join((study.x_name, *spec.covariates))}); the shape-in-x test stands in",
                                      "pure error")

@@ -11,7 +11,7 @@ import numpy as np
 
 from .data import CleaningReport, DropCount, first_rows, numeric_column, resolve_column
 from .errors import DataError, UsageError
-from .groups import GroupStats, compute_group_stats
+from .groups import GroupStats, compute_base_parts, compute_group_stats
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -145,6 +145,9 @@ class Study:
             return hit
         if not by:
             out = (self.x_codes, self.c)
+        elif any(self.distinct(name) == self.n for name in by):
+            # a covariate with a new value on every row: each row is its own group
+            out = (np.arange(self.n, dtype=np.intp), self.n)
         else:
             import pandas as pd
 
@@ -186,7 +189,27 @@ class Study:
         if hit is None:
             codes, c = self.group_codes(by)
             order = self.group_order(by) if extremes else None
-            hit = compute_group_stats(codes, c, z, weights, bases, extremes, order)
+            parts = None
+            if bases is not None and bases.shape[1]:
+                pkey = ("baseparts", by, weights_key, bases_key)
+                parts = self._cache.get(pkey)
+                if parts is None:
+                    wsum = np.bincount(codes, weights=weights, minlength=c) if weights is not None else \
+                        np.bincount(codes, minlength=c).astype(float)
+                    parts = self._cache[pkey] = compute_base_parts(codes, c, wsum, weights, bases)
+            hit = compute_group_stats(codes, c, z, weights, bases, extremes, order, parts)
+            self._cache[key] = hit
+        return hit
+
+    def distinct(self, name: str) -> int:
+        """Number of distinct values of an admitted covariate (cached)."""
+        key = ("distinct", name)
+        hit = self._cache.get(key)
+        if hit is None:
+            import pandas as pd
+
+            cov = self.covariate(name)
+            hit = len(cov.levels) if cov.kind == "categorical" else int(pd.unique(cov.values).size)
             self._cache[key] = hit
         return hit
 

@@ -1,0 +1,402 @@
+"""Hand a model on: a versioned JSON spec, a reproduction script and a Markdown report.
+
+``export_node`` is the one entry point (the command line and the app both call it). It writes
+``spec.json``, ``reproduce.py`` and ``report.md`` into a temporary folder next to the target and
+renames it into place, so a reader never sees half an export; an existing folder is replaced
+only with ``force`` and only when it holds nothing but an earlier export.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import math
+import os
+import shutil
+import tempfile
+import uuid
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .cautions import CAUTION, POST_SEARCH_CAUTION
+from .errors import DataError, UsageError
+from .remedies import RemedyTree
+from .specfile import SCHEMA_VERSION, validate_spec
+
+__all__ = [
+    "EXPORT_FILES",
+    "MAX_RESIDUALS",
+    "build_spec",
+    "describe_reading",
+    "export_node",
+    "file_digest",
+    "write_rows_csv",
+    "write_text_atomic",
+]
+
+EXPORT_FILES = ("spec.json", "reproduce.py", "report.md")
+MAX_RESIDUALS = 100_000
+"""Largest smearing sample stored in a spec (evenly spaced rows beyond that)."""
+
+
+# ----- provenance -----------------------------------------------------------------------
+
+def file_digest(path: str | Path) -> tuple[str, int]:
+    """SHA-256 (hex) and size in bytes of a file, read in chunks."""
+    h = hashlib.sha256()
+    size = 0
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+            size += len(chunk)
+    return h.hexdigest(), size
+
+
+def describe_reading(path: str | Path | None, *, delimiter: str | None = None, decimal: str | None = None,
+                     sheet: str | None = None) -> dict[str, Any]:
+    """How the table was read (format, delimiter, decimal mark, sheet), as ``load_table`` reads it."""
+    from .data import _EXCEL_SUFFIXES, _JSONL_SUFFIXES, _PARQUET_SUFFIXES, _sniff_delimiter
+
+    dec = decimal or "."
+    if delimiter in {"\\t", "tab", "TAB"}:
+        delimiter = "\t"
+    out: dict[str, Any] = {"format": "text", "delimiter": delimiter, "decimal": dec, "sheet": None}
+    if path is None:
+        return out
+    suffix = Path(path).suffix.lower()
+    if suffix in _PARQUET_SUFFIXES:
+        return {"format": "parquet", "delimiter": None, "decimal": dec, "sheet": None}
+    if suffix in _EXCEL_SUFFIXES:
+        return {"format": "excel", "delimiter": None, "decimal": dec, "sheet": sheet}
+    if suffix in _JSONL_SUFFIXES:
+        return {"format": "jsonl", "delimiter": None, "decimal": dec, "sheet": None}
+    if delimiter is None:
+        with open(path, "rb") as fh:
+            head = fh.read(65536)
+        try:
+            sample = head.decode("utf-8-sig")
+        except UnicodeDecodeError:
+            sample = head.decode("latin-1")
+        out["delimiter"] = _sniff_delimiter(sample, dec)
+    return out
+
+
+def _clean(obj: Any) -> Any:
+    """JSON-safe values: numpy scalars to Python, non-finite floats to None."""
+    if isinstance(obj, dict):
+        return {str(k): _clean(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_clean(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [_clean(v) for v in obj.tolist()]
+    if isinstance(obj, np.generic):
+        obj = obj.item()
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    return obj
+
+
+def _level_table(study, z: np.ndarray) -> list[dict[str, Any]]:
+    codes, c = study.x_codes, study.c
+    cnt = np.bincount(codes, minlength=c).astype(float)
+    my = np.bincount(codes, weights=study.y, minlength=c) / cnt
+    mz = np.bincount(codes, weights=z, minlength=c) / cnt
+    dev = study.y - my[codes]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sd = np.sqrt(np.bincount(codes, weights=dev * dev, minlength=c) / (cnt - 1))
+    return [
+        {"x": float(study.x_level_values[g]), "label": study.x_level_labels[g], "n": int(cnt[g]),
+         "mean_y": float(my[g]), "sd_y": float(sd[g]) if cnt[g] > 1 else None, "mean_z": float(mz[g])}
+        for g in range(c)
+    ]
+
+
+def _weights_block(study, spec) -> dict[str, Any]:
+    rule = spec.weights
+    out: dict[str, Any] = {"rule": "none", "theta": None, "normaliser": None,
+                           "user_column": study.weights_name, "approximate": False}
+    if rule is None:
+        return out
+    z = np.asarray(spec.response.forward(study.y), dtype=float)
+    cnt = np.bincount(study.x_codes, minlength=study.c).astype(float)
+    m = np.abs(np.bincount(study.x_codes, weights=z, minlength=study.c) / cnt)
+    g = float(np.exp(np.mean(np.log(m ** (-2.0 * rule.theta)))))
+    out.update(rule=rule.kind, theta=rule.theta, normaliser=g, approximate=True,
+               description="w = |level mean of the transformed response|^(−2θ) / normaliser; "
+                           "at a new point the fitted value stands in for the level mean")
+    return out
+
+
+def _covariates_block(study, spec) -> list[dict[str, Any]]:
+    out = []
+    for name in spec.covariates:
+        cov = study.covariate(name)
+        if cov.kind == "categorical":
+            out.append({"name": name, "kind": "categorical", "coding": "treatment", "levels": list(cov.levels),
+                        "reference": cov.levels[0], "mean": None})
+        else:
+            out.append({"name": name, "kind": "numeric", "coding": "value", "levels": [], "reference": None,
+                        "mean": float(np.mean(cov.values))})
+    return out
+
+
+def build_spec(tree: RemedyTree, node_id: str, *, data_path: str | Path | None = None,
+               reading: dict[str, Any] | None = None, rule: str = "aicc",
+               max_residuals: int = MAX_RESIDUALS, now: datetime | None = None) -> dict[str, Any]:
+    """The spec document of one scored node (plain JSON values, schema version 1.x)."""
+    from . import __version__
+    from .linearity import check
+    from .scoring import residuals_by_level
+
+    study = tree.study
+    node = _node(tree, node_id)
+    score = node.score
+    assert score is not None
+    spec = node.spec
+    y, x = study.y_name, study.x_name
+    kinds = {c.name: c.kind for c in study.covariates}
+    sha = size = None
+    if data_path is not None:
+        sha, size = file_digest(data_path)
+    if max_residuals < 2:
+        raise UsageError(f"max_residuals {max_residuals} must be at least 2")
+    lr = residuals_by_level(study, score, max_rows=max_residuals)
+    sampled = study.n > max_residuals
+    z = np.asarray(spec.response.forward(study.y), dtype=float)
+    line = check(study, alpha=tree.alpha)
+    sug = tree.suggest(rule)
+    fit = score.fit
+    doc: dict[str, Any] = {
+        "schema_version": SCHEMA_VERSION,
+        "document": "bendwise model spec",
+        "tool": {"name": "bendwise", "version": __version__},
+        "created_utc": (now or datetime.now(UTC)).astimezone(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "provenance": {
+            "data": {
+                "file": study.source if data_path is None else Path(data_path).name,
+                "sha256": sha,
+                "size_bytes": size,
+                "reading": reading or describe_reading(data_path),
+            },
+            "columns": {"response": y, "predictor": x, "covariates": [c.name for c in study.covariates],
+                        "weights": study.weights_name},
+            "rows": {"read": study.report.n_read, "used": study.report.n_used, "dropped": study.report.n_dropped,
+                     "drops": study.report.as_json()["drops"]},
+            "grouping": {
+                "rule": "exact" if study.tolerance is None else "tolerance",
+                "tolerance_text": study.tolerance_text,
+                "tolerance": study.tolerance,
+                "merged": study.approximate_groups,
+                "levels": study.c,
+            },
+        },
+        "node": {"id": node.id, "label": spec.label(y, x), "move": node.move, "depth": node.depth,
+                 "path": [n.id for n in tree.path(node.id)]},
+        "model": {
+            "response": {"column": y, "transform": spec.response.as_json(), "estimated": spec.response_estimated},
+            "predictor": {"column": x, "transform": spec.predictor.as_json(), "estimated": spec.predictor_estimated,
+                          "working_centre": score.centre, "working_scale": score.scale},
+            "degree": spec.degree,
+            "covariates": _covariates_block(study, spec),
+            "interactions": list(spec.interactions),
+            "terms": [t.as_json() for t in score.terms],
+            "weights": _weights_block(study, spec),
+            "formula_text": spec.formula(y, x, kinds),
+            "formula_note": "for reading only: bendwise rebuilds the model from the terms and never evaluates this text",
+        },
+        "fit": {
+            "scale": "fitted" if spec.response.kind != "identity" else "original",
+            "coefficients": [{"name": c.name, "estimate": c.estimate, "se": c.se, "t": c.t, "p": c.p}
+                             for c in fit.coefficients],
+            "covariance": [list(r) for r in fit.cov],
+            "sigma": fit.sigma,
+            "df_resid": fit.df_resid,
+            "n": fit.n,
+            "rank": fit.rank,
+            "sse": fit.sse,
+            "r2": fit.r2,
+            "r2_adj": fit.r2_adj,
+        },
+        "calibration": {
+            "x_min": float(study.x.min()), "x_max": float(study.x.max()),
+            "y_min": float(study.y.min()), "y_max": float(study.y.max()),
+            "levels": _level_table(study, z),
+        },
+        "training": {
+            "residuals": lr.residual,
+            "kind": "√w·(z − ẑ) per row on the fitted scale (the smearing sample)",
+            "count": int(lr.residual.shape[0]),
+            "rows": study.n,
+            "sampled": sampled,
+            "note": (f"the table has {study.n:,} rows; {lr.residual.shape[0]:,} evenly spaced residuals are kept"
+                     if sampled else None),
+        },
+        "tests": {
+            "alpha": tree.alpha,
+            "lack_of_fit": score.lack_of_fit.as_json(),
+            "lack_of_fit_pure": score.lack_of_fit_pure.as_json(),
+            "node_spread": score.spread.as_json(),
+            "straight_line": {"lack_of_fit": line.lack_of_fit.as_json(), "mandel": line.mandel.as_json(),
+                              "spread": line.spread.as_json(), "verdict": line.verdict},
+            "path": [
+                {"node": n.id, "move": n.move, "label": n.spec.label(y, x),
+                 "nested": n.nested.as_json() if n.nested is not None else None}
+                for n in tree.path(node.id)[1:]
+            ],
+            "warnings": list(score.warnings),
+        },
+        "criteria": {**score.criteria.as_json(), "press": score.press, "press_note": score.press_note,
+                     "max_studentized_residual": score.max_studentized},
+        "suggestion": {"rule": sug.rule, "alpha": tree.alpha, "node": sug.node, "reason": sug.reason,
+                       "exported_is_suggested": sug.node == node.id},
+        "cautions": {"use": CAUTION, "post_search": POST_SEARCH_CAUTION},
+    }
+    return _clean(doc)
+
+
+def _node(tree: RemedyTree, node_id: str):
+    node = tree.nodes.get(node_id)
+    if node is None:
+        ids = ", ".join(list(tree.nodes)[:15]) + (", …" if len(tree.nodes) > 15 else "")
+        raise UsageError(f"node {node_id!r} is not in the tree (nodes: {ids}); list them with bendwise grow")
+    if node.score is None:
+        raise UsageError(f"node {node_id!r} could not be scored ({node.error}); choose another node")
+    fit = node.score.fit
+    if fit.aliased:
+        raise UsageError(f"node {node_id!r} has collinear terms ({', '.join(fit.aliased)}) and cannot be handed on; "
+                         "choose another node")
+    if fit.df_resid < 1 or not math.isfinite(fit.sigma) or fit.sigma <= 0:
+        raise UsageError(f"node {node_id!r} leaves no residual variation (σ̂ undefined); it cannot give intervals — "
+                         "choose a smaller model")
+    return node
+
+
+# ----- writing --------------------------------------------------------------------------
+
+def _refuse_existing(path: Path, force: bool, what: str) -> None:
+    if path.exists() and not force:
+        raise UsageError(f"{path} already exists; choose another {what} or add --force to replace it")
+
+
+def write_text_atomic(path: str | Path, text: str, *, force: bool = False) -> Path:
+    """Write ``text`` to ``path`` through a temporary file in the same folder and ``os.replace``."""
+    p = Path(path)
+    _refuse_existing(p, force, "file name")
+    if p.exists() and p.is_dir():
+        raise UsageError(f"{p} is a folder; give a file name")
+    if not p.parent.is_dir():
+        raise DataError(f"folder {p.parent} does not exist; create it first")
+    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=p.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+            fh.write(text)
+        os.replace(tmp, p)
+    except OSError as exc:
+        Path(tmp).unlink(missing_ok=True)
+        raise DataError(f"cannot write {p}: {exc.strerror or exc}; check the folder's permissions") from None
+    return p
+
+
+def write_rows_csv(rows: list[dict[str, Any]], path: str | Path, *, force: bool = False) -> Path:
+    """Rows (dicts with the same keys) as CSV, written atomically; None becomes an empty cell."""
+    buf = io.StringIO()
+    keys: list[str] = []
+    for r in rows:
+        keys += [k for k in r if k not in keys]
+    writer = csv.DictWriter(buf, fieldnames=keys, lineterminator="\n")
+    writer.writeheader()
+    for r in rows:
+        writer.writerow({k: ("" if r.get(k) is None else _cell(r.get(k))) for k in keys})
+    return write_text_atomic(path, buf.getvalue(), force=force)
+
+
+def _cell(v: Any) -> Any:
+    if isinstance(v, float):
+        return repr(v)
+    if isinstance(v, (list, tuple)):
+        return " ".join("open" if a is None else repr(a) for a in _flatten(v))
+    return v
+
+
+def _flatten(v) -> list:
+    out: list = []
+    for a in v:
+        out += _flatten(a) if isinstance(a, (list, tuple)) else [a]
+    return out
+
+
+def _write_folder(out_dir: Path, files: dict[str, str], force: bool) -> list[Path]:
+    if out_dir.exists():
+        if not force:
+            raise UsageError(f"{out_dir} already exists; choose another folder or add --force to replace it")
+        if not out_dir.is_dir():
+            raise UsageError(f"{out_dir} exists and is not a folder; choose a folder name")
+        extra = sorted(p.name for p in out_dir.iterdir() if p.name not in EXPORT_FILES)
+        if extra:
+            raise UsageError(f"{out_dir} holds files bendwise did not write ({', '.join(extra[:3])}); --force only "
+                             "replaces an earlier export: choose another folder")
+    parent = out_dir.parent
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+        tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".tmp", dir=parent))
+    except OSError as exc:
+        raise DataError(f"cannot create a folder in {parent}: {exc.strerror or exc}; check the path") from None
+    try:
+        for name, text in files.items():
+            with open(tmp / name, "w", encoding="utf-8", newline="\n") as fh:
+                fh.write(text)
+        (tmp / "reproduce.py").chmod(0o755)
+        if out_dir.exists():
+            old = parent / f".{out_dir.name}.old-{uuid.uuid4().hex[:8]}"
+            os.rename(out_dir, old)
+            try:
+                os.rename(tmp, out_dir)
+            except OSError:
+                os.rename(old, out_dir)
+                raise
+            shutil.rmtree(old, ignore_errors=True)
+        else:
+            os.rename(tmp, out_dir)
+    except OSError as exc:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise DataError(f"cannot write the export to {out_dir}: {exc.strerror or exc}; check the folder") from None
+    return [out_dir / name for name in files]
+
+
+def export_node(tree: RemedyTree, node_id: str, out_dir: str | Path, *, data_path: str | Path | None = None,
+                reading: dict[str, Any] | None = None, rule: str = "aicc", force: bool = False,
+                max_residuals: int = MAX_RESIDUALS, now: datetime | None = None) -> list[Path]:
+    """Write ``spec.json``, ``reproduce.py`` and ``report.md`` for one node into ``out_dir``.
+
+    ``data_path`` is the table the tree was grown from (its SHA-256 goes into the spec and the
+    script finds it relative to the export); None when it came from standard input.
+    ``reading`` is the ``describe_reading`` of that table (detected when None). Returns the
+    written paths. Refuses an existing ``out_dir`` unless ``force``.
+    """
+    import json
+
+    from .reproduce import script_text
+    from .report import report_markdown
+
+    out = Path(out_dir)
+    if data_path is not None and not Path(data_path).is_file():
+        raise DataError(f"data file not found: {data_path}; give the table the model was grown from")
+    doc = build_spec(tree, node_id, data_path=data_path, reading=reading, rule=rule,
+                     max_residuals=max_residuals, now=now)
+    validate_spec(doc)  # what we write must read back
+    rel = None
+    if data_path is not None:
+        try:
+            rel = os.path.relpath(Path(data_path).resolve(), out.resolve())
+        except ValueError:  # another drive: keep the absolute path
+            rel = str(Path(data_path).resolve())
+    files = {
+        "spec.json": json.dumps(doc, indent=2, ensure_ascii=False, allow_nan=False) + "\n",
+        "reproduce.py": script_text(tree, node_id, doc, rel),
+        "report.md": report_markdown(tree, node_id, doc),
+    }
+    return _write_folder(out, files, force)

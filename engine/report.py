@@ -1,0 +1,259 @@
+"""The Markdown report of an export: what validation guidance asks to see, in plain text.
+
+It lists slope, intercept, r², the residual sum of squares, the residuals by level, the
+lack-of-fit tests, the path of remedies with reasons, DL = 3.3σ/S and QL = 10σ/S for a
+straight line (ICH Q2(R2)), two plain ASCII charts and the cautions.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+
+from .remedies import RemedyTree
+
+__all__ = ["report_markdown", "text_chart"]
+
+CHART_ROWS = 2000
+"""Most data points drawn in a chart (evenly spaced beyond that)."""
+
+
+def text_chart(series: Sequence[tuple[np.ndarray, np.ndarray, str]], *, width: int = 64, height: int = 16,
+               zero_line: bool = False) -> list[str]:
+    """A plain ASCII scatter/line chart; later series draw over earlier ones.
+
+    Each series is (x, y, mark). Axis ends are printed as numbers; ``zero_line`` draws y = 0.
+    """
+    xs = np.concatenate([np.asarray(s[0], dtype=float) for s in series])
+    ys = np.concatenate([np.asarray(s[1], dtype=float) for s in series])
+    ok = np.isfinite(xs) & np.isfinite(ys)
+    if not ok.any():
+        return ["(nothing to draw)"]
+    x0, x1 = float(xs[ok].min()), float(xs[ok].max())
+    y0, y1 = float(ys[ok].min()), float(ys[ok].max())
+    if zero_line:
+        y0, y1 = min(y0, 0.0), max(y1, 0.0)
+    if x1 == x0:
+        x0, x1 = x0 - 1, x1 + 1
+    if y1 == y0:
+        y0, y1 = y0 - 1, y1 + 1
+    grid = [[" "] * width for _ in range(height)]
+
+    def col(v: float) -> int:
+        return min(width - 1, max(0, int(round((v - x0) / (x1 - x0) * (width - 1)))))
+
+    def row(v: float) -> int:
+        return min(height - 1, max(0, int(round((y1 - v) / (y1 - y0) * (height - 1)))))
+
+    if zero_line:
+        r0 = row(0.0)
+        grid[r0] = ["-"] * width
+    for x, y, mark in series:
+        x = np.asarray(x, dtype=float)
+        y = np.asarray(y, dtype=float)
+        for a, b in zip(x, y, strict=True):
+            if math.isfinite(a) and math.isfinite(b):
+                grid[row(b)][col(a)] = mark
+    top, bottom = _n(y1), _n(y0)
+    pad = max(len(top), len(bottom))
+    lines = []
+    for i, cells in enumerate(grid):
+        label = top if i == 0 else bottom if i == height - 1 else ""
+        lines.append(f"{label.rjust(pad)} |{''.join(cells)}")
+    lines.append(" " * pad + " +" + "-" * width)
+    left, right = _n(x0), _n(x1)
+    lines.append(" " * (pad + 2) + left + right.rjust(width - len(left)))
+    return lines
+
+
+def _n(v: float | None, digits: int = 5) -> str:
+    if v is None or not math.isfinite(v):
+        return "—"
+    if v == 0:
+        return "0"
+    if abs(v) >= 1e6 or abs(v) < 1e-4:
+        return f"{v:.{digits - 1}e}"
+    return f"{v:.{digits}g}"
+
+
+def _p(p: float | None) -> str:
+    if p is None or not math.isfinite(p):
+        return "—"
+    return "<1e-12" if p < 1e-12 else f"{p:.4g}"
+
+
+def _test_line(t: dict[str, Any], alpha: float | None = None) -> str:
+    if not t.get("testable"):
+        return f"not testable — {t.get('reason')}"
+    if "f" in t:
+        out = f"F = {_n(t['f'])} on {t['df_lack']} and {t['df_pure']} df, p = {_p(t['p'])}"
+        if alpha is not None:
+            out += f" — {'passes' if t['p'] >= alpha else 'fails'} at α = {alpha:g}"
+        if t.get("approximate"):
+            out += " (approximate)"
+        return out
+    df = f" on ({', '.join(_n(d, 4) for d in t.get('df', []))})" if t.get("df") else ""
+    return f"statistic {_n(t['statistic'])}{df}, p = {_p(t['p'])}" + (f"; {t['note']}" if t.get("note") else "")
+
+
+def _md_table(header: list[str], rows: list[list[str]]) -> list[str]:
+    out = ["| " + " | ".join(header) + " |", "|" + "|".join("---" for _ in header) + "|"]
+    out += ["| " + " | ".join(r) + " |" for r in rows]
+    return out
+
+
+def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
+    """The report of one exported node (``doc`` is its spec document)."""
+    from .scoring import predict_terms, residuals_by_level
+
+    study = tree.study
+    node = tree.nodes[node_id]
+    score = node.score
+    assert score is not None
+    spec = node.spec
+    y, x = study.y_name, study.x_name
+    fit = doc["fit"]
+    prov = doc["provenance"]
+    tests = doc["tests"]
+    alpha = tests["alpha"]
+    out: list[str] = [f"# bendwise model hand-off: {doc['node']['label']}", ""]
+    out += [f"> {doc['cautions']['use']}", ">", f"> {doc['cautions']['post_search']}", ""]
+    out += [f"Node `{node_id}` · written {doc['created_utc']} by bendwise {doc['tool']['version']} · "
+            f"spec schema {doc['schema_version']}", ""]
+
+    # data
+    d = prov["data"]
+    rows = prov["rows"]
+    out += ["## Data", ""]
+    out.append(f"- File: `{d['file']}`" + (f" (SHA-256 `{d['sha256']}`, {d['size_bytes']:,} bytes)" if d["sha256"] else
+                                            " (read from standard input: no checksum)"))
+    out.append(f"- Response `{y}`, predictor `{x}`"
+               + (f", covariates admitted: {', '.join(f'`{c}`' for c in prov['columns']['covariates'])}"
+                  if prov["columns"]["covariates"] else "")
+               + (f", weights column `{prov['columns']['weights']}`" if prov["columns"]["weights"] else ""))
+    out.append(f"- Rows read {rows['read']}, used {rows['used']}, dropped {rows['dropped']}")
+    for line in study.report.lines():
+        out.append(f"  - {line}")
+    g = prov["grouping"]
+    out.append(f"- Levels of `{x}`: {g['levels']}" + (
+        f"; settings within {g['tolerance_text']} grouped together"
+        + (" — tests are approximate" if g["merged"] else " (no values merged)") if g["rule"] == "tolerance" else
+        " (exact values)"))
+    cal = doc["calibration"]
+    out.append(f"- Calibrated range of `{x}`: {_n(cal['x_min'])} to {_n(cal['x_max'])}")
+    out.append("")
+
+    # model and fit
+    m = doc["model"]
+    out += ["## Model", "", f"- {doc['node']['label']}", f"- Formula (for reading): `{m['formula_text']}`"]
+    w = m["weights"]
+    if w["rule"] != "none":
+        out.append(f"- Weights: {spec.weights.describe() if spec.weights else w['rule']}")
+    out.append("")
+    coef_rows = [[f"`{c['name']}`", _n(c["estimate"], 8), _n(c["se"], 4), _p(c["p"])] for c in fit["coefficients"]]
+    out += _md_table(["term", "estimate", "standard error", "p"], coef_rows)
+    scale = "" if spec.response.kind == "identity" else f" (on the scale of {spec.response.short(y)})"
+    out += ["", f"- Residual SD σ̂ = {_n(fit['sigma'], 6)} on {fit['df_resid']} df{scale}; n = {fit['n']}",
+            f"- r² = {fit['r2']:.6f}; adjusted r² = {fit['r2_adj']:.6f}",
+            f"- Residual sum of squares = {_n(fit['sse'], 8)}{' (weighted)' if w['rule'] != 'none' or w['user_column'] else ''}"]
+    is_line = (spec.response.kind == "identity" and spec.predictor.kind == "identity" and spec.degree == 1
+               and not spec.covariates)
+    if is_line:
+        b0 = next(c for c in fit["coefficients"] if c["name"] == "intercept")["estimate"]
+        b1 = fit["coefficients"][1]["estimate"]
+        out.append(f"- Straight line: intercept {_n(b0, 8)}, slope {_n(b1, 8)}")
+    else:
+        out.append("- The model is not a straight line in the original units: the coefficients above replace a "
+                   "single slope and intercept")
+    out.append("")
+
+    # tests
+    out += ["## Lack of fit", ""]
+    out.append(f"- This model, {tests['lack_of_fit'].get('kind', 'lack of fit')}: {_test_line(tests['lack_of_fit'], alpha)}")
+    if tests["lack_of_fit_pure"].get("testable") and tests["lack_of_fit_pure"] != tests["lack_of_fit"]:
+        out.append(f"- This model, classical pure error: {_test_line(tests['lack_of_fit_pure'], alpha)}")
+    out.append(f"- Equal spread of this model's residuals across levels: {_test_line(tests['node_spread'])}")
+    sl = tests["straight_line"]
+    out.append(f"- Straight line {y} ~ {x}: {_test_line(sl['lack_of_fit'], alpha)}")
+    out.append(f"- Straight line, curvature (Mandel): {_test_line(sl['mandel'])}")
+    out.append(f"- Straight line, equal spread of {y} across levels: {_test_line(sl['spread'])}")
+    for wtext in tests["warnings"]:
+        out.append(f"- Note: {wtext}")
+    out.append("")
+
+    # residual table by level
+    lr = residuals_by_level(study, score)
+    fitted_lv = np.asarray(score.level_fitted_y)
+    out += ["## Residuals by level", ""]
+    if spec.covariates:
+        out += ["Fitted values at the reference category and the mean of numeric covariates; residuals are the "
+                "model's own (fitted scale).", ""]
+    elif spec.response.kind != "identity" or w["rule"] != "none":
+        out += [f"Residuals on the fitted scale{' times √w' if w['rule'] != 'none' else ''}; fitted values are "
+                "back-transformed medians.", ""]
+    lv_rows = []
+    for i, lv in enumerate(cal["levels"][:60]):
+        lv_rows.append([_n(lv["x"], 6), str(lv["n"]), _n(lv["mean_y"], 6), _n(float(fitted_lv[i]), 6),
+                        _n(float(lr.level_mean[i]), 4), _n(float(lr.level_sd[i]), 4)])
+    out += _md_table([x, "n", "mean y", "fitted", "mean residual", "residual SD"], lv_rows)
+    if len(cal["levels"]) > 60:
+        out.append(f"\n… {len(cal['levels']) - 60} more levels (see spec.json)")
+    out.append("")
+
+    # path
+    out += ["## How this model was reached", ""]
+    out.append(f"1. `root` — straight line {y} ~ {x}")
+    for i, step in enumerate(tests["path"], start=2):
+        nested = step["nested"]
+        ntext = _test_line(nested) if nested and nested.get("testable") else (
+            nested.get("reason") if nested else "—")
+        out.append(f"{i}. `{step['node']}` — {step['move']} → {step['label']} (against its parent: {ntext})")
+    sug = doc["suggestion"]
+    out += ["", f"Suggestion rule `{sug['rule']}` at α = {sug['alpha']:g}: "
+            + (f"node `{sug['node']}` — {sug['reason']}" if sug["node"] else f"no node — {sug['reason']}"),
+            "", ("This export is the suggested node." if sug["exported_is_suggested"]
+                 else "This export is NOT the suggested node: it was chosen by hand."), ""]
+
+    # limits
+    out += ["## Detection and quantitation limits", ""]
+    if is_line and w["rule"] == "none" and not w["user_column"]:
+        s, b1 = fit["sigma"], fit["coefficients"][1]["estimate"]
+        out += [f"With σ = the residual SD ({_n(s, 5)}) and S = the slope ({_n(b1, 5)}):", "",
+                f"- DL = 3.3σ/S = {_n(3.3 * s / abs(b1), 5)} (units of {x})",
+                f"- QL = 10σ/S = {_n(10 * s / abs(b1), 5)} (units of {x})", "",
+                "σ may instead be the SD of blanks or of intercepts; the laboratory's procedure decides which."]
+    else:
+        out.append("Not given: DL = 3.3σ/S and QL = 10σ/S assume a straight line in the original units with a "
+                   "constant residual SD; this model is not one.")
+    out.append("")
+
+    # charts
+    xs, ys = study.x, study.y
+    idx = np.arange(study.n)
+    if study.n > CHART_ROWS:
+        idx = np.linspace(0, study.n - 1, CHART_ROWS).astype(np.intp)
+    grid_x = np.linspace(float(xs.min()), float(xs.max()), 200)
+    covs_ref: dict[str, np.ndarray] = {}
+    for c in m["covariates"]:
+        covs_ref[c["name"]] = (np.full(grid_x.size, c["reference"], dtype=object) if c["kind"] == "categorical"
+                               else np.full(grid_x.size, c["mean"]))
+    beta = np.array([c["estimate"] for c in fit["coefficients"]])
+    with np.errstate(all="ignore"):
+        zc = predict_terms(score.terms, beta, np.asarray(spec.predictor.forward(grid_x), dtype=float), covs_ref)
+        yc = np.asarray(spec.response.inverse(zc), dtype=float)
+    out += ["## Charts", "", f"Data (o) and fitted curve (*) on the original scale, {y} against {x}"
+            + (" (curve at the reference category / mean covariate)" if covs_ref else "") + ":", "", "```"]
+    out += text_chart([(xs[idx], ys[idx], "o"), (grid_x, yc, "*")])
+    out += ["```", "", "Residuals (o) and their level means (#) against " + x + ", fitted scale:", "", "```"]
+    out += text_chart([(lr.x, lr.residual, "o"), (lr.level_x, lr.level_mean, "#")], zero_line=True)
+    out += ["```", ""]
+
+    out += ["## Cautions", "", f"- {doc['cautions']['post_search']}", f"- {doc['cautions']['use']}"]
+    if spec.response.kind != "identity":
+        out.append("- Predictions back-transformed from the fitted scale: the naive back-transform is a median; "
+                   "bendwise apply also gives the smearing mean (Duan 1983).")
+    out.append("")
+    return "\n".join(out)
