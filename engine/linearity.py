@@ -137,7 +137,8 @@ def lack_of_fit(stats: GroupStats, fit: Fit, *, approximate: bool = False) -> La
 
 def pure_error(study: Study) -> tuple[float, int]:
     """Pooled pure-error sum of squares and its df for the study's x levels (unweighted)."""
-    stats = study.group_stats(study.y, "y")
+    z, _ = study.transformed(_identity())
+    stats = study.group_stats(z, ("z", _identity().key()))
     if stats.df_pure <= 0:
         raise DataError(
             f"no level of {study.x_name!r} is replicated in {study.source}; pure error needs repeated "
@@ -322,19 +323,26 @@ def _line_and_quadratic(study: Study) -> tuple[GroupStats, Fit, Fit | None, Lack
     w = study.weights
     wkey = study.weights_name
     lv = study.x_level_values
+    z, _ = study.transformed(_identity())
+    zkey = ("z", _identity().key())
     if not study.approximate_groups:
-        stats = study.group_stats(study.y, "y", weights=w, weights_key=wkey)
+        stats = study.group_stats(z, zkey, weights=w, weights_key=wkey)
         line = poly_design(lv, 1, name=study.x_name)
         fit1 = fit_design(stats, line)
         fit2 = fit_design(stats, poly_design(lv, 2, name=study.x_name)) if study.c >= 3 else None
         lof = lack_of_fit(stats, fit1, approximate=w is not None and False)
         return stats, fit1, fit2, lof
     # Near replicates: x varies inside a group, so powers of x are within-varying bases.
-    lo, hi = float(study.x.min()), float(study.x.max())
+    lo, hi = study.x_min, study.x_max
     centre, scale = (lo + hi) / 2, (hi - lo) / 2
-    u = (study.x - centre) / scale
-    bases = np.column_stack([u, u * u])
-    stats = study.group_stats(study.y, "y", weights=w, weights_key=wkey, bases=bases, bases_key=("u", centre, scale, 2))
+
+    def build() -> np.ndarray:
+        u = (study.x - centre) / scale
+        return np.column_stack([u, u * u])
+
+    bkey = ("u", centre, scale, 2)
+    bases = study.base_rows(bkey, build)
+    stats = study.group_stats(z, zkey, weights=w, weights_key=wkey, bases=bases, bases_key=bkey)
     line = poly_design(lv, 1, name=study.x_name, centre=centre, scale=scale, base_offset=0)
     fit1 = fit_design(stats, line)
     fit2 = fit_design(stats, poly_design(lv, 2, name=study.x_name, centre=centre, scale=scale, base_offset=0)) if study.c >= 3 else None
@@ -376,11 +384,12 @@ def check(study: Study, *, alpha: float = 0.05) -> CheckResult:
         rows.append(AnovaRow("pure error", lof.df_pure, lof.ss_pure, ms_pure, None, None))  # type: ignore[arg-type]
     rows.append(AnovaRow("total", n - 1, ss_tot, None, None, None))
 
+    centre_x, scale_x = (study.x_min + study.x_max) / 2, (study.x_max - study.x_min) / 2
     counts = stats.count
     sd = np.sqrt(np.where(counts > 1, stats.ss / np.maximum(counts - 1, 1), np.nan))
     fitted = np.asarray(fit1.group_fitted)
     if study.approximate_groups:
-        xbar = stats.base_mean[:, 0] * ((study.x.max() - study.x.min()) / 2) + (study.x.max() + study.x.min()) / 2
+        xbar = stats.base_mean[:, 0] * scale_x + centre_x
     else:
         xbar = study.x_level_values
     level_rows = tuple(
@@ -390,10 +399,13 @@ def check(study: Study, *, alpha: float = 0.05) -> CheckResult:
     )
     replicated = int((counts > 1).sum())
     mandel = _mandel(fit1, fit2, n, c)
-    spread = spread_test(study.y, study.x_codes, c)
-    exact_replicates = int(np.unique(study.x).size) < n
-    if not exact_replicates and n >= 6:
+    z, _ = study.transformed(_identity())
+    spread = study.spread_by_level(z, (_identity().key(), None), None)
+    exact_replicates = study.exact_replicates()
+    if not exact_replicates and n >= 6 and study.has_rows:
         free = _replicate_free(study)
+    elif not exact_replicates and not study.has_rows:
+        free = (SideTest("replicate-free checks", False, reason="need the rows in memory; use --engine memory"),)
     else:
         free = ()
     crit = criteria_from(fit1.loglik, p + 1, n)
@@ -423,6 +435,12 @@ def check(study: Study, *, alpha: float = 0.05) -> CheckResult:
         verdict=verdict,
         lack_found=lack_found,
     )
+
+
+def _identity():
+    from .transforms import IDENTITY
+
+    return IDENTITY
 
 
 def _verdict(lof: LackOfFit, alpha: float, study: Study) -> str:

@@ -157,6 +157,9 @@ def profile_boxcox(
     lo: float = -3.0,
     hi: float = 3.0,
     grid_cache: dict | None = None,
+    grid_provider: Callable[[np.ndarray], list[GroupStats]] | None = None,
+    n: int | None = None,
+    sum_log_y: float | None = None,
 ) -> BoxCoxProfile:
     """λ̂ and its 95% interval for (y^λ − 1)/λ regressed on ``design`` (groups ``codes``).
 
@@ -167,22 +170,31 @@ def profile_boxcox(
     """
     from scipy.optimize import brentq, minimize_scalar
 
-    if (y <= 0).any():
-        raise UsageError("Box–Cox needs y > 0")
-    n = y.shape[0]
-    logy = np.log(y)
-    slog = float(logy.sum())
+    if y is None:
+        if grid_provider is None or n is None or sum_log_y is None:
+            raise ValueError("without rows, give grid_provider, n and sum_log_y")
+        logy = None
+        slog = float(sum_log_y)
+    else:
+        if (y <= 0).any():
+            raise UsageError("Box–Cox needs y > 0")
+        n = y.shape[0]
+        logy = np.log(y)
+        slog = float(logy.sum())
     grid_l = np.round(np.arange(lo, hi + 1e-9, GRID_STEP), 6)
 
     def from_rss(rss: float, lam: float) -> float:
         return -0.5 * n * math.log(rss / n) + (lam - 1.0) * slog if rss > 0 else math.inf
 
-    if n > EXACT_PROFILE_LIMIT:
+    if n > EXACT_PROFILE_LIMIT or logy is None:
         from scipy.interpolate import CubicSpline
 
         stats_list = None if grid_cache is None else grid_cache.get("bc")
         if stats_list is None:
-            stats_list = grid_group_stats(logy, codes, c, grid_l, weights, bases)
+            if grid_provider is not None:
+                stats_list = grid_provider(grid_l)
+            else:
+                stats_list = grid_group_stats(logy, codes, c, grid_l, weights, bases)  # type: ignore[arg-type]
             if grid_cache is not None:
                 grid_cache["bc"] = stats_list
         vals = np.array([from_rss(design_rss(st, design), float(v)) for st, v in zip(stats_list, grid_l, strict=True)])
@@ -198,7 +210,7 @@ def profile_boxcox(
         high = float(brentq(lambda v: spline(v) - top + HALF_CHI2_95, fine[i + right[0] - 1], fine[i + right[0]])) if right.size else None
     else:
         def ll(lam: float) -> float:
-            st = compute_group_stats(codes, c, _bc(logy, lam), weights, bases)
+            st = compute_group_stats(codes, c, _bc(logy, lam), weights, bases)  # type: ignore[arg-type]
             return from_rss(design_rss(st, design), lam)
 
         coarse = grid_l[::2]
@@ -348,11 +360,12 @@ def box_tidwell(study: Study, spec: ModelSpec, max_iter: int = 50) -> PowerSearc
 
 # ----- weights ------------------------------------------------------------------------
 
-def power_of_mean(study: Study, z: np.ndarray) -> tuple[float, float, int] | None:
+def power_of_mean(study: Study, response: Transform) -> tuple[float, float, int] | None:
     """θ̂ = slope of log s_j on log |mean_j| over replicated levels; returns (θ̂, p, levels)."""
     from .dist import t_sf2
 
-    st = study.group_stats(z, ("zz", id(z)))  # not cached by value: keyed by object
+    z, _ = study.transformed(response)
+    st = study.group_stats(z, ("z", response.key()))
     ok = (st.count >= 2) & (st.ss > 0) & (np.abs(st.mean) > 0)
     if ok.sum() < 3:
         return None
@@ -479,12 +492,12 @@ class RemedyTree:
         # response transforms
         if sp.response == IDENTITY and sp.weights is None:
             for t, move in ((LOG, "log y"), (SQRT, "√y"), (RECIPROCAL, "1/y")):
-                prob = t.domain_problem(st.y, ylab, "y")
+                prob = st.domain_problem(t, "y")
                 if prob:
                     pruned.append((move, prob))
                 else:
                     ok.append((move, sp.with_(response=t), {}))
-            prob = Transform("boxcox", 0.5).domain_problem(st.y, ylab, "y")
+            prob = st.domain_problem(Transform("boxcox", 0.5), "y")
             if prob:
                 pruned.append(("Box–Cox y", prob))
             else:
@@ -492,11 +505,16 @@ class RemedyTree:
                     fr = _frame(st, sp)
                     design, _ = build_design(st, sp, fr)
                     codes, c = st.group_codes(fr.by)
-                    cache = st.cache_get(("bcgrid", fr.by, fr.bases_key, st.weights_name))
-                    if cache is None:
-                        cache = st.cache_put(("bcgrid", fr.by, fr.bases_key, st.weights_name), {})
-                    prof = profile_boxcox(st.y, codes, c, design, weights=st.weights, bases=fr.bases,
-                                          grid_cache=cache)
+
+                    def provider(lams: np.ndarray, fr=fr) -> list[GroupStats]:
+                        return st.boxcox_stats(lams, fr.by, fr.bases, fr.bases_key)
+
+                    if st.has_rows:
+                        prof = profile_boxcox(st.y, codes, c, design, weights=st.weights, bases=fr.bases,
+                                              grid_provider=provider)
+                    else:
+                        prof = profile_boxcox(None, codes, c, design, grid_provider=provider, n=st.n,
+                                              sum_log_y=st.sum_log_y())
                 except BendwiseError as exc:
                     pruned.append(("Box–Cox y", str(exc)))
                 else:
@@ -516,7 +534,7 @@ class RemedyTree:
         # predictor transforms
         if sp.predictor == IDENTITY and not sp.interactions:
             for t, move in ((LOG, "log x"), (SQRT, "√x"), (RECIPROCAL, "1/x")):
-                prob = t.domain_problem(st.x, xlab, "x")
+                prob = st.domain_problem(t, "x")
                 if prob:
                     pruned.append((move, prob))
                 else:
@@ -525,9 +543,8 @@ class RemedyTree:
                 pruned.append(("power of x (Box–Tidwell)", "only for a straight line in x (degree 1)"))
             elif st.approximate_groups:
                 pruned.append(("power of x (Box–Tidwell)", "not available when settings are grouped by a tolerance"))
-            elif (st.x <= 0).any():
-                bad = int((st.x <= 0).sum())
-                pruned.append(("power of x (Box–Tidwell)", f"a power of x needs x > 0: {bad} row(s) of {xlab!r} have x ≤ 0"))
+            elif st.x_min <= 0:
+                pruned.append(("power of x (Box–Tidwell)", f"a power of x needs x > 0; {xlab!r} goes down to {st.x_min:g}"))
             else:
                 try:
                     ps = box_tidwell(st, sp)
@@ -566,8 +583,7 @@ class RemedyTree:
                 ok.append((f"+ x:{name}", sp.with_(interactions=sp.interactions + (name,)), {}))
         # weights
         if sp.weights is None and node.score is not None:
-            z = np.asarray(sp.response.forward(st.y), dtype=float)
-            pm = power_of_mean(st, z)
+            pm = power_of_mean(st, sp.response)
             spread_p = node.score.spread.p if node.score.spread.testable else None
             if pm is None:
                 pruned.append(("weights", "needs at least 3 replicated levels with spread to fit a variance function"))

@@ -99,29 +99,19 @@ class NodeScore:
 
 # ----- cached pieces --------------------------------------------------------------------
 
-def _response(study: Study, t: Transform) -> tuple[np.ndarray, float]:
-    key = ("z", t.key())
-    hit = study.cache_get(key)
-    if hit is None:
-        problem = t.domain_problem(study.y, study.y_name, "y")
-        if problem:
-            raise UsageError(problem)
-        with np.errstate(all="ignore"):
-            z = np.asarray(t.forward(study.y), dtype=float)
-            jac = float(np.sum(t.log_abs_derivative(study.y)))
-        hit = study.cache_put(key, (z, jac))
-    return hit
+def _response(study: Study, t: Transform) -> tuple[np.ndarray | None, float]:
+    return study.transformed(t)
 
 
-def level_means(study: Study, z: np.ndarray, key) -> np.ndarray:
+def level_means(study: Study, z: np.ndarray | None, key) -> np.ndarray:
     """Unweighted mean of z per x level."""
     return study.group_stats(z, key).mean
 
 
-def _weights(study: Study, spec: ModelSpec) -> tuple[np.ndarray | None, object]:
+def _weights(study: Study, spec: ModelSpec) -> tuple[np.ndarray | None, object, np.ndarray | None]:
     rule = spec.weights
     if rule is None:
-        return study.weights, study.weights_name
+        return study.weights, study.weights_name, None
     key = ("w", spec.response.key(), rule.theta, study.weights_name)
     hit = study.cache_get(key)
     if hit is None:
@@ -131,10 +121,7 @@ def _weights(study: Study, spec: ModelSpec) -> tuple[np.ndarray | None, object]:
             raise UsageError("power-of-mean weights need every level mean ≠ 0 on the response scale")
         w_level = m ** (-2.0 * rule.theta)
         w_level = w_level / np.exp(np.mean(np.log(w_level)))  # geometric mean 1 (any scale is fine)
-        w = w_level[study.x_codes]
-        if study.weights is not None:
-            w = w * study.weights
-        hit = study.cache_put(key, (w, key))
+        hit = study.cache_put(key, (study.level_weight_rows(w_level), key, w_level))
     return hit
 
 
@@ -148,7 +135,7 @@ def _num_names(study: Study) -> tuple[str, ...]:
 
 def t_range(study: Study, predictor: Transform) -> tuple[float, float]:
     """Centre and half-range of the transformed predictor (fixed per transform)."""
-    ends = np.asarray(predictor.forward(np.array([study.x.min(), study.x.max()], dtype=float)), dtype=float)
+    ends = np.asarray(predictor.forward(np.array([study.x_min, study.x_max], dtype=float)), dtype=float)
     lo, hi = float(ends.min()), float(ends.max())
     scale = (hi - lo) / 2 or 1.0
     return (lo + hi) / 2, scale
@@ -156,10 +143,11 @@ def t_range(study: Study, predictor: Transform) -> tuple[float, float]:
 
 @dataclass(frozen=True, slots=True, eq=False)
 class _Frame:
-    z: np.ndarray
+    z: np.ndarray | None
     jac: float
     w: np.ndarray | None
     wkey: object
+    w_level: np.ndarray | None
     by: tuple[str, ...]
     nums: tuple[str, ...]
     bases: np.ndarray | None
@@ -171,29 +159,31 @@ class _Frame:
 
 def _frame(study: Study, spec: ModelSpec) -> _Frame:
     z, jac = _response(study, spec.response)
-    w, wkey = _weights(study, spec)
+    w, wkey, w_level = _weights(study, spec)
     by = _cat_names(study)
     nums = _num_names(study)
     centre, scale = t_range(study, spec.predictor)
     bkey: tuple = ("nums", nums)
     if study.approximate_groups:
-        bkey = ("nums", nums, spec.predictor.key(), spec.degree)
-    bases = study.cache_get(("bases", bkey))
-    if bases is None:
+        bkey = ("nums", nums, spec.predictor.key(), spec.degree, centre, scale)
+
+    def build() -> np.ndarray | None:
         cols = [study.covariate(nm).values for nm in nums]
         if study.approximate_groups:
             u = (np.asarray(spec.predictor.forward(study.x), dtype=float) - centre) / scale
             cols += [u**k for k in range(1, spec.degree + 1)]
-        bases = study.cache_put(("bases", bkey), np.column_stack(cols) if cols else False)
-    bases = bases if bases is not False else None
+        return np.column_stack(cols) if cols else None
+
+    bases = study.base_rows(bkey, build)
     approx = study.approximate_groups or spec.weights is not None
-    return _Frame(z, jac, w, wkey, by, nums, bases, bkey if bases is not None else None, centre, scale, approx)
+    return _Frame(z, jac, w, wkey, w_level, by, nums, bases, bkey if bases is not None else None, centre, scale,
+                  approx)
 
 
 def _stats(study: Study, spec: ModelSpec, fr: _Frame, extremes: bool = False):
     return study.group_stats(
         fr.z, ("z", spec.response.key()), by=fr.by, weights=fr.w, weights_key=fr.wkey,
-        bases=fr.bases, bases_key=fr.bases_key, extremes=extremes,
+        bases=fr.bases, bases_key=fr.bases_key, extremes=extremes, level_weights=fr.w_level,
     )
 
 
@@ -315,11 +305,11 @@ def predict_terms(terms: tuple[Term, ...], beta: np.ndarray, t: np.ndarray, covs
 
 def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = None) -> NodeScore:
     """Score ``spec`` on ``study``. ``root_line`` is the straight line's fitted y per x level."""
-    problem = spec.predictor.domain_problem(study.x, study.x_name, "x")
+    problem = study.domain_problem(spec.predictor, "x")
     if problem:
         raise UsageError(problem)
     fr = _frame(study, spec)
-    big = study.n > ROW_PASS_LIMIT
+    big = study.n > ROW_PASS_LIMIT or not study.has_rows
     stats = _stats(study, spec, fr, extremes=big)
     design, terms = build_design(study, spec, fr)
     fit = fit_design(stats, design)
@@ -329,7 +319,8 @@ def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = 
 
     # lack of fit: shape in x, and the classical pure-error grouping
     if not spec.covariates and not study.approximate_groups:
-        sx = study.group_stats(fr.z, ("z", spec.response.key()), weights=fr.w, weights_key=fr.wkey)
+        sx = study.group_stats(fr.z, ("z", spec.response.key()), weights=fr.w, weights_key=fr.wkey,
+                               level_weights=fr.w_level)
         lof_pure = lack_of_fit(sx, fit, approximate=fr.approximate)
         lof_shape = LackOfFit(lof_pure.testable, lof_pure.reason, "shape in x (pure error)", lof_pure.ss_lack,
                               lof_pure.ss_pure, lof_pure.df_lack, lof_pure.df_pure, lof_pure.f, lof_pure.p,
@@ -342,7 +333,7 @@ def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = 
             _, c_fine = study.group_codes(tuple(spec.covariates))
             if c_fine < study.n:
                 sp = study.group_stats(fr.z, ("z", spec.response.key()), by=tuple(spec.covariates), weights=fr.w,
-                                       weights_key=fr.wkey)
+                                       weights_key=fr.wkey, level_weights=fr.w_level)
                 lof_pure = lack_of_fit(sp, fit, approximate=fr.approximate)
             if c_fine == study.n:
                 lof_pure = LackOfFit(False, "no combination of the predictor variables is repeated "
@@ -465,7 +456,7 @@ def _row_diagnostics(study, spec, fr, stats, design, fit, big):
         spread = SideTest(name, spread.testable, spread.statistic, spread.df, spread.p, spread.reason)
         return press, note, rmax, spread
     # large tables: group-level shortcuts where exact, else a stated omission
-    group_only = all(col.base is None for col in design.columns) and study.weights is None
+    group_only = all(col.base is None for col in design.columns) and study.weights_name is None
     rmax = None
     press = None
     note = f"skipped above {ROW_PASS_LIMIT:,} rows for this model (needs a pass over the rows)"
@@ -479,12 +470,7 @@ def _row_diagnostics(study, spec, fr, stats, design, fit, big):
             resid = stats.mean - fitted
             ss_unw = stats.ss / wg + stats.count * resid**2
             press, note = float(np.sum(ss_unw / (1 - hg) ** 2)), None
-    wroot = None if fr.w is None else np.sqrt(fr.w)
-    zz = fr.z if wroot is None else wroot * fr.z
-    key = ("spread", spec.response.key(), fr.wkey)
-    sp = study.cache_get(key)
-    if sp is None:
-        sp = study.cache_put(key, spread_test(zz, study.x_codes, study.c))
+    sp = study.spread_by_level(fr.z, (spec.response.key(), fr.wkey), fr.w)
     reason = None if not spec.covariates else "computed on the response, not the residuals (large table)"
     spread = SideTest(name, sp.testable, sp.statistic, sp.df, sp.p, sp.reason or reason)
     return press, note, rmax, spread

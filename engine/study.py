@@ -86,6 +86,79 @@ class Study:
         self._cache: dict[Any, Any] = {}
         self.x_codes, self.x_level_values, self.x_level_labels = self._x_groups()
 
+    # ----- row access hooks (a SQL-backed study overrides these) -------------------------
+    has_rows = True
+    """True when the rows are in memory (per-row diagnostics are possible)."""
+
+    @property
+    def x_min(self) -> float:
+        """Smallest x used."""
+        return float(self.x.min())
+
+    @property
+    def x_max(self) -> float:
+        """Largest x used."""
+        return float(self.x.max())
+
+    def domain_problem(self, t: Any, role: str) -> str | None:
+        """Why transform ``t`` cannot apply to y (role 'y') or x (role 'x'); None if it can."""
+        if role == "y":
+            return t.domain_problem(self.y, self.y_name, "y")
+        return t.domain_problem(self.x, self.x_name, "x")
+
+    def transformed(self, t: Any) -> tuple[np.ndarray | None, float]:
+        """(g(y) per row, Σ log|g′(y)|), cached; raises UsageError outside the domain."""
+        key = ("z", t.key())
+        hit = self._cache.get(key)
+        if hit is None:
+            problem = self.domain_problem(t, "y")
+            if problem:
+                raise UsageError(problem)
+            with np.errstate(all="ignore"):
+                z = np.asarray(t.forward(self.y), dtype=float)
+                jac = float(np.sum(t.log_abs_derivative(self.y)))
+            hit = self._cache[key] = (z, jac)
+        return hit
+
+    def level_weight_rows(self, w_level: np.ndarray) -> np.ndarray | None:
+        """Per-row weights from per-x-level weights (times the user's weights)."""
+        w = w_level[self.x_codes]
+        return w if self.weights is None else w * self.weights
+
+    def base_rows(self, key: Any, build: Any) -> np.ndarray | None:
+        """Within-varying bases (numeric covariates, x powers under a tolerance), cached."""
+        hit = self._cache.get(("bases", key))
+        if hit is None:
+            hit = build()
+            self._cache[("bases", key)] = False if hit is None else hit
+        return None if hit is False else hit
+
+    def exact_replicates(self) -> bool:
+        """True when some exact x value occurs more than once."""
+        return int(np.unique(self.x).size) < self.n
+
+    def spread_by_level(self, z: np.ndarray | None, key: Any, w: np.ndarray | None) -> Any:
+        """Brown–Forsythe across x levels of √w·z (cached by ``key``)."""
+        from .linearity import spread_test
+
+        hit = self._cache.get(("spread", key))
+        if hit is None:
+            zz = z if w is None else np.sqrt(w) * z
+            hit = self._cache[("spread", key)] = spread_test(zz, self.x_codes, self.c)
+        return hit
+
+    def boxcox_stats(self, lams: np.ndarray, by: tuple[str, ...], bases: np.ndarray | None,
+                     bases_key: Any) -> list[GroupStats]:
+        """Group statistics of (y^λ − 1)/λ for a grid of λ (one batched pass, cached)."""
+        key = ("bcgrid", by, bases_key, self.weights_name, tuple(lams))
+        hit = self._cache.get(key)
+        if hit is None:
+            from .remedies import grid_group_stats
+
+            codes, c = self.group_codes(by)
+            hit = self._cache[key] = grid_group_stats(np.log(self.y), codes, c, lams, self.weights, bases)
+        return hit
+
     # ----- grouping -------------------------------------------------------------------
     @property
     def n(self) -> int:
@@ -182,8 +255,13 @@ class Study:
         bases: np.ndarray | None = None,
         bases_key: Any = None,
         extremes: bool = False,
+        level_weights: np.ndarray | None = None,
     ) -> GroupStats:
-        """Group statistics of response ``z`` (identified by ``z_key``), cached per key."""
+        """Group statistics of response ``z`` (identified by ``z_key``), cached per key.
+
+        ``level_weights`` repeats rule weights per x level (rows already carry them in
+        ``weights``); a SQL-backed study uses it because it has no rows.
+        """
         key = ("stats", z_key, by, weights_key, bases_key, extremes)
         hit = self._cache.get(key)
         if hit is None:
