@@ -46,6 +46,8 @@ class DropCount:
 
     def describe(self) -> str:
         """One line for reports."""
+        if not self.rows:
+            return f"{self.count} row(s) with {self.reason} {self.column!r}"
         shown = ", ".join(str(r) for r in self.rows)
         more = ", …" if self.count > len(self.rows) else ""
         return f"{self.count} row(s) with {self.reason} {self.column!r} (rows {shown}{more})"

@@ -488,7 +488,7 @@ class RemedyTree:
         st, sp = self.study, node.spec
         ok: list[tuple[str, ModelSpec, dict]] = []
         pruned: list[tuple[str, str]] = []
-        ylab, xlab = st.y_name, st.x_name
+        xlab = st.x_name
         # response transforms
         if sp.response == IDENTITY and sp.weights is None:
             for t, move in ((LOG, "log y"), (SQRT, "√y"), (RECIPROCAL, "1/y")):

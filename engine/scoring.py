@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .errors import UsageError
+from .errors import BendwiseError, UsageError
 from .linalg import Column, Design, fit_design, poly_map
 from .linearity import criteria_from, lack_of_fit, nested_f, power_label, spread_test
 from .results import Criteria, Fit, LackOfFit, SideTest
@@ -330,8 +330,12 @@ def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = 
         if study.approximate_groups:
             lof_pure = LackOfFit(False, "settings were grouped by a tolerance: there are no exact replicates", "pure error")
         else:
-            _, c_fine = study.group_codes(tuple(spec.covariates))
-            if c_fine < study.n:
+            try:
+                _, c_fine = study.group_codes(tuple(spec.covariates))
+            except BendwiseError as exc:
+                c_fine = -1
+                lof_pure = LackOfFit(False, str(exc), "pure error")
+            if 0 <= c_fine < study.n:
                 sp = study.group_stats(fr.z, ("z", spec.response.key()), by=tuple(spec.covariates), weights=fr.w,
                                        weights_key=fr.wkey, level_weights=fr.w_level)
                 lof_pure = lack_of_fit(sp, fit, approximate=fr.approximate)
@@ -351,7 +355,7 @@ def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = 
     for cov_name in spec.covariates:
         cov = study.covariate(cov_name)
         covs_ref[cov_name] = (np.full(study.c, cov.levels[0]) if cov.kind == "categorical"
-                              else np.full(study.c, float(np.mean(cov.values))))
+                              else np.full(study.c, study.covariate_mean(cov_name)))
     with np.errstate(all="ignore"):
         z_levels = predict_terms(terms, np.nan_to_num(beta), t_levels, covs_ref)
         y_levels = np.asarray(spec.response.inverse(z_levels), dtype=float)
@@ -494,6 +498,8 @@ class LevelResiduals:
 
 def residuals_by_level(study: Study, score: NodeScore, max_rows: int = 100_000) -> LevelResiduals:
     """Row residuals of a scored node (a sample of ``max_rows`` evenly spaced rows when larger)."""
+    if not study.has_rows:
+        raise UsageError("row residuals need the rows in memory; this table is read through the SQL engine")
     spec = score.spec
     fr = _frame(study, spec)
     stats = _stats(study, spec, fr)

@@ -133,6 +133,10 @@ class Study:
             self._cache[("bases", key)] = False if hit is None else hit
         return None if hit is False else hit
 
+    def covariate_mean(self, name: str) -> float:
+        """Mean of a numeric covariate over the rows used (reference value for curves)."""
+        return float(np.mean(self.covariate(name).values))
+
     def exact_replicates(self) -> bool:
         """True when some exact x value occurs more than once."""
         return int(np.unique(self.x).size) < self.n
@@ -189,25 +193,14 @@ class Study:
         codes = codes.astype(np.intp)
         uniq = np.asarray(uniques, dtype=float)
         if self.tolerance is not None and self.tolerance > 0 and uniq.size > 1:
-            cluster = np.zeros(uniq.size, dtype=np.intp)
-            start = uniq[0]
-            k = 0
-            for i in range(1, uniq.size):
-                if uniq[i] - start > self.tolerance:
-                    k += 1
-                    start = uniq[i]
-                cluster[i] = k
+            cluster = cluster_sorted(uniq, self.tolerance)
+            k = int(cluster[-1])
             if k + 1 < uniq.size:
                 self._cache["merged"] = True
                 codes = cluster[codes]
                 cnt = np.bincount(codes)
                 values = np.bincount(codes, weights=self.x) / cnt
-                lo = np.array([uniq[cluster == j].min() for j in range(k + 1)])
-                hi = np.array([uniq[cluster == j].max() for j in range(k + 1)])
-                labels = tuple(
-                    f"{_fmt(a)}" if a == b else f"{_fmt(a)}…{_fmt(b)}" for a, b in zip(lo, hi, strict=True)
-                )
-                return codes, values, labels
+                return codes, values, level_labels(uniq, cluster)
         return codes, uniq, tuple(_fmt(v) for v in uniq)
 
     def group_codes(self, by: tuple[str, ...] = ()) -> tuple[np.ndarray, int]:
@@ -342,6 +335,28 @@ class Study:
         lo, hi = int(counts.min()), int(counts.max())
         reps = f"{lo} replicate(s) each" if lo == hi else f"{lo}–{hi} replicates"
         return f"{self.n} rows at {self.c} levels of {self.x_name} ({reps})"
+
+
+def cluster_sorted(uniq: np.ndarray, tolerance: float) -> np.ndarray:
+    """Cluster index of each sorted distinct value: a new cluster starts where a value lies
+    more than ``tolerance`` above the first value of the current cluster (deterministic)."""
+    cluster = np.zeros(uniq.size, dtype=np.intp)
+    start = uniq[0]
+    k = 0
+    for i in range(1, uniq.size):
+        if uniq[i] - start > tolerance:
+            k += 1
+            start = uniq[i]
+        cluster[i] = k
+    return cluster
+
+
+def level_labels(uniq: np.ndarray, cluster: np.ndarray) -> tuple[str, ...]:
+    """'5' for a single value, '4.98…5.02' for a merged cluster."""
+    k = int(cluster[-1]) + 1
+    lo = np.array([uniq[cluster == j].min() for j in range(k)])
+    hi = np.array([uniq[cluster == j].max() for j in range(k)])
+    return tuple(f"{_fmt(a)}" if a == b else f"{_fmt(a)}…{_fmt(b)}" for a, b in zip(lo, hi, strict=True))
 
 
 def _fmt(v: float) -> str:

@@ -22,6 +22,11 @@ def add_data_args(p: argparse.ArgumentParser, *, need_xy: bool = True, covariate
     p.add_argument("--sheet", metavar="NAME", help="Excel sheet (default: the first)")
     p.add_argument("--decimal", choices=[".", ","], help="decimal mark in text files (default .)")
     p.add_argument("--delimiter", metavar="CHAR", help="field separator in text files (default: detected)")
+    p.add_argument("--engine", choices=["auto", "memory", "duckdb"], default="auto",
+                   help="where group totals are computed: in memory, or by DuckDB over the files "
+                   "(auto: DuckDB for folders, globs and files above --memory-cap)")
+    p.add_argument("--memory-cap", metavar="SIZE", default="2G",
+                   help="with --engine auto, files larger than this go through DuckDB (default 2G)")
 
 
 def alpha_arg(text: str) -> float:
@@ -40,13 +45,47 @@ def split_list(text: str | None) -> list[str]:
     return [s.strip() for s in (text or "").split(",") if s.strip()]
 
 
-def load_study(args: argparse.Namespace):
+def parse_size(text: str) -> int:
+    """'2G' → bytes; plain numbers are bytes."""
+    from engine.errors import UsageError
+
+    t = str(text).strip().upper().removesuffix("B")
+    mult = {"K": 1 << 10, "M": 1 << 20, "G": 1 << 30, "T": 1 << 40}
+    try:
+        if t and t[-1] in mult:
+            return int(float(t[:-1]) * mult[t[-1]])
+        return int(float(t))
+    except ValueError:
+        raise UsageError(f"size {text!r} is not understood; give e.g. 500M or 2G") from None
+
+
+def load_study(args: argparse.Namespace, progress=None):
     """Read the table and build the Study from the common options."""
+    import sys
+
     from engine import load_table, make_study
+    from engine.sql import choose_engine, make_sql_study
 
     delim = args.delimiter
     if delim in {"\\t", "tab", "TAB"}:
         delim = "\t"
+    engine_name = choose_engine(args.data, getattr(args, "engine", "memory"), parse_size(getattr(args, "memory_cap", "2G")))
+    if engine_name == "duckdb":
+        if progress is None and sys.stderr.isatty() and not getattr(args, "json", False):
+            def progress(text: str) -> None:
+                sys.stderr.write(f"\r  {text[:70]:<70}" if text else "\r" + " " * 72 + "\r")
+                sys.stderr.flush()
+        return make_sql_study(
+            args.data,
+            y=args.y,
+            x=args.x,
+            covariates=split_list(getattr(args, "covariates", "")),
+            weights=args.weights,
+            tolerance=args.tolerance,
+            decimal=args.decimal,
+            delimiter=delim,
+            progress=progress,
+        )
     frame = load_table(args.data, sheet=args.sheet, decimal=args.decimal, delimiter=delim)
     source = "<stdin>" if args.data == "-" else Path(args.data).name
     return make_study(

@@ -1,0 +1,651 @@
+"""Group statistics from an embedded SQL engine (DuckDB), for tables larger than memory.
+
+The engine only needs per-group totals, so the O(n) work is a GROUP BY that DuckDB runs over
+Parquet or CSV files without loading the rows into Python. One scan collects, for every
+finest group (exact x value × categorical covariates), the count, the mean of each response
+transform and of each numeric covariate, their within-group co-moments (count × covar_pop)
+and extremes; another scan does the same for the whole Box–Cox grid. Coarser groups (x levels
+merged by a tolerance, fewer categorical covariates) are pooled from these in Python with the
+parallel-axis rule. The SQL uses standard aggregates only (COUNT, AVG, VAR_POP, COVAR_POP,
+MIN, MAX, SUM, LN, EXP, SQRT, CASE), so it also runs on cluster SQL engines: see
+``aggregate_sql``.
+
+A study built here holds no rows: ``has_rows`` is False and row-level diagnostics are
+replaced by group-level ones or reported as unavailable, with the reason.
+"""
+
+from __future__ import annotations
+
+import glob as _glob
+import math
+import os
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from types import SimpleNamespace
+from typing import Any
+
+import numpy as np
+
+from .data import CleaningReport, DropCount, resolve_column
+from .errors import DataError, UsageError
+from .groups import GroupStats
+from .results import SideTest
+from .study import MAX_CATEGORIES, Covariate, Study, cluster_sorted, level_labels, parse_tolerance
+from .transforms import Transform
+
+__all__ = ["SqlStudy", "make_sql_study", "aggregate_sql", "transform_sql", "choose_engine", "BOXCOX_GRID"]
+
+# Text that pandas reads as missing by default; the SQL path treats it the same way.
+_NA_TEXT = ("", "#N/A", "#N/A N/A", "#NA", "-1.#IND", "-1.#QNAN", "-NaN", "-nan", "1.#IND", "1.#QNAN",
+            "<NA>", "N/A", "NA", "NULL", "NaN", "None", "n/a", "nan", "null")
+BOXCOX_GRID = np.round(np.arange(-3.0, 3.0 + 1e-9, 0.1), 6)
+ProgressFn = Callable[[str], None]
+
+
+def q(name: str) -> str:
+    """Quote an SQL identifier."""
+    return '"' + name.replace('"', '""') + '"'
+
+
+def lit(text: str) -> str:
+    """Quote an SQL string literal."""
+    return "'" + text.replace("'", "''") + "'"
+
+
+def transform_sql(t: Transform, col: str = "y") -> str:
+    """Standard-SQL expression of g(col)."""
+    k = t.kind
+    if k == "identity":
+        return col
+    if k == "log":
+        return f"LN({col})"
+    if k == "sqrt":
+        return f"SQRT({col})"
+    if k == "reciprocal":
+        return f"(1.0 / {col})"
+    if k == "boxcox":
+        lam = float(t.param)  # type: ignore[arg-type]
+        return f"LN({col})" if lam == 0 else f"((EXP({lam!r} * LN({col})) - 1.0) / {lam!r})"
+    raise UsageError(f"transform {t.kind} has no SQL form")
+
+
+def aggregate_sql(source: str, keys: Sequence[str], nums: Sequence[str], zs: Sequence[str]) -> str:
+    """The GROUP BY query: per finest group, count, means, co-moments and extremes.
+
+    ``source`` is a table or sub-query with a column ``y`` and the key and numeric columns;
+    ``zs`` are SQL expressions of the transformed response. Standard aggregates only.
+    """
+    parts = ["COUNT(*) AS n"]
+    for i, b in enumerate(nums):
+        parts.append(f"AVG({q(b)}) AS b{i}_m")
+    for i, b in enumerate(nums):
+        for j in range(i, len(nums)):
+            parts.append(f"COVAR_POP({q(b)}, {q(nums[j])}) AS bb{i}_{j}")
+    for k, z in enumerate(zs):
+        parts.append(f"AVG({z}) AS z{k}_m")
+        parts.append(f"VAR_POP({z}) AS z{k}_v")
+        for i, b in enumerate(nums):
+            parts.append(f"COVAR_POP({z}, {q(b)}) AS z{k}_b{i}")
+        parts.append(f"MIN({z}) AS z{k}_lo")
+        parts.append(f"MAX({z}) AS z{k}_hi")
+    key_list = ", ".join(q(k) for k in keys)
+    return f"SELECT {key_list}, {', '.join(parts)} FROM {source} GROUP BY {key_list} ORDER BY {key_list}"
+
+
+def choose_engine(path: str, engine: str, memory_cap: int) -> str:
+    """'memory' or 'duckdb' for ``--engine auto|memory|duckdb``."""
+    if engine not in {"auto", "memory", "duckdb"}:
+        raise UsageError(f"engine {engine!r} is unknown; use auto, memory or duckdb")
+    if engine != "auto":
+        return engine
+    if path == "-":
+        return "memory"
+    if os.path.isdir(path) or any(ch in path for ch in "*?["):
+        return "duckdb"
+    try:
+        size = os.path.getsize(path)
+    except OSError:
+        return "memory"
+    return "duckdb" if size > memory_cap else "memory"
+
+
+def _source_sql(path: str, decimal: str, delimiter: str | None) -> tuple[str, bool]:
+    """FROM clause for the files and whether columns arrive as text."""
+    p = Path(path)
+    if p.is_dir():
+        files = sorted(_glob.glob(str(p / "**" / "*.parquet"), recursive=True))
+        if files:
+            return f"read_parquet({lit(str(p / '**' / '*.parquet'))}, union_by_name = true)", False
+        files = sorted(_glob.glob(str(p / "**" / "*.csv"), recursive=True))
+        if not files:
+            raise DataError(f"folder {path} holds no .parquet or .csv files; point at the data files")
+        pattern, is_parquet = str(p / "**" / "*.csv"), False
+    else:
+        if any(ch in path for ch in "*?["):
+            files = sorted(_glob.glob(path, recursive=True))
+            if not files:
+                raise DataError(f"no file matches {path}; check the pattern")
+        elif not p.exists():
+            raise DataError(f"file not found: {path}; check the path")
+        pattern = path
+        is_parquet = path.lower().endswith((".parquet", ".pq"))
+    if is_parquet:
+        return f"read_parquet({lit(pattern)}, union_by_name = true)", False
+    opts = ["header = true", "all_varchar = true"]
+    if delimiter:
+        opts.append(f"delim = {lit(delimiter)}")
+    elif decimal == ",":
+        opts.append("delim = ';'")
+    return f"read_csv({lit(pattern)}, {', '.join(opts)})", True
+
+
+class SqlStudy(Study):
+    """A Study whose rows stay in the files; group statistics come from SQL scans.
+
+    Units are the finest groups (exact x value × every admitted categorical covariate);
+    ``x_codes`` and categorical ``Covariate.values`` are per unit, so the grouping helpers of
+    :class:`Study` work unchanged. Numeric covariates enter through within-unit co-moments.
+    """
+
+    has_rows = False
+
+    def __init__(self, con: Any, *, progress: ProgressFn | None = None, **kw: Any) -> None:
+        self.con = con
+        self.progress = progress
+        info = kw.pop("_info")
+        self._info = info
+        super().__init__(**kw)
+        self._moments: dict[tuple, dict] = {}
+
+    # --- facts from the first scan ---------------------------------------------------------
+    @property
+    def n(self) -> int:
+        return int(self._info["n"])
+
+    @property
+    def x_min(self) -> float:
+        return float(self._info["x_min"])
+
+    @property
+    def x_max(self) -> float:
+        return float(self._info["x_max"])
+
+    def sum_log_y(self) -> float:
+        """Σ log y (only meaningful when every y > 0)."""
+        return float(self._info["slog"])
+
+    def _x_groups(self) -> tuple[np.ndarray, np.ndarray, tuple[str, ...]]:
+        uniq = self._info["x_values"]
+        unit_x = self._info["unit_x"]
+        exact = np.searchsorted(uniq, unit_x)
+        if self.tolerance is not None and self.tolerance > 0 and uniq.size > 1:
+            cluster = cluster_sorted(uniq, self.tolerance)
+            if int(cluster[-1]) + 1 < uniq.size:
+                self._cache["merged"] = True
+                codes = cluster[exact]
+                cnt = np.bincount(codes, weights=self._info["unit_n"])
+                values = np.bincount(codes, weights=self._info["unit_n"] * unit_x) / cnt
+                return codes, values, level_labels(uniq, cluster)
+        return exact.astype(np.intp), uniq, tuple(f"{v:.6g}" for v in uniq)
+
+    def level_counts(self) -> np.ndarray:
+        return np.bincount(self.x_codes, weights=self._info["unit_n"], minlength=self.c).astype(np.int64)
+
+    def domain_problem(self, t: Transform, role: str) -> str | None:
+        if t.kind == "identity":
+            return None
+        info = self._info
+        col = self.y_name if role == "y" else self.x_name
+        le0, eq0, lt0 = info[f"{role}_le0"], info[f"{role}_eq0"], info[f"{role}_lt0"]
+        if t.kind == "sqrt" and role == "x":
+            return f"√x needs x ≥ 0: {lt0} row(s) of {col!r} are negative" if lt0 else None
+        if t.kind == "reciprocal":
+            if eq0:
+                return f"1/{role} needs {role} ≠ 0: {eq0} row(s) of {col!r} are 0"
+            if lt0 and lt0 < self.n:
+                return f"1/{role} needs {role} of one sign; {col!r} has both positive and negative values"
+            return None
+        if t.kind == "power" and float(t.param).is_integer():  # type: ignore[arg-type]
+            return None
+        if le0:
+            return f"{t.short(role)} needs {role} > 0: {le0} row(s) of {col!r} have {role} ≤ 0"
+        return None
+
+    def transformed(self, t: Transform) -> tuple[None, float]:
+        problem = self.domain_problem(t, "y")
+        if problem:
+            raise UsageError(problem)
+        info, n = self._info, self.n
+        k = t.kind
+        if k == "identity":
+            jac = 0.0
+        elif k == "log":
+            jac = -info["slog"]
+        elif k == "sqrt":
+            jac = -(n * math.log(2.0) + 0.5 * info["slog"])
+        elif k == "reciprocal":
+            jac = -2.0 * info["slogabs"]
+        elif k == "boxcox":
+            jac = (float(t.param) - 1.0) * info["slog"]  # type: ignore[arg-type]
+        else:
+            raise UsageError(f"response transform {k} is not available with the SQL engine")
+        return None, jac
+
+    def level_weight_rows(self, w_level: np.ndarray) -> None:
+        return None
+
+    def base_rows(self, key: Any, build: Any) -> Any:
+        q_nums = len(key[1]) if key and key[0] == "nums" else 0
+        extra = 0
+        if key and key[0] == "nums" and len(key) > 2:
+            extra = int(key[3])
+        elif key and key[0] == "u":
+            extra = int(key[3])
+        width = q_nums + extra
+        return None if width == 0 else np.empty((0, width))  # shape only: the SQL study has no rows
+
+    def exact_replicates(self) -> bool:
+        return int(self._info["x_values"].size) < self.n
+
+    def covariate_mean(self, name: str) -> float:
+        return float(self._info["num_mean"][name])
+
+    def distinct(self, name: str) -> int:
+        cov = self.covariate(name)
+        if cov.kind == "categorical":
+            return len(cov.levels)
+        raise UsageError(f"grouping by the numeric covariate {name!r} needs the rows; use --engine memory")
+
+    def group_codes(self, by: tuple[str, ...] = ()) -> tuple[np.ndarray, int]:
+        for name in by:
+            if self.covariate(name).kind == "numeric":
+                self.distinct(name)
+        return super().group_codes(by)
+
+    # --- scans ---------------------------------------------------------------------------------
+    def _say(self, text: str) -> None:
+        if self.progress is not None:
+            self.progress(text)
+
+    def _scan(self, transforms: Sequence[Transform]) -> None:
+        """One GROUP BY scan for several response transforms; results cached per transform."""
+        todo = [t for t in transforms if t.key() not in self._moments]
+        if not todo:
+            return
+        info = self._info
+        keys = ["x", *info["cat_cols"]]
+        nums = info["num_cols"]
+        zs = [transform_sql(t, "y") for t in todo]
+        sql = aggregate_sql("bw_clean", keys, nums, zs)
+        self._say(f"scanning {self.n:,} rows for {len(todo)} response transform(s)")
+        res = self.con.execute(sql).fetchnumpy()
+        self._say("")
+        nb = len(nums)
+        unit_n = np.asarray(res["n"], dtype=float)
+        if unit_n.shape[0] != info["unit_n"].shape[0]:
+            raise DataError("the data changed between scans (group count differs); run again")
+        bmean = np.column_stack([np.asarray(res[f"b{i}_m"], dtype=float) for i in range(nb)]) if nb else np.zeros((unit_n.size, 0))
+        bb = np.zeros((unit_n.size, nb, nb))
+        for i in range(nb):
+            for j in range(i, nb):
+                v = np.nan_to_num(np.asarray(res[f"bb{i}_{j}"], dtype=float)) * unit_n
+                bb[:, i, j] = bb[:, j, i] = v
+        for k, t in enumerate(todo):
+            zb = np.zeros((unit_n.size, nb))
+            for i in range(nb):
+                zb[:, i] = np.nan_to_num(np.asarray(res[f"z{k}_b{i}"], dtype=float)) * unit_n
+            self._moments[t.key()] = {
+                "mean": np.asarray(res[f"z{k}_m"], dtype=float),
+                "ss": np.nan_to_num(np.asarray(res[f"z{k}_v"], dtype=float)) * unit_n,
+                "zb": zb,
+                "lo": np.asarray(res[f"z{k}_lo"], dtype=float),
+                "hi": np.asarray(res[f"z{k}_hi"], dtype=float),
+                "bmean": bmean,
+                "bb": bb,
+            }
+
+    def prefetch(self) -> None:
+        """Scan once for every response transform the tree's first level can use."""
+        from .transforms import IDENTITY, LOG, RECIPROCAL, SQRT
+
+        ts = [IDENTITY] + [t for t in (LOG, SQRT, RECIPROCAL) if self.domain_problem(t, "y") is None]
+        self._scan(ts)
+
+    # --- group statistics pooled from units ---------------------------------------------------
+    def group_stats(self, z: Any, z_key: Any, *, by: tuple[str, ...] = (), weights: Any = None,
+                    weights_key: Any = None, bases: Any = None, bases_key: Any = None, extremes: bool = False,
+                    level_weights: np.ndarray | None = None) -> GroupStats:
+        key = ("stats", z_key, by, weights_key, bases_key, extremes)
+        hit = self._cache.get(key)
+        if hit is not None:
+            return hit
+        if not (isinstance(z_key, tuple) and z_key and z_key[0] == "z"):
+            raise UsageError("the SQL engine computes group statistics by response transform only")
+        t = Transform(*z_key[1])
+        self._scan([t])
+        hit = self._pool(self._moments[t.key()], by, bases_key, level_weights, extremes)
+        self._cache[key] = hit
+        return hit
+
+    def _base_values(self, bases_key: Any) -> tuple[list[int], list[np.ndarray]]:
+        """Numeric-covariate indices and per-unit values of x-power bases for ``bases_key``."""
+        if not bases_key:
+            return [], []
+        nums = self._info["num_cols"]
+        if bases_key[0] == "nums":
+            idx = [nums.index(nm) for nm in bases_key[1]]
+            powers: list[np.ndarray] = []
+            if len(bases_key) > 2:
+                pred = Transform(*bases_key[2])
+                degree, centre, scale = int(bases_key[3]), float(bases_key[4]), float(bases_key[5])
+                u = (np.asarray(pred.forward(self._info["unit_x"]), dtype=float) - centre) / scale
+                powers = [u**k for k in range(1, degree + 1)]
+            return idx, powers
+        if bases_key[0] == "u":
+            centre, scale, degree = float(bases_key[1]), float(bases_key[2]), int(bases_key[3])
+            u = (self._info["unit_x"] - centre) / scale
+            return [], [u**k for k in range(1, degree + 1)]
+        raise UsageError(f"unknown bases {bases_key!r} for the SQL engine")
+
+    def _pool(self, mom: dict, by: tuple[str, ...], bases_key: Any, level_weights: np.ndarray | None,
+              extremes: bool) -> GroupStats:
+        codes, c = self.group_codes(by)
+        un = self._info["unit_n"]
+        idx, powers = self._base_values(bases_key)
+        q_ = len(idx) + len(powers)
+        # per-unit means and co-moments of V = [bases..., z]
+        means = np.zeros((un.size, q_ + 1))
+        com = np.zeros((un.size, q_ + 1, q_ + 1))
+        for a, i in enumerate(idx):
+            means[:, a] = mom["bmean"][:, i]
+            for b, j in enumerate(idx):
+                com[:, a, b] = mom["bb"][:, i, j]
+            com[:, a, q_] = com[:, q_, a] = mom["zb"][:, i]
+        for p_, v in enumerate(powers):
+            means[:, len(idx) + p_] = v
+        means[:, q_] = mom["mean"]
+        com[:, q_, q_] = mom["ss"]
+        count = np.bincount(codes, weights=un, minlength=c)
+        gmeans = np.column_stack([np.bincount(codes, weights=un * means[:, k], minlength=c) / count
+                                  for k in range(q_ + 1)])
+        dev = means - gmeans[codes]
+        within = np.zeros((c, q_ + 1, q_ + 1))
+        for a in range(q_ + 1):
+            for b in range(a, q_ + 1):
+                v = np.bincount(codes, weights=com[:, a, b] + un * dev[:, a] * dev[:, b], minlength=c)
+                within[:, a, b] = within[:, b, a] = v
+        w_g = np.ones(c)
+        slw = 0.0
+        if level_weights is not None:
+            w_g = level_weights[self.group_parent(by)]
+            slw = float((count * np.log(w_g)).sum())
+        ss = within[:, q_, q_] * w_g
+        cross = within * w_g[:, None, None] if q_ else None
+        zmin = zmax = None
+        if extremes:
+            zmin = np.full(c, np.inf)
+            zmax = np.full(c, -np.inf)
+            np.minimum.at(zmin, codes, mom["lo"])
+            np.maximum.at(zmax, codes, mom["hi"])
+        return GroupStats(self.n, count.astype(np.int64), count * w_g, gmeans[:, q_], ss, slw,
+                          gmeans[:, :q_], cross, zmin, zmax)
+
+    def boxcox_stats(self, lams: np.ndarray, by: tuple[str, ...], bases: Any, bases_key: Any) -> list[GroupStats]:
+        key = ("bcgrid", by, bases_key, tuple(lams))
+        hit = self._cache.get(key)
+        if hit is None:
+            ts = [Transform("boxcox", float(v)) if v != 0 else Transform("log") for v in lams]
+            self._scan(ts)
+            hit = [self._pool(self._moments[t.key()], by, bases_key, None, False) for t in ts]
+            self._cache[key] = hit
+        return hit
+
+    def spread_by_level(self, z: Any, key: Any, w: Any) -> SideTest:
+        """Brown–Forsythe across x levels from two SQL scans (level medians, then deviations)."""
+        name = "equal spread (Brown–Forsythe)"
+        hit = self._cache.get(("spread", key))
+        if hit is not None:
+            return hit
+        tkey, wkey = key
+        if wkey is not None:
+            hit = SideTest(name, False, reason="not computed for weighted models with the SQL engine")
+            self._cache[("spread", key)] = hit
+            return hit
+        zsql = transform_sql(Transform(*tkey), "y")
+        self._say("scanning for level medians (spread test)")
+        res = self.con.execute(
+            f"WITH m AS (SELECT code, MEDIAN({zsql}) AS med FROM bw_clean JOIN bw_xmap USING (x) GROUP BY code) "
+            f"SELECT code, COUNT(*) AS n, AVG(ABS({zsql} - med)) AS dm, VAR_POP(ABS({zsql} - med)) AS dv "
+            "FROM bw_clean JOIN bw_xmap USING (x) JOIN m USING (code) GROUP BY code ORDER BY code"
+        ).fetchnumpy()
+        self._say("")
+        from .dist import f_sf
+
+        nk = np.asarray(res["n"], dtype=float)
+        dm = np.asarray(res["dm"], dtype=float)
+        dv = np.nan_to_num(np.asarray(res["dv"], dtype=float))
+        ok = nk >= 2
+        if ok.sum() < 2:
+            hit = SideTest(name, False, reason="needs at least two levels with two or more replicates")
+        else:
+            nk, dm, dv = nk[ok], dm[ok], dv[ok]
+            k = int(ok.sum())
+            total = float(nk.sum())
+            grand = float((nk * dm).sum() / total)
+            ssb = float((nk * (dm - grand) ** 2).sum())
+            ssw = float((nk * dv).sum())
+            scale = float((nk * (dv + dm**2)).sum())
+            if ssw <= 1e-12 * scale:
+                hit = SideTest(name, False, reason="the absolute deviations do not vary within levels")
+            else:
+                f = (ssb / (k - 1)) / (ssw / (total - k))
+                hit = SideTest(name, True, f, (k - 1, total - k), f_sf(f, k - 1, total - k))
+        self._cache[("spread", key)] = hit
+        return hit
+
+
+def make_sql_study(
+    path: str,
+    *,
+    y: str,
+    x: str,
+    covariates: Sequence[str] = (),
+    weights: str | None = None,
+    tolerance: str | float | None = None,
+    decimal: str | None = None,
+    delimiter: str | None = None,
+    source: str = "",
+    progress: ProgressFn | None = None,
+    memory_limit: str | None = None,
+) -> SqlStudy:
+    """Build a :class:`SqlStudy` over a file, folder or glob of Parquet/CSV files."""
+    try:
+        import duckdb
+    except ImportError:
+        raise DataError("the SQL engine needs duckdb; install it with: pip install 'bendwise[scale]'") from None
+    if weights:
+        raise UsageError("--weights is not available with the SQL engine yet; use --engine memory")
+    dec = decimal or "."
+    tol, rel = parse_tolerance(tolerance)
+    src, as_text = _source_sql(path, dec, delimiter)
+    con = duckdb.connect()
+    if memory_limit:
+        con.execute(f"SET memory_limit = {lit(memory_limit)}")
+    try:
+        desc = con.execute(f"DESCRIBE SELECT * FROM {src}").fetchall()
+    except duckdb.Error as exc:
+        first = str(exc).strip().splitlines()[0]
+        raise DataError(f"cannot read {path} ({first}); check the file format") from None
+    names = [str(r[0]) for r in desc]
+    types = {str(r[0]): str(r[1]).upper() for r in desc}
+    frame = SimpleNamespace(columns=names)
+    y_col = resolve_column(frame, y, "response column")  # type: ignore[arg-type]
+    x_col = resolve_column(frame, x, "predictor column")  # type: ignore[arg-type]
+    if y_col == x_col:
+        raise UsageError(f"response and predictor are the same column {y_col!r}; choose two columns")
+    cov_cols: list[str] = []
+    for name in covariates:
+        col = resolve_column(frame, name, "covariate column")  # type: ignore[arg-type]
+        if col in (y_col, x_col):
+            raise UsageError(f"covariate {col!r} is already the response or predictor; drop it from --covariates")
+        if col in cov_cols:
+            raise UsageError(f"covariate {col!r} is listed twice in --covariates")
+        cov_cols.append(col)
+    na_list = ", ".join(lit(s) for s in _NA_TEXT)
+    numeric_types = ("DOUBLE", "FLOAT", "INTEGER", "BIGINT", "SMALLINT", "TINYINT", "DECIMAL", "HUGEINT",
+                     "UBIGINT", "UINTEGER", "USMALLINT", "UTINYINT", "REAL")
+
+    def is_typed_numeric(col: str) -> bool:
+        return types[col].startswith(numeric_types)
+
+    def num_expr(col: str) -> tuple[str, str, str, str]:
+        """(value, missing, non-numeric, non-finite) SQL for a numeric column."""
+        c = q(col)
+        if is_typed_numeric(col):
+            v = f"CAST({c} AS DOUBLE)"
+            return v, f"({c} IS NULL OR isnan({v}))", "FALSE", f"isinf({v})"
+        text = f"trim(CAST({c} AS VARCHAR))"
+        body = f"replace({text}, ',', '.')" if dec == "," else text
+        v = f"TRY_CAST({body} AS DOUBLE)"
+        missing = f"({c} IS NULL OR {text} IN ({na_list}))"
+        return v, missing, f"(NOT {missing} AND {v} IS NULL)", f"(NOT {missing} AND (isinf({v}) OR isnan({v})))"
+
+    # kinds of covariates: numeric when every present value parses as a number
+    kinds: dict[str, str] = {}
+    for col in cov_cols:
+        if is_typed_numeric(col):
+            kinds[col] = "numeric"
+            continue
+        v, missing, non_num, _ = num_expr(col)
+        bad, present = con.execute(
+            f"SELECT COUNT(*) FILTER (WHERE {non_num}), COUNT(*) FILTER (WHERE NOT {missing}) FROM {src}"
+        ).fetchone()
+        kinds[col] = "numeric" if (bad == 0 and present > 0) else "categorical"
+
+    # first problem of each row, in the same order as the in-memory cleaning
+    checks: list[tuple[str, str, str]] = []
+    for col in (y_col, x_col):
+        _, miss, non_num, non_fin = num_expr(col)
+        checks += [(col, "missing", miss), (col, "non-numeric", non_num), (col, "non-finite", non_fin)]
+    for col in cov_cols:
+        if kinds[col] == "numeric":
+            _, miss, non_num, non_fin = num_expr(col)
+            checks += [(col, "missing", miss), (col, "non-numeric", non_num), (col, "non-finite", non_fin)]
+        else:
+            c = q(col)
+            checks.append((col, "missing", f"({c} IS NULL OR trim(CAST({c} AS VARCHAR)) = '')"))
+    case = "CASE " + " ".join(f"WHEN {cond} THEN {i}" for i, (_, _, cond) in enumerate(checks)) + " ELSE -1 END"
+    if progress:
+        progress("scanning rows: cleaning counts")
+    counts = dict(con.execute(f"SELECT {case} AS r, COUNT(*) FROM {src} GROUP BY r").fetchall())
+    n_read = int(sum(counts.values()))
+    drops = tuple(DropCount(checks[i][0], checks[i][1], int(cnt), ())
+                  for i, cnt in sorted(counts.items()) if i >= 0 and cnt)
+    cols_sql = [f"{num_expr(y_col)[0]} AS y", f"{num_expr(x_col)[0]} AS x"]
+    cat_cols = [c for c in cov_cols if kinds[c] == "categorical"]
+    num_cols = [c for c in cov_cols if kinds[c] == "numeric"]
+    for c in cat_cols:
+        cols_sql.append(f"trim(CAST({q(c)} AS VARCHAR)) AS {q(c)}")
+    for c in num_cols:
+        cols_sql.append(f"{num_expr(c)[0]} AS {q(c)}")
+    con.execute(f"CREATE TEMP VIEW bw_clean AS SELECT {', '.join(cols_sql)} FROM {src} WHERE {case} = -1")
+
+    if progress:
+        progress("scanning rows: ranges and domains")
+    parts = ["COUNT(*)", "MIN(y)", "MAX(y)", "MIN(x)", "MAX(x)",
+             "COUNT(*) FILTER (WHERE y <= 0)", "COUNT(*) FILTER (WHERE y = 0)", "COUNT(*) FILTER (WHERE y < 0)",
+             "COUNT(*) FILTER (WHERE x <= 0)", "COUNT(*) FILTER (WHERE x = 0)", "COUNT(*) FILTER (WHERE x < 0)",
+             "SUM(CASE WHEN y > 0 THEN LN(y) ELSE 0 END)", "SUM(CASE WHEN y <> 0 THEN LN(ABS(y)) ELSE 0 END)"]
+    parts += [f"MIN({q(c)})" for c in num_cols]
+    parts += [f"MAX({q(c)})" for c in num_cols]
+    parts += [f"AVG({q(c)})" for c in num_cols]
+    row = con.execute(f"SELECT {', '.join(parts)} FROM bw_clean").fetchone()
+    n = int(row[0])
+    if n < 3:
+        raise DataError(f"only {n} usable row(s) after cleaning (need at least 3); "
+                        + ("; ".join(d.describe() for d in drops) if drops else "add data"))
+    ymin, ymax, xmin, xmax = (float(v) for v in row[1:5])
+    if xmin == xmax:
+        raise DataError(f"predictor {x_col!r} has one distinct value ({xmin:g}); a line needs at least 2 settings "
+                        "(3 or more to test its shape)")
+    if ymin == ymax:
+        raise DataError(f"response {y_col!r} is constant (all {ymin:g}); there is nothing to fit")
+    k = len(num_cols)
+    for i, c in enumerate(num_cols):
+        if row[13 + i] == row[13 + k + i]:
+            raise DataError(f"covariate {c!r} has one value ({float(row[13 + i]):g}) in the rows used; it "
+                            "cannot explain anything: drop it from --covariates")
+    covs: list[Covariate] = []
+    levels_of: dict[str, tuple[str, ...]] = {}
+    for c in cat_cols:
+        lv = tuple(str(r[0]) for r in con.execute(
+            f"SELECT DISTINCT {q(c)} FROM bw_clean ORDER BY {q(c)}").fetchall())
+        if len(lv) < 2:
+            raise DataError(f"covariate {c!r} has one category ({lv[0]!r}) in the rows used; it cannot explain "
+                            "anything: drop it from --covariates")
+        if len(lv) > MAX_CATEGORIES:
+            raise DataError(f"covariate {c!r} has {len(lv)} categories (at most {MAX_CATEGORIES}); is it an "
+                            "identifier? Drop it or merge categories")
+        levels_of[c] = lv
+    xv = con.execute("SELECT x, COUNT(*) FROM bw_clean GROUP BY x ORDER BY x").fetchnumpy()
+    x_values = np.asarray(xv["x"], dtype=float)
+    keys = ["x", *cat_cols]
+    key_list = ", ".join(q(kk) for kk in keys)
+    units = con.execute(f"SELECT {key_list}, COUNT(*) AS n FROM bw_clean GROUP BY {key_list} "
+                        f"ORDER BY {key_list}").fetchnumpy()
+    unit_x = np.asarray(units["x"], dtype=float)
+    unit_n = np.asarray(units["n"], dtype=float)
+    for c in cat_cols:
+        vals = np.asarray(units[c]).astype(str)
+        codes = np.searchsorted(np.asarray(levels_of[c]), vals)
+        covs.append(Covariate(c, "categorical", codes.astype(np.intp), levels_of[c]))
+    for c in num_cols:
+        covs.append(Covariate(c, "numeric", np.empty(0)))
+    covs_sorted = tuple(sorted(covs, key=lambda cv: cov_cols.index(cv.name)))
+    if tol is not None and rel:
+        tol = tol * (xmax - xmin)
+    info = {
+        "n": n, "x_min": xmin, "x_max": xmax,
+        "y_le0": int(row[5]), "y_eq0": int(row[6]), "y_lt0": int(row[7]),
+        "x_le0": int(row[8]), "x_eq0": int(row[9]), "x_lt0": int(row[10]),
+        "slog": float(row[11]), "slogabs": float(row[12]),
+        "num_mean": {c: float(row[13 + 2 * k + i]) for i, c in enumerate(num_cols)},
+        "x_values": x_values, "unit_x": unit_x, "unit_n": unit_n,
+        "cat_cols": cat_cols, "num_cols": num_cols,
+    }
+    import pandas as pd
+
+    study = SqlStudy(
+        con,
+        progress=progress,
+        _info=info,
+        source=source or Path(path).name,
+        report=CleaningReport(source or Path(path).name, n_read, n, drops),
+        y_name=y_col,
+        x_name=x_col,
+        y=np.empty(0),
+        x=np.empty(0),
+        covariates=covs_sorted,
+        weights=None,
+        weights_name=None,
+        tolerance=tol,
+        tolerance_text=None if tolerance is None else str(tolerance),
+    )
+    # x value → level code, for scans that group by level (spread test)
+    xmap = pd.DataFrame({"x": x_values, "code": study.x_codes_for_values(x_values)})
+    con.register("bw_xmap_df", xmap)
+    con.execute("CREATE TEMP TABLE bw_xmap AS SELECT * FROM bw_xmap_df")
+    study.prefetch()
+    return study
+
+
+def _x_codes_for_values(self: SqlStudy, values: np.ndarray) -> np.ndarray:
+    """Level code of each distinct x value (after any tolerance merge)."""
+    uniq = self._info["x_values"]
+    exact = np.searchsorted(uniq, values)
+    if self.approximate_groups:
+        return cluster_sorted(uniq, float(self.tolerance))[exact]  # type: ignore[arg-type]
+    return exact
+
+
+SqlStudy.x_codes_for_values = _x_codes_for_values  # type: ignore[attr-defined]
