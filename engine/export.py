@@ -379,8 +379,8 @@ def export_node(tree: RemedyTree, node_id: str, out_dir: str | Path, *, data_pat
     """
     import json
 
-    from .reproduce import script_text
     from .report import report_markdown
+    from .reproduce import script_text
 
     out = Path(out_dir)
     if data_path is not None and not Path(data_path).is_file():

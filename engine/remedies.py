@@ -147,7 +147,7 @@ def grid_group_stats(
 
 
 def profile_boxcox(
-    y: np.ndarray,
+    y: np.ndarray | None,
     codes: np.ndarray,
     c: int,
     design: Design,
@@ -360,8 +360,11 @@ def box_tidwell(study: Study, spec: ModelSpec, max_iter: int = 50) -> PowerSearc
 
 # ----- weights ------------------------------------------------------------------------
 
-def power_of_mean(study: Study, response: Transform) -> tuple[float, float, int] | None:
-    """θ̂ = slope of log s_j on log |mean_j| over replicated levels; returns (θ̂, p, levels)."""
+CONVENTIONAL_THETAS = (1.0, 0.5, 1.5, 2.0)
+
+
+def power_of_mean(study: Study, response: Transform) -> tuple[float, float, int, float] | None:
+    """θ̂ = slope of log s_j on log |mean_j| over replicated levels; returns (θ̂, p, levels, se)."""
     from .dist import t_sf2
 
     z, _ = study.transformed(response)
@@ -378,10 +381,10 @@ def power_of_mean(study: Study, response: Transform) -> tuple[float, float, int]
     resid = ly - ly.mean() - theta * xc
     dfr = int(ok.sum()) - 2
     if dfr <= 0:
-        return theta, math.nan, int(ok.sum())
+        return theta, math.nan, int(ok.sum()), math.nan
     se = math.sqrt(float((resid**2).sum()) / dfr / float((xc * xc).sum()))
     p = t_sf2(theta / se, dfr) if se > 0 else 0.0
-    return theta, p, int(ok.sum())
+    return theta, p, int(ok.sum()), se
 
 
 # ----- the tree -------------------------------------------------------------------------
@@ -588,17 +591,30 @@ class RemedyTree:
             if pm is None:
                 pruned.append(("weights", "needs at least 3 replicated levels with spread to fit a variance function"))
             else:
-                theta, p_theta, _ = pm
+                theta, p_theta, n_lv, se_theta = pm
+                # With few replicates per level the tests of equal spread have little power, so the
+                # move is offered whenever the spread trends with the mean (θ̂ ≥ ¼) or a test flags
+                # unequal spread; the criteria then decide, and a weighted node must beat the
+                # unweighted one by 2 AICc when it has as many parameters.
                 differ = (spread_p is not None and spread_p < 0.10) or (math.isfinite(p_theta) and p_theta < 0.10)
-                if not differ:
+                if not differ and abs(theta) < 0.25:
                     pruned.append(("weights", f"spreads do not differ across levels (Brown–Forsythe p = "
-                                   f"{_fp(spread_p)}, trend of SD with the mean p = {_fp(p_theta)})"))
+                                   f"{_fp(spread_p)}, trend of SD with the mean θ̂ = {theta:.2g}, p = {_fp(p_theta)})"))
                 elif abs(theta) < 0.1:
                     pruned.append(("weights", f"the spread does not follow the mean (θ̂ = {theta:.2g})"))
                 else:
-                    th = round(theta, 2)
-                    ok.append((f"weights ∝ mean^(−2θ), θ = {th:.3g} (approximate)",
-                               sp.with_(weights=WeightRule("power-of-mean", th)), {"theta": theta, "p": p_theta}))
+                    from .dist import t_ppf
+
+                    half = t_ppf(0.975, n_lv - 2) * se_theta if math.isfinite(se_theta) else math.inf
+                    inside = [v for v in CONVENTIONAL_THETAS if abs(v - theta) <= half]
+                    if inside:
+                        th, est = min(inside, key=lambda v: abs(v - theta)), False
+                    else:
+                        th, est = round(theta, 2), True
+                    how = "estimated" if est else f"θ̂ = {theta:.3g} ± {half:.2g}"
+                    ok.append((f"weights ∝ mean^(−2θ), θ = {th:.3g} ({how}; approximate)",
+                               sp.with_(weights=WeightRule("power-of-mean", th, est)),
+                               {"theta": theta, "theta_se": se_theta, "p": p_theta}))
         elif sp.weights is not None:
             pruned.append(("weights", "already weighted"))
         return ok, pruned
@@ -706,7 +722,8 @@ class RemedyTree:
                 chosen = min(cands, key=self.sort_key("bic"))
             else:
                 close = [n for n in cands if n.score.criteria.aicc is not None and n.score.criteria.aicc <= ba + 2.0]  # type: ignore[union-attr]
-                chosen = min(close, key=lambda n: (n.score.k, n.score.criteria.aicc, _order(n.id)))  # type: ignore[union-attr]
+                # fewer parameters first, then fewer moves from the straight line, then AICc
+                chosen = min(close, key=lambda n: (n.score.k, n.depth, n.score.criteria.aicc, _order(n.id)))  # type: ignore[union-attr]
         elif rule == "press":
             with_press = [n for n in cands if n.score.press is not None]  # type: ignore[union-attr]
             if not with_press:
@@ -728,7 +745,7 @@ class RemedyTree:
             d = root.criteria.aicc - s.criteria.aicc
             rs += f", AICc {abs(d):.1f} {'below' if d >= 0 else 'above'} the straight line"
         if rule == "aicc":
-            rs += "; simplest model within 2 AICc of the best passing candidate"
+            rs += "; the simplest passing model (fewest parameters, then fewest moves) within 2 AICc of the best"
         elif rule == "bic":
             rs += f"; lowest BIC ({s.criteria.bic:.1f}) among passing candidates"
         elif rule == "simplest":

@@ -143,6 +143,11 @@ def main():
               f"(SHA-256 {digest.hexdigest()[:12]}… expected {DATA_SHA256[:12]}…); comparing anyway",
               file=sys.stderr)
 
+    global np, pd, smf
+    import numpy as np
+    import pandas as pd
+    import statsmodels.formula.api as smf
+
     frame = read_table(data_path)
     needed = [RESPONSE, PREDICTOR, *ADMITTED_COVARIATES]
     if USER_WEIGHTS is not None:
@@ -198,7 +203,7 @@ def main():
     bad = []
     width = max(len(p) for p in PARAMETERS)
     print(f"  {'coefficient'.ljust(width)}  {'spec':>22}  {'refit':>22}  ok")
-    for name, entry in zip(PARAMETERS, coefs):
+    for name, entry in zip(PARAMETERS, coefs, strict=True):
         if name not in result.params.index:
             fail(f"MISMATCH: statsmodels has no coefficient {name!r} (it has {list(result.params.index)})", 1)
         ours, theirs = float(entry["estimate"]), float(result.params[name])
@@ -257,9 +262,7 @@ import json
 import sys
 from pathlib import Path
 
-import numpy as np
-import pandas as pd
-import statsmodels.formula.api as smf
+np = pd = smf = None  # numpy, pandas and statsmodels: imported once the files are found
 
 HERE = Path(__file__).resolve().parent
 DATA_FILE = {data_rel!r}  # relative to this script (None: read from standard input)

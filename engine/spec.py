@@ -20,14 +20,17 @@ class WeightRule:
     """'power-of-mean' (the only rule so far)."""
     theta: float
     """θ in Var(y) = σ² · mean^(2θ); weights are mean^(−2θ) per level."""
+    estimated: bool = True
+    """False when a conventional θ (½, 1, 1½, 2) inside the interval of θ̂ is used instead of θ̂."""
 
     def describe(self) -> str:
         """Human description."""
-        return f"w ∝ mean^(−2θ), θ = {self.theta:.3g} (estimated from level spreads; approximate)"
+        how = "estimated from level spreads" if self.estimated else "a conventional value consistent with the level spreads"
+        return f"w ∝ mean^(−2θ), θ = {self.theta:.3g} ({how}; approximate)"
 
     def as_json(self) -> dict:
         """JSON description."""
-        return {"kind": self.kind, "theta": self.theta, "estimated": True, "approximate": True}
+        return {"kind": self.kind, "theta": self.theta, "estimated": self.estimated, "approximate": True}
 
 
 @dataclass(frozen=True, slots=True)
@@ -67,7 +70,8 @@ class ModelSpec:
     @property
     def extra_params(self) -> int:
         """Estimated parameters beyond the coefficients and σ."""
-        return int(self.response_estimated) + int(self.predictor_estimated) + int(self.weights is not None)
+        return (int(self.response_estimated) + int(self.predictor_estimated)
+                + int(self.weights is not None and self.weights.estimated))
 
     def label(self, y: str = "y", x: str = "x") -> str:
         """Short label, e.g. 'log y ~ x + x²  + day'."""

@@ -151,6 +151,8 @@ def _num(v: Any, where: str, *, positive: bool = False, allow_none: bool = False
 
 
 def _int(v: Any, where: str, lo: int = 0, hi: int | None = None) -> int:
+    if isinstance(v, float) and v.is_integer():
+        v = int(v)  # JSON does not tell 16 from 16.0
     if isinstance(v, bool) or not isinstance(v, int):
         raise _fail(where, f"must be a whole number, not {type(v).__name__} {_show(v)}")
     if v < lo or (hi is not None and v > hi):
@@ -304,14 +306,15 @@ def validate_spec(doc: Any) -> HandedModel:
     rows = _list(fit.get("covariance"), "fit.covariance")
     if len(rows) != p:
         raise _fail("fit.covariance", f"must be {p}×{p}")
-    cov = np.empty((p, p))
+    cov_m = np.empty((p, p))
     for i, r in enumerate(rows):
         r = _list(r, f"fit.covariance[{i}]")
         if len(r) != p:
             raise _fail(f"fit.covariance[{i}]", f"must hold {p} numbers")
         for j, v in enumerate(r):
-            cov[i, j] = _num(v, f"fit.covariance[{i}][{j}]")  # type: ignore[assignment]
-    if not np.allclose(cov, cov.T, rtol=1e-8, atol=0) or (np.diag(cov) < 0).any():
+            cov_m[i, j] = _num(v, f"fit.covariance[{i}][{j}]")  # type: ignore[assignment]
+    diag = np.diag(cov_m)
+    if (diag < 0).any() or (np.abs(cov_m - cov_m.T) > 1e-8 * np.sqrt(np.outer(diag, diag))).any():
         raise _fail("fit.covariance", "is not a symmetric matrix with a non-negative diagonal")
     sigma = _num(fit.get("sigma"), "fit.sigma", positive=True)
     df = _int(fit.get("df_resid"), "fit.df_resid", 1)
@@ -344,7 +347,7 @@ def validate_spec(doc: Any) -> HandedModel:
         predictor=predictor,
         terms=tuple(terms),
         beta=beta,
-        cov=cov,
+        cov=cov_m,
         sigma=float(sigma),  # type: ignore[arg-type]
         df_resid=df,
         n=n,

@@ -188,6 +188,14 @@ class SqlStudy(Study):
                 return codes, values, level_labels(uniq, cluster)
         return exact.astype(np.intp), uniq, tuple(f"{v:.6g}" for v in uniq)
 
+    def x_codes_for_values(self, values: np.ndarray) -> np.ndarray:
+        """Level code of each distinct x value (after any tolerance merge)."""
+        uniq = self._info["x_values"]
+        exact = np.searchsorted(uniq, values)
+        if self.approximate_groups:
+            return cluster_sorted(uniq, float(self.tolerance))[exact]  # type: ignore[arg-type]
+        return exact
+
     def level_counts(self) -> np.ndarray:
         return np.bincount(self.x_codes, weights=self._info["unit_n"], minlength=self.c).astype(np.int64)
 
@@ -517,9 +525,9 @@ def make_sql_study(
             kinds[col] = "numeric"
             continue
         v, missing, non_num, _ = num_expr(col)
-        bad, present = con.execute(
+        bad, present = _one(con.execute(
             f"SELECT COUNT(*) FILTER (WHERE {non_num}), COUNT(*) FILTER (WHERE NOT {missing}) FROM {src}"
-        ).fetchone()
+        ))
         kinds[col] = "numeric" if (bad == 0 and present > 0) else "categorical"
 
     # first problem of each row, in the same order as the in-memory cleaning
@@ -533,7 +541,7 @@ def make_sql_study(
             checks += [(col, "missing", miss), (col, "non-numeric", non_num), (col, "non-finite", non_fin)]
         else:
             c = q(col)
-            checks.append((col, "missing", f"({c} IS NULL OR trim(CAST({c} AS VARCHAR)) = '')"))
+            checks.append((col, "missing", f"({c} IS NULL OR trim(CAST({c} AS VARCHAR)) IN ({na_list if as_text else lit('')}))"))
     case = "CASE " + " ".join(f"WHEN {cond} THEN {i}" for i, (_, _, cond) in enumerate(checks)) + " ELSE -1 END"
     if progress:
         progress("scanning rows: cleaning counts")
@@ -559,7 +567,7 @@ def make_sql_study(
     parts += [f"MIN({q(c)})" for c in num_cols]
     parts += [f"MAX({q(c)})" for c in num_cols]
     parts += [f"AVG({q(c)})" for c in num_cols]
-    row = con.execute(f"SELECT {', '.join(parts)} FROM bw_clean").fetchone()
+    row = _one(con.execute(f"SELECT {', '.join(parts)} FROM bw_clean"))
     n = int(row[0])
     if n < 3:
         raise DataError(f"only {n} usable row(s) after cleaning (need at least 3); "
@@ -639,13 +647,8 @@ def make_sql_study(
     return study
 
 
-def _x_codes_for_values(self: SqlStudy, values: np.ndarray) -> np.ndarray:
-    """Level code of each distinct x value (after any tolerance merge)."""
-    uniq = self._info["x_values"]
-    exact = np.searchsorted(uniq, values)
-    if self.approximate_groups:
-        return cluster_sorted(uniq, float(self.tolerance))[exact]  # type: ignore[arg-type]
-    return exact
-
-
-SqlStudy.x_codes_for_values = _x_codes_for_values  # type: ignore[attr-defined]
+def _one(cursor: Any) -> tuple:
+    row = cursor.fetchone()
+    if row is None:
+        raise DataError("the SQL engine returned no result; check the input files")
+    return tuple(row)

