@@ -147,29 +147,51 @@ def pure_error(study: Study) -> tuple[float, int]:
     return stats.ss_pure, stats.df_pure
 
 
-def spread_test(z: np.ndarray, codes: np.ndarray, c: int) -> SideTest:
-    """Brown–Forsythe test of equal spread: one-way ANOVA of |z − group median| (unweighted)."""
-    import pandas as pd
+def spread_test(z: np.ndarray, codes: np.ndarray, c: int, order: np.ndarray | None = None) -> SideTest:
+    """Brown–Forsythe test of equal spread: one-way ANOVA of |z − group median| (unweighted).
 
+    Levels with one row carry no spread and are left out (as scipy.stats.levene would need).
+    ``order`` (rows sorted by group, e.g. ``Study.group_order()``) saves a sort.
+    """
     name = "equal spread (Brown–Forsythe)"
     counts = np.bincount(codes, minlength=c)
     ok = counts >= 2
     if ok.sum() < 2:
         return SideTest(name, False, reason="needs at least two levels with two or more replicates")
-    med = pd.Series(z).groupby(codes).median().to_numpy()
-    d = np.abs(z - med[codes])
-    use = ok[codes]
-    d, cc = d[use], codes[use]
+    if order is None:
+        order = np.argsort(codes.astype(np.uint16) if c <= 65535 else codes.astype(np.int64), kind="stable")
+    zs = z[order]
+    ends = np.cumsum(counts)
+    starts = ends - counts
+    sums = np.zeros(c)
+    sq = np.zeros(c)
+    dsq = np.zeros(c)
+    if c <= 5000:
+        for g in np.flatnonzero(ok):
+            seg = zs[starts[g]:ends[g]]
+            dg = np.abs(seg - np.median(seg))
+            sums[g] = dg.sum()
+            dev = dg - sums[g] / counts[g]
+            sq[g] = np.einsum("i,i->", dev, dev)  # einsum: BLAS dot is slow on some OpenBLAS builds
+            dsq[g] = np.einsum("i,i->", dg, dg)
+    else:
+        import pandas as pd
+
+        med = pd.Series(zs).groupby(np.repeat(np.arange(c), counts)).median().to_numpy()
+        d = np.abs(zs - np.repeat(med, counts))
+        nz = counts > 0
+        sums[nz] = np.add.reduceat(d, starts[nz])
+        dev = d - np.repeat(np.divide(sums, counts, out=np.zeros(c), where=nz), counts)
+        sq[nz] = np.add.reduceat(dev * dev, starts[nz])
+        dsq[nz] = np.add.reduceat(d * d, starts[nz])
+    means = np.divide(sums, counts, out=np.zeros(c), where=counts > 0)
     nk = counts[ok].astype(float)
     k = int(ok.sum())
-    total = d.size
-    sums = np.bincount(cc, weights=d, minlength=c)[ok]
-    means = sums / nk
-    grand = d.mean()
-    ssb = float((nk * (means - grand) ** 2).sum())
-    dev = d - np.bincount(cc, weights=d, minlength=c)[cc] / counts[cc]
-    ssw = float((dev * dev).sum())
-    scale = float((d * d).sum())
+    total = float(nk.sum())
+    grand = float(sums[ok].sum() / total)
+    ssb = float((nk * (means[ok] - grand) ** 2).sum())
+    ssw = float(sq[ok].sum())
+    scale = float(dsq[ok].sum())
     if ssw <= 1e-12 * scale or scale == 0:
         # e.g. two rows per level: both deviations from the median are equal, so the within
         # sum of squares is 0 up to rounding and F would be a ratio of rounding noise

@@ -477,6 +477,10 @@ def make_sql_study(
     tol, rel = parse_tolerance(tolerance)
     src, as_text = _source_sql(path, dec, delimiter)
     con = duckdb.connect()
+    try:  # Parquet min/max omit NaN; without this DuckDB may fold isnan() to false (duckdb#25521)
+        con.execute("SET parquet_can_have_nan = true")
+    except duckdb.Error:
+        pass  # versions without the setting never assume a NaN-free column
     if memory_limit:
         con.execute(f"SET memory_limit = {lit(memory_limit)}")
     try:

@@ -143,7 +143,7 @@ class Study:
 
     def exact_replicates(self) -> bool:
         """True when some exact x value occurs more than once."""
-        return int(np.unique(self.x).size) < self.n
+        return int(self._cache["n_exact_x"]) < self.n
 
     def spread_by_level(self, z: np.ndarray | None, key: Any, w: np.ndarray | None) -> Any:
         """Brown–Forsythe across x levels of √w·z (cached by ``key``)."""
@@ -152,7 +152,7 @@ class Study:
         hit = self._cache.get(("spread", key))
         if hit is None:
             zz = z if w is None else np.sqrt(w) * z
-            hit = self._cache[("spread", key)] = spread_test(zz, self.x_codes, self.c)
+            hit = self._cache[("spread", key)] = spread_test(zz, self.x_codes, self.c, self.group_order(()))
         return hit
 
     def boxcox_stats(self, lams: np.ndarray, by: tuple[str, ...], bases: np.ndarray | None,
@@ -193,9 +193,14 @@ class Study:
     def _x_groups(self) -> tuple[np.ndarray, np.ndarray, tuple[str, ...]]:
         import pandas as pd
 
-        codes, uniques = pd.factorize(self.x, sort=True)
-        codes = codes.astype(np.intp)
-        uniq = np.asarray(uniques, dtype=float)
+        raw_codes, raw_uniques = pd.factorize(self.x, sort=False)
+        raw_u = np.asarray(raw_uniques, dtype=float)
+        rank = np.argsort(raw_u, kind="stable")
+        remap = np.empty(rank.size, dtype=np.intp)
+        remap[rank] = np.arange(rank.size)
+        codes = remap[raw_codes]
+        uniq = raw_u[rank]
+        self._cache["n_exact_x"] = int(uniq.size)
         if self.tolerance is not None and self.tolerance > 0 and uniq.size > 1:
             cluster = cluster_sorted(uniq, self.tolerance)
             k = int(cluster[-1])
@@ -296,7 +301,8 @@ class Study:
         hit = self._cache.get(key)
         if hit is None:
             codes, c = self.group_codes(by)
-            small = codes.astype(np.int32) if c < 2**31 else codes
+            # 16-bit keys sort by radix in O(n); wider keys fall back to a merge sort
+            small = codes.astype(np.uint16) if c <= 65535 else codes.astype(np.int64)
             hit = self._cache[key] = np.argsort(small, kind="stable")
         return hit
 

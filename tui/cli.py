@@ -60,7 +60,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     elif args_list[0] not in _COMMANDS and not args_list[0].startswith("-"):
         args_list = ["open", *args_list]  # `bendwise DATA ...` opens the app on a table
     parser = build_parser()
-    args = parser.parse_args(args_list)
+    try:
+        args = parser.parse_args(args_list)
+    except SystemExit as exc:  # usage errors (2) and --help (0) end here
+        return int(exc.code or 0) if isinstance(exc.code, int) else EXIT_USAGE
     if not getattr(args, "func", None):
         parser.print_help()
         return EXIT_USAGE
