@@ -223,7 +223,10 @@ def numeric_column(values, column: str) -> tuple[np.ndarray, np.ndarray, np.ndar
     missing = series.isna().to_numpy()
     if pd.api.types.is_bool_dtype(series.dtype):
         series = series.astype(float)
-    if pd.api.types.is_numeric_dtype(series.dtype):
+    if series.dtype == np.float64:
+        arr = series.to_numpy()  # no copy: the frame's own buffer (never written to)
+        non_numeric = np.zeros(arr.shape, dtype=bool)
+    elif pd.api.types.is_numeric_dtype(series.dtype):
         arr = series.to_numpy(dtype=float, na_value=np.nan)
         non_numeric = np.zeros(arr.shape, dtype=bool)
     else:

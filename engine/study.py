@@ -483,8 +483,9 @@ def make_study(
             f"only {n_used} usable row(s) after cleaning (need at least 3); "
             + ("; ".join(d.describe() for d in drops) if drops else "add data")
         )
-    yv = y_arr[keep]
-    xv = x_arr[keep]
+    all_kept = bool(keep.all())
+    yv = y_arr if all_kept else y_arr[keep]
+    xv = x_arr if all_kept else x_arr[keep]
     if np.ptp(xv) == 0:
         raise DataError(
             f"predictor {x_col!r} has one distinct value ({xv[0]:g}); a line needs at least 2 settings "
