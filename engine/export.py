@@ -29,6 +29,7 @@ from .specfile import SCHEMA_VERSION, validate_spec
 
 __all__ = [
     "EXPORT_FILES",
+    "ExportExists",
     "MAX_RESIDUALS",
     "build_spec",
     "describe_reading",
@@ -39,6 +40,12 @@ __all__ = [
 ]
 
 EXPORT_FILES = ("spec.json", "reproduce.py", "report.md")
+
+
+class ExportExists(UsageError):
+    """The target exists and ``force`` was not given (the app asks, then retries with force)."""
+
+
 MAX_RESIDUALS = 100_000
 """Largest smearing sample stored in a spec (evenly spaced rows beyond that)."""
 
@@ -279,7 +286,7 @@ def _node(tree: RemedyTree, node_id: str):
 
 def _refuse_existing(path: Path, force: bool, what: str) -> None:
     if path.exists() and not force:
-        raise UsageError(f"{path} already exists; choose another {what} or add --force to replace it")
+        raise ExportExists(f"{path} already exists; choose another {what} or add --force to replace it")
 
 
 def write_text_atomic(path: str | Path, text: str, *, force: bool = False) -> Path:
@@ -332,7 +339,7 @@ def _flatten(v) -> list:
 def _write_folder(out_dir: Path, files: dict[str, str], force: bool) -> list[Path]:
     if out_dir.exists():
         if not force:
-            raise UsageError(f"{out_dir} already exists; choose another folder or add --force to replace it")
+            raise ExportExists(f"{out_dir} already exists; choose another folder or add --force to replace it")
         if not out_dir.is_dir():
             raise UsageError(f"{out_dir} exists and is not a folder; choose a folder name")
         extra = sorted(p.name for p in out_dir.iterdir() if p.name not in EXPORT_FILES)

@@ -127,8 +127,8 @@ class NewInputs:
     """Numeric covariates as floats, categorical ones as category labels."""
     user_w: np.ndarray | None
     """User weights per row when the table has the model's weights column, else None."""
-    cov_text: dict[str, list[str]]
-    """Covariate values as given (for output rows)."""
+    cov_text: dict[str, list]
+    """Covariate values per row for output (numbers, or category labels)."""
 
 
 def _numeric(frame: pd.DataFrame, col: str, role: str) -> np.ndarray:
@@ -151,12 +151,12 @@ def new_inputs(model: HandedModel, frame: pd.DataFrame, role: str) -> NewInputs:
     col = resolve_column(frame, name, f"{label} column")
     values = _numeric(frame, col, label)
     covs: dict[str, np.ndarray] = {}
-    text: dict[str, list[str]] = {}
+    text: dict[str, list] = {}
     for cov in model.covariates:
         c = resolve_column(frame, cov.name, "covariate column")
         if cov.kind == "numeric":
             covs[cov.name] = _numeric(frame, c, "covariate")
-            text[cov.name] = [repr(float(v)) for v in covs[cov.name]]
+            text[cov.name] = [float(v) for v in covs[cov.name]]
         else:
             labels = frame[c].astype("string").str.strip()
             missing = (labels.isna() | (labels == "")).to_numpy(dtype=bool)
@@ -215,7 +215,7 @@ class ForwardPrediction:
     ci_of: str
     """'mean' or 'median' — what the confidence interval covers on the original scale."""
 
-    def rows(self, covs: dict[str, list[str]] | None = None) -> list[dict[str, Any]]:
+    def rows(self, covs: dict[str, list] | None = None) -> list[dict[str, Any]]:
         """One dict per row with plain floats (non-finite values become None)."""
         out = []
         for i in range(self.x.shape[0]):
@@ -255,6 +255,13 @@ def _t_values(model: HandedModel, x: np.ndarray, column: str) -> np.ndarray:
 def smear_mean(model: HandedModel, zhat: np.ndarray, w0: np.ndarray) -> np.ndarray:
     """Duan's smearing mean per row; NaN where some smeared value leaves the range of g⁻¹."""
     r = model.residuals
+    tr = model.response
+    if zhat.shape[0] == 0:
+        return np.empty(0)
+    if (tr.kind == "log" or (tr.kind == "boxcox" and tr.param == 0)) and np.all(w0 == w0[0]):
+        # exp(ẑ + e) = exp(ẑ)·exp(e): one smearing factor serves every row (same estimator, exact)
+        with np.errstate(over="ignore"):
+            return np.exp(zhat) * float(np.mean(np.exp(r / np.sqrt(w0[0]))))
     out = np.empty(zhat.shape[0])
     step = max(1, SMEAR_BLOCK // max(r.shape[0], 1))
     with np.errstate(all="ignore"):
@@ -292,6 +299,7 @@ def predict_forward(model: HandedModel, x: np.ndarray, covs: dict[str, np.ndarra
     with np.errstate(all="ignore"):
         median = np.asarray(tr.inverse(z), dtype=float)
     mean = median.copy() if tr.kind == "identity" else smear_mean(model, z, w0)
+    no_w_column = model.user_weights is not None and user_w is None
     notes: list[str | None] = []
     for i in range(x.shape[0]):
         parts = []
@@ -301,6 +309,8 @@ def predict_forward(model: HandedModel, x: np.ndarray, covs: dict[str, np.ndarra
             parts.append("smearing undefined: some smeared values leave the range of the back-transform")
         if np.isinf(pi_lo[i]) or np.isinf(pi_hi[i]) or np.isinf(ci_lo[i]) or np.isinf(ci_hi[i]):
             parts.append("an interval end is open (null): it runs to the edge of the response range")
+        if no_w_column:
+            parts.append(f"no {model.user_weights!r} column: a new observation is given weight 1")
         if not np.isfinite(w0[i]) or w0[i] <= 0:
             parts.append("the weight at this point is undefined (fitted mean 0): no prediction interval")
         notes.append("; ".join(parts) or None)

@@ -1,0 +1,173 @@
+"""``bendwise apply``: use a handed-on model on new data (predictions, or x from a response)."""
+
+from __future__ import annotations
+
+import argparse
+import math
+
+from ..output import emit_json, fmt_num
+from .common import CAUTION, table
+
+
+def _level(text: str) -> float:
+    try:
+        val = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"level {text!r} is not a number; give e.g. 0.95") from None
+    if not 0 < val < 1:
+        raise argparse.ArgumentTypeError(f"level {text!r} must lie strictly between 0 and 1, e.g. 0.95")
+    return val
+
+
+def _count(text: str) -> int:
+    try:
+        val = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"replicates {text!r} is not a whole number; give e.g. 3") from None
+    if val < 1:
+        raise argparse.ArgumentTypeError(f"replicates {text!r} must be at least 1")
+    return val
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    """Add the ``apply`` subcommand."""
+    p = sub.add_parser(
+        "apply",
+        help="predict from an exported model, or estimate x from measured responses",
+        description="Read SPEC (spec.json from bendwise export, or its folder) and NEWDATA. Without --inverse: "
+        "the mean response at each x with confidence and prediction intervals. With --inverse: the x that "
+        "fits each measured response, with its Fieller-type interval.",
+    )
+    p.add_argument("spec", metavar="SPEC", help="spec.json written by bendwise export (or the export folder)")
+    p.add_argument("newdata", metavar="NEWDATA", help="table with the predictor (or, with --inverse, the response) "
+                   "and any covariates the model uses; - for stdin")
+    p.add_argument("-o", "--out", metavar="OUT", help="also write the rows as CSV to OUT")
+    p.add_argument("--force", action="store_true", help="replace OUT if it exists")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--inverse", action="store_true", help="estimate x from response values")
+    p.add_argument("--replicates", type=_count, default=1, metavar="M",
+                   help="with --inverse: each response value is the mean of M readings (default 1)")
+    p.add_argument("--level", type=_level, default=0.95, help="confidence level of the intervals (default 0.95)")
+    p.add_argument("--sheet", metavar="NAME", help="Excel sheet of NEWDATA (default: the first)")
+    p.add_argument("--decimal", choices=[".", ","], help="decimal mark of NEWDATA (default .)")
+    p.add_argument("--delimiter", metavar="CHAR", help="field separator of NEWDATA (default: detected)")
+    p.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Load, check, compute, print."""
+    from engine import load_table
+    from engine.errors import UsageError
+    from engine.export import write_rows_csv
+    from engine.inverse import inverse_predict
+    from engine.predict import new_inputs, predict_forward
+    from engine.specfile import load_spec
+
+    if args.replicates != 1 and not args.inverse:
+        raise UsageError("--replicates applies to --inverse only (it says how many readings each response averages)")
+    doc, model = load_spec(args.spec)
+    delim = "\t" if args.delimiter in {"\\t", "tab", "TAB"} else args.delimiter
+    frame = load_table(args.newdata, sheet=args.sheet, decimal=args.decimal, delimiter=delim)
+    label = doc.get("node", {}).get("label", "") if isinstance(doc.get("node"), dict) else ""
+    if args.inverse:
+        inp = new_inputs(model, frame, "y")
+        results = inverse_predict(model, inp.values, replicates=args.replicates, covs=inp.covs,
+                                  level=args.level, user_w=inp.user_w)
+        rows = []
+        for i, r in enumerate(results):
+            row = {"row": i + 1, **r.as_json()}
+            for name, vals in inp.cov_text.items():
+                row[name] = vals[i]
+            rows.append(row)
+        text = _render_inverse(model, rows, args.level, label)
+    else:
+        inp = new_inputs(model, frame, "x")
+        pred = predict_forward(model, inp.values, inp.covs, level=args.level, user_w=inp.user_w)
+        rows = pred.rows(inp.cov_text)
+        text = _render_forward(model, rows, args.level, label, pred.ci_of)
+    if args.out:
+        path = write_rows_csv(rows, args.out, force=args.force)
+        if not args.json:
+            text.append(f"wrote {len(rows)} row(s) to {path}")
+    if args.json:
+        emit_json({
+            "mode": "inverse" if args.inverse else "forward",
+            "model": label,
+            "level": args.level,
+            "replicates": args.replicates if args.inverse else None,
+            "rows": rows,
+            "caution": CAUTION,
+        })
+    else:
+        print("\n".join(text))
+    return 0
+
+
+def _iv(lo, hi) -> str:
+    a = "−∞" if lo is None else fmt_num(lo, 5)
+    b = "∞" if hi is None else fmt_num(hi, 5)
+    return f"{a} … {b}"
+
+
+def _render_forward(model, rows: list[dict], level: float, label: str, ci_of: str) -> list[str]:
+    pct = f"{level * 100:g}%"
+    out = [f"bendwise apply · {label}", f"  {len(rows)} row(s); {pct} intervals; calibrated {model.predictor_name} "
+           f"{fmt_num(model.x_min, 6)} … {fmt_num(model.x_max, 6)}"]
+    transformed = model.response.kind != "identity"
+    names = [c.name for c in model.covariates]
+    header = [model.predictor_name, *names, "mean" if not transformed else "mean (smearing)"]
+    if transformed:
+        header.append("median")
+    header += [f"CI ({ci_of})", "prediction interval", "range"]
+    body = []
+    for r in rows[:200]:
+        line = [fmt_num(r["x"], 6), *[str(r[n]) for n in names], fmt_num(r["fit"], 6)]
+        if transformed:
+            line.append(fmt_num(r["median"], 6))
+        line += [_iv(r["ci_low"], r["ci_high"]), _iv(r["pi_low"], r["pi_high"]),
+                 "OUTSIDE" if r["outside_range"] else "inside"]
+        body.append(line)
+    out += table(body, header, right=set(range(len(header))) - {len(header) - 1})
+    if len(rows) > 200:
+        out.append(f"  … {len(rows) - 200} more row(s): use -o or --json")
+    notes = sorted({r["note"] for r in rows if r.get("note")})
+    out += [f"  note: {n}" for n in notes]
+    if any(r["outside_range"] for r in rows):
+        out.append("  OUTSIDE: x beyond the calibrated range — an extrapolation the data do not support")
+    out += ["", CAUTION]
+    return out
+
+
+def _render_inverse(model, rows: list[dict], level: float, label: str) -> list[str]:
+    pct = f"{level * 100:g}%"
+    out = [f"bendwise apply --inverse · {label}",
+           f"  {len(rows)} response value(s), each a mean of {rows[0]['replicates'] if rows else 1} reading(s); "
+           f"{pct} Fieller-type sets for {model.predictor_name}"]
+    names = [c.name for c in model.covariates]
+    line_model = model.is_line
+    header = [model.response_name, *names, f"{model.predictor_name} estimate"]
+    if line_model:
+        header.append("s_x0")
+    header += ["set", "kind", "range"]
+    body = []
+    for r in rows[:200]:
+        pieces = r["pieces"]
+        shown = " ∪ ".join(_iv(a, b) for a, b in pieces) if pieces else "empty"
+        rng = "—" if r["outside_range"] is None else ("OUTSIDE" if r["outside_range"] else "inside")
+        line = [fmt_num(r["y"], 6), *[str(r[n]) for n in names], fmt_num(r["x"], 6)]
+        if line_model:
+            line.append(fmt_num(r["s_x0"], 4))
+        line += [shown, r["interval"], rng]
+        body.append(line)
+    out += table(body, header, right={0, *range(1 + len(names), 2 + len(names) + int(line_model))})
+    if len(rows) > 200:
+        out.append(f"  … {len(rows) - 200} more row(s): use -o or --json")
+    notes = sorted({r["note"] for r in rows if r.get("note")})
+    out += [f"  note: {n}" for n in notes]
+    if any(r["interval"] != "finite" for r in rows):
+        out.append("  a set that is not a finite interval means the calibration cannot pin x down there")
+    g = rows[0].get("g") if rows else None
+    if g is not None and math.isfinite(g):
+        out.append(f"  g = t²·Var(slope)/slope² = {fmt_num(g, 3)} (finite intervals need g < 1)")
+    out += ["", CAUTION]
+    return out
