@@ -266,6 +266,15 @@ class Study:
         """
         key = ("stats", z_key, by, weights_key, bases_key, extremes)
         hit = self._cache.get(key)
+        if hit is None and level_weights is not None and self.weights is None:
+            # weights constant within x levels: scale the unweighted totals, no new pass
+            base = self.group_stats(z, z_key, by=by, bases=bases, bases_key=bases_key, extremes=extremes)
+            w_g = level_weights[self.group_parent(by)]
+            hit = GroupStats(base.n, base.count, base.wsum * w_g, base.mean, base.ss * w_g,
+                             float((base.count * np.log(w_g)).sum()), base.base_mean,
+                             None if base.cross is None else base.cross * w_g[:, None, None],
+                             base.zmin, base.zmax)
+            self._cache[key] = hit
         if hit is None:
             codes, c = self.group_codes(by)
             order = self.group_order(by) if extremes else None
@@ -380,7 +389,7 @@ def _is_numeric_like(series: pd.Series) -> bool:
 
     if pd.api.types.is_numeric_dtype(series.dtype) or pd.api.types.is_bool_dtype(series.dtype):
         return True
-    text = series.dropna().astype("string").str.strip()
+    text = pd.Series(pd.unique(series.dropna())).astype("string").str.strip()  # distinct values only
     text = text[text != ""]
     if text.empty:
         return False
@@ -454,10 +463,13 @@ def make_study(
         if _is_numeric_like(series):
             cov_raw.append((col, "numeric", numeric(col, "covariate")))
         else:
-            text = series.astype("string").str.strip()
-            missing = (text.isna() | (text == "")).to_numpy(dtype=bool)
+            # factorise first, then clean only the distinct labels (cheap on long tables)
+            raw_codes, raw_uniques = pd.factorize(series, use_na_sentinel=True)
+            labels = np.array([str(u).strip() for u in raw_uniques] + [""], dtype=object)
+            raw_codes = np.where(raw_codes < 0, len(labels) - 1, raw_codes)
+            missing = (labels == "")[raw_codes]
             account(col, "missing", missing)
-            cov_raw.append((col, "categorical", text))
+            cov_raw.append((col, "categorical", (raw_codes, labels)))
     w_arr = None
     if w_col is not None:
         w_all, w_missing, w_non_num, w_non_fin = numeric_column(frame[w_col], w_col)
@@ -504,8 +516,13 @@ def make_study(
                 )
             covs.append(Covariate(col, "numeric", vals))
         else:
-            text = raw[keep].astype(str)
-            codes, uniq = pd.factorize(text, sort=True)
+            raw_codes, labels = raw
+            kept = raw_codes if bool(keep.all()) else raw_codes[keep]
+            used = np.unique(kept)
+            uniq = np.array(sorted(set(labels[used])), dtype=object)
+            remap = np.zeros(len(labels), dtype=np.intp)
+            remap[used] = np.searchsorted(uniq, labels[used])
+            codes = remap[kept]
             if len(uniq) < 2:
                 raise DataError(
                     f"covariate {col!r} has one category ({uniq[0]!r}) in the rows used; it cannot explain "

@@ -104,7 +104,8 @@ def render(study, tree, rule: str) -> list[str]:
     def walk(nid: str, indent: str) -> None:
         n = tree.nodes[nid]
         label = n.spec.label("y", "x")
-        extra = f"  (also via {', '.join(i for i, _ in n.also_from)})" if n.also_from else ""
+        via = list(dict.fromkeys(i for i, _ in n.also_from))
+        extra = f"  (also via {', '.join(via)})" if via else ""
         head = "" if n.parent is None else f"{n.move} → "
         out.append(f"{indent}{n.id} [{verdict_word(tree, n)}] {head}{label}{extra}")
         for cid in n.children:
