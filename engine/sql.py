@@ -38,7 +38,7 @@ __all__ = ["SqlStudy", "make_sql_study", "aggregate_sql", "transform_sql", "choo
 # Text that pandas reads as missing by default; the SQL path treats it the same way.
 _NA_TEXT = ("", "#N/A", "#N/A N/A", "#NA", "-1.#IND", "-1.#QNAN", "-NaN", "-nan", "1.#IND", "1.#QNAN",
             "<NA>", "N/A", "NA", "NULL", "NaN", "None", "n/a", "nan", "null")
-BOXCOX_GRID = np.round(np.arange(-3.0, 3.0 + 1e-9, 0.1), 6)
+BOXCOX_GRID = np.round(np.arange(-3.0, 3.0 + 1e-9, 0.2), 6)  # the grid the tree uses (remedies.GRID_STEP)
 ProgressFn = Callable[[str], None]
 
 
