@@ -29,6 +29,9 @@ _EXCEL_SUFFIXES = {".xlsx", ".xlsm", ".xls"}
 _PARQUET_SUFFIXES = {".parquet", ".pq"}
 _JSONL_SUFFIXES = {".jsonl", ".ndjson", ".json"}
 _SHOW_ROWS = 5
+# Text read as a missing value (pandas' default list), for typed files that keep it as text too.
+NA_TEXT = ("", "#N/A", "#N/A N/A", "#NA", "-1.#IND", "-1.#QNAN", "-NaN", "-nan", "1.#IND", "1.#QNAN",
+           "<NA>", "N/A", "NA", "NULL", "NaN", "None", "n/a", "nan", "null")
 
 
 @dataclass(frozen=True, slots=True)
@@ -231,7 +234,7 @@ def numeric_column(values, column: str) -> tuple[np.ndarray, np.ndarray, np.ndar
         non_numeric = np.zeros(arr.shape, dtype=bool)
     else:
         text = series.astype("string").str.strip()
-        missing = missing | (text == "").fillna(False).to_numpy(dtype=bool)
+        missing = missing | text.isin(NA_TEXT).fillna(False).to_numpy(dtype=bool)
         coerced = pd.to_numeric(text.where(text != ""), errors="coerce")
         arr = coerced.to_numpy(dtype=float, na_value=np.nan)
         non_numeric = np.isnan(arr) & ~missing

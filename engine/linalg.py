@@ -99,7 +99,8 @@ def _within_rows(stats: GroupStats, design: Design) -> np.ndarray | None:
         m[a, r] = m[r, a] = v
     m[r, r] = float(stats.cross[:, q, q].sum())
     lam, vec = np.linalg.eigh(m)
-    keep = lam > lam.max() * 1e-15 * (r + 1) if lam.max() > 0 else np.zeros(r + 1, bool)
+    # directions below 1e-12 of the largest are rounding noise of the cross-products
+    keep = lam > lam.max() * 1e-12 * (r + 1) if lam.max() > 0 else np.zeros(r + 1, bool)
     factor = (np.sqrt(lam[keep])[:, None] * vec[:, keep].T)  # (k, r+1)
     rows = np.zeros((factor.shape[0], design.p + 1))
     rows[:, based] = factor[:, :r]

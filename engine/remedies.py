@@ -279,7 +279,7 @@ def box_tidwell(study: Study, spec: ModelSpec, max_iter: int = 50) -> PowerSearc
         raise UsageError("a power of x needs x > 0")
     fr = _frame(study, spec)
     stats = study.group_stats(fr.z, ("z", spec.response.key()), by=fr.by, weights=fr.w, weights_key=fr.wkey,
-                              bases=fr.bases, bases_key=fr.bases_key)
+                              bases=fr.bases, bases_key=fr.bases_key, level_weights=fr.w_level)
     xg = study.group_parent(fr.by)
     logx = np.log(x_lv)[xg]
 

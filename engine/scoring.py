@@ -471,11 +471,15 @@ def _row_diagnostics(study, spec, fr, stats, design, fit, big):
         emax = np.maximum(np.abs(stats.zmax - fitted), np.abs(stats.zmin - fitted))
         rmax = float(np.max(np.sqrt(wg) * emax / (sigma * np.sqrt(np.clip(1 - hg, 1e-300, None)))))
         if spec.response.kind == "identity":
-            resid = stats.mean - fitted
-            ss_unw = stats.ss / wg + stats.count * resid**2
-            press, note = float(np.sum(ss_unw / (1 - hg) ** 2)), None
+            if (1 - hg <= 1e-10).any():
+                note = "a row is fitted exactly (leverage 1): leave-one-out is undefined"
+            else:
+                resid = stats.mean - fitted
+                ss_unw = stats.ss / wg + stats.count * resid**2
+                press, note = float(np.sum(ss_unw / (1 - hg) ** 2)), None
     sp = study.spread_by_level(fr.z, (spec.response.key(), fr.wkey), fr.w)
-    reason = None if not spec.covariates else "computed on the response, not the residuals (large table)"
+    reason = (None if not (spec.covariates or study.approximate_groups)
+              else "computed on the response, not the residuals (no row pass here)")
     spread = SideTest(name, sp.testable, sp.statistic, sp.df, sp.p, sp.reason or reason)
     return press, note, rmax, spread
 

@@ -26,7 +26,7 @@ from typing import Any
 
 import numpy as np
 
-from .data import CleaningReport, DropCount, resolve_column
+from .data import NA_TEXT, CleaningReport, DropCount, resolve_column
 from .errors import DataError, UsageError
 from .groups import GroupStats
 from .results import SideTest
@@ -35,9 +35,7 @@ from .transforms import Transform
 
 __all__ = ["SqlStudy", "make_sql_study", "aggregate_sql", "transform_sql", "choose_engine", "BOXCOX_GRID"]
 
-# Text that pandas reads as missing by default; the SQL path treats it the same way.
-_NA_TEXT = ("", "#N/A", "#N/A N/A", "#NA", "-1.#IND", "-1.#QNAN", "-NaN", "-nan", "1.#IND", "1.#QNAN",
-            "<NA>", "N/A", "NA", "NULL", "NaN", "None", "n/a", "nan", "null")
+_NA_TEXT = NA_TEXT  # the same missing-value texts as the in-memory reader
 BOXCOX_GRID = np.round(np.arange(-3.0, 3.0 + 1e-9, 0.2), 6)  # the grid the tree uses (remedies.GRID_STEP)
 ProgressFn = Callable[[str], None]
 
@@ -283,8 +281,13 @@ class SqlStudy(Study):
         info = self._info
         keys = ["x", *info["cat_cols"]]
         nums = info["num_cols"]
-        zs = [transform_sql(t, "y") for t in todo]
-        sql = aggregate_sql("bw_clean", keys, nums, zs)
+        # Shift each response transform by its value at the mean of y (and covariates by their
+        # means, in bw_shifted) so the aggregates never carry a large offset; added back below.
+        y_ref = np.array([float(info["y_mean"])])
+        shifts = [float(np.asarray(t.forward(y_ref), dtype=float)[0]) for t in todo]
+        shifts = [v if math.isfinite(v) else 0.0 for v in shifts]
+        zs = [f"({transform_sql(t, 'y')} - {v!r})" for t, v in zip(todo, shifts, strict=True)]
+        sql = aggregate_sql("bw_shifted", keys, nums, zs)
         self._say(f"scanning {self.n:,} rows for {len(todo)} response transform(s)")
         res = self.con.execute(sql).fetchnumpy()
         self._say("")
@@ -292,7 +295,8 @@ class SqlStudy(Study):
         unit_n = np.asarray(res["n"], dtype=float)
         if unit_n.shape[0] != info["unit_n"].shape[0]:
             raise DataError("the data changed between scans (group count differs); run again")
-        bmean = np.column_stack([np.asarray(res[f"b{i}_m"], dtype=float) for i in range(nb)]) if nb else np.zeros((unit_n.size, 0))
+        bmean = np.column_stack([np.asarray(res[f"b{i}_m"], dtype=float) + info["num_mean"][nums[i]]
+                                 for i in range(nb)]) if nb else np.zeros((unit_n.size, 0))
         bb = np.zeros((unit_n.size, nb, nb))
         for i in range(nb):
             for j in range(i, nb):
@@ -303,11 +307,11 @@ class SqlStudy(Study):
             for i in range(nb):
                 zb[:, i] = np.nan_to_num(np.asarray(res[f"z{k}_b{i}"], dtype=float)) * unit_n
             self._moments[t.key()] = {
-                "mean": np.asarray(res[f"z{k}_m"], dtype=float),
+                "mean": np.asarray(res[f"z{k}_m"], dtype=float) + shifts[k],
                 "ss": np.nan_to_num(np.asarray(res[f"z{k}_v"], dtype=float)) * unit_n,
                 "zb": zb,
-                "lo": np.asarray(res[f"z{k}_lo"], dtype=float),
-                "hi": np.asarray(res[f"z{k}_hi"], dtype=float),
+                "lo": np.asarray(res[f"z{k}_lo"], dtype=float) + shifts[k],
+                "hi": np.asarray(res[f"z{k}_hi"], dtype=float) + shifts[k],
                 "bmean": bmean,
                 "bb": bb,
             }
@@ -415,8 +419,11 @@ class SqlStudy(Study):
         if hit is not None:
             return hit
         tkey, wkey = key
-        if wkey is not None:
-            hit = SideTest(name, False, reason="not computed for weighted models with the SQL engine")
+        if wkey is not None or tkey != ("identity", None):
+            # each response scale costs two more scans of the files; the untransformed response
+            # (what check reports) is computed, the others are declared unavailable
+            hit = SideTest(name, False, reason="computed for the untransformed, unweighted response only with "
+                           "the SQL engine (each other scale needs two more scans)")
             self._cache[("spread", key)] = hit
             return hit
         zsql = transform_sql(Transform(*tkey), "y")
@@ -571,6 +578,7 @@ def make_sql_study(
     parts += [f"MIN({q(c)})" for c in num_cols]
     parts += [f"MAX({q(c)})" for c in num_cols]
     parts += [f"AVG({q(c)})" for c in num_cols]
+    parts.append("AVG(y)")
     row = _one(con.execute(f"SELECT {', '.join(parts)} FROM bw_clean"))
     n = int(row[0])
     if n < 3:
@@ -622,6 +630,7 @@ def make_sql_study(
         "x_le0": int(row[8]), "x_eq0": int(row[9]), "x_lt0": int(row[10]),
         "slog": float(row[11]), "slogabs": float(row[12]),
         "num_mean": {c: float(row[13 + 2 * k + i]) for i, c in enumerate(num_cols)},
+        "y_mean": float(row[13 + 3 * k]),
         "x_values": x_values, "unit_x": unit_x, "unit_n": unit_n,
         "cat_cols": cat_cols, "num_cols": num_cols,
     }
@@ -647,6 +656,9 @@ def make_sql_study(
     xmap = pd.DataFrame({"x": x_values, "code": study.x_codes_for_values(x_values)})
     con.register("bw_xmap_df", xmap)
     con.execute("CREATE TEMP TABLE bw_xmap AS SELECT * FROM bw_xmap_df")
+    shifted = ["x", "y", *[q(c) for c in cat_cols]]
+    shifted += [f"({q(c)} - {info['num_mean'][c]!r}) AS {q(c)}" for c in num_cols]
+    con.execute(f"CREATE TEMP VIEW bw_shifted AS SELECT {', '.join(shifted)} FROM bw_clean")
     study.prefetch()
     return study
 

@@ -1,0 +1,295 @@
+"""Time the depth-2 remedy tree through DuckDB on a Parquet file larger than memory would like,
+against one GROUP BY query on the same file (the floor), and against the in-memory engine.
+
+Usage:
+    python bench/bench_sql.py                       # 10⁸ rows (several minutes), in-memory race at 10⁷
+    python bench/bench_sql.py --rows 3e7            # a smaller main run
+    python bench/bench_sql.py --quick               # 10⁶ rows, in-memory race at 10⁶: a smoke run
+    python bench/bench_sql.py --keep                # keep (and reuse) the generated files
+    python bench/bench_sql.py --profile             # also time every SQL scan of the tree
+    python bench/bench_sql.py --md /tmp/sql_bench_section.md
+
+Data (simulated, seeded, written with pyarrow one row group at a time so generation never holds
+more than one chunk): x at 50 levels; two numeric covariates varying within every level (t1, t2);
+y > 0, curved in x, spread growing with the mean, so every kind of move is offered (Box–Cox,
+Box–Tidwell, degree 2, covariates, x×covariate, power-of-mean weights).
+Files live in a temp folder (``$TMPDIR/bendwise-bench-sql``) and are deleted unless --keep.
+
+What is timed, each in its own Python subprocess (peak RSS from getrusage ru_maxrss):
+  floor     one DuckDB query: SELECT x, COUNT(*), SUM(y), SUM(y*y) … GROUP BY x on the file
+  sql tree  engine.sql.make_sql_study(file, covariates t1,t2) + RemedyTree(study).grow(2)
+  mem tree  pandas.read_parquet + engine.make_study + RemedyTree(study).grow(2)  (--memory-rows)
+Targets: sql tree ≤ 4 × floor in wall time; peak RSS of the sql tree < 2 GB.
+With --profile the sql tree child times every query DuckDB runs and lists the slowest.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+LEVELS = 50
+CHUNK = 1 << 20
+COVARIATES = ("t1", "t2")
+
+
+# ----------------------------------------------------------------------------- data
+
+
+def generate(path: Path, rows: int, seed: int = 0) -> None:
+    """Write ``rows`` rows to Parquet chunk by chunk (one row group per chunk)."""
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    rng = np.random.default_rng(seed)
+    settings = 1.0 + 0.5 * np.arange(LEVELS)
+    schema = pa.schema([("x", pa.float64()), ("y", pa.float64()), ("t1", pa.float64()), ("t2", pa.float64())])
+    tmp = path.with_suffix(".part")
+    with pq.ParquetWriter(tmp, schema, compression="snappy") as writer:
+        done = 0
+        while done < rows:
+            m = min(CHUNK, rows - done)
+            x = settings[rng.integers(0, LEVELS, size=m)]
+            t1 = rng.normal(20.0, 2.0, m)
+            t2 = rng.uniform(0.0, 1.0, m)
+            mu = 20 + 2 * x + 0.03 * x**2 + 0.5 * t1 - 3 * t2
+            y = mu + rng.normal(0.0, 0.03, m) * mu
+            writer.write_table(pa.table({"x": x, "y": y, "t1": t1, "t2": t2}, schema=schema), row_group_size=m)
+            done += m
+    tmp.rename(path)
+
+
+def data_file(folder: Path, rows: int) -> tuple[Path, float]:
+    path = folder / f"bench_{rows}.parquet"
+    if path.exists():
+        return path, 0.0
+    t0 = time.perf_counter()
+    generate(path, rows)
+    return path, time.perf_counter() - t0
+
+
+# ----------------------------------------------------------------------------- child processes
+
+
+def _child_floor(path: str) -> dict:
+    import duckdb
+
+    con = duckdb.connect()
+    t0 = time.perf_counter()
+    res = con.execute(
+        f"SELECT x, COUNT(*) AS n, SUM(y) AS s1, SUM(y * y) AS s2 FROM read_parquet('{path}') GROUP BY x"
+    ).fetchall()
+    return {"seconds": time.perf_counter() - t0, "groups": len(res)}
+
+
+class _TimedConnection:
+    """Wraps a DuckDB connection and times every query (for --profile)."""
+
+    def __init__(self, con, log: list) -> None:
+        self._con = con
+        self._log = log
+
+    def execute(self, sql: str, *args):
+        t0 = time.perf_counter()
+        out = self._con.execute(sql, *args)
+        self._log.append((time.perf_counter() - t0, " ".join(sql.split())[:150], sql.count("AVG(")))
+        return out
+
+    def __getattr__(self, name):
+        return getattr(self._con, name)
+
+
+def _child_sql_tree(path: str, profile: bool) -> dict:
+    import duckdb
+
+    log: list = []
+    if profile:
+        real = duckdb.connect
+        duckdb.connect = lambda *a, **k: _TimedConnection(real(*a, **k), log)  # type: ignore[assignment]
+    from engine.remedies import RemedyTree
+    from engine.sql import make_sql_study
+
+    t0 = time.perf_counter()
+    study = make_sql_study(path, y="y", x="x", covariates=list(COVARIATES))
+    t1 = time.perf_counter()
+    tree = RemedyTree(study)
+    tree.grow(2)
+    t2 = time.perf_counter()
+    out = {"study": t1 - t0, "grow": t2 - t1, "seconds": t2 - t0, "nodes": len(tree.nodes),
+           "suggested": tree.suggest().node, "levels": study.c, "n": study.n}
+    if profile:
+        out["queries"] = sorted(log, reverse=True)
+        out["query_total"] = sum(s for s, _, _ in log)
+    return out
+
+
+def _child_mem_tree(path: str) -> dict:
+    import pandas as pd
+
+    import engine
+    from engine.remedies import RemedyTree
+
+    t0 = time.perf_counter()
+    frame = pd.read_parquet(path)
+    t1 = time.perf_counter()
+    study = engine.make_study(frame, y="y", x="x", covariates=list(COVARIATES))
+    tree = RemedyTree(study)
+    tree.grow(2)
+    t2 = time.perf_counter()
+    return {"read": t1 - t0, "grow": t2 - t1, "seconds": t2 - t0, "nodes": len(tree.nodes),
+            "suggested": tree.suggest().node, "n": study.n}
+
+
+def child_main(argv: list[str]) -> None:
+    kind, path = argv[0], argv[1]
+    if kind == "floor":
+        out = _child_floor(path)
+    elif kind == "sql":
+        out = _child_sql_tree(path, profile="--profile" in argv)
+    else:
+        out = _child_mem_tree(path)
+    out["self_maxrss_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    sys.stdout.write("BENCH " + json.dumps(out) + "\n")
+
+
+def run_child(kind: str, path: Path, *extra: str) -> dict:
+    """Run one measurement in a fresh interpreter; wall time and its peak RSS."""
+    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    t0 = time.perf_counter()
+    proc = subprocess.run([sys.executable, __file__, "--child", kind, str(path), *extra],
+                          capture_output=True, text=True, cwd=ROOT)
+    wall = time.perf_counter() - t0
+    if proc.returncode != 0:
+        raise SystemExit(f"{kind} child failed:\n{proc.stderr[-3000:]}")
+    line = [ln for ln in proc.stdout.splitlines() if ln.startswith("BENCH ")][-1]
+    out = json.loads(line[6:])
+    out["wall"] = wall
+    after = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    # RUSAGE_CHILDREN is the largest child so far: exact for this child when it grew the max
+    out["children_maxrss_mb"] = after / 1024
+    out["rss_mb"] = out["self_maxrss_mb"] if after == before else after / 1024
+    return out
+
+
+# ----------------------------------------------------------------------------- report
+
+
+def _kind(sql: str, avgs: int) -> str:
+    if "MEDIAN(" in sql:
+        return "spread (median + deviations)"
+    if avgs > 20:
+        return "Box–Cox grid"
+    if sql.startswith('SELECT "x", COUNT(*) AS n, AVG('):
+        return "response moments"
+    return "study set-up (cleaning, ranges, levels)"
+
+
+def _gb(mb: float) -> str:
+    return f"{mb / 1024:.2f} GB" if mb >= 1024 else f"{mb:.0f} MB"
+
+
+def _rows(n: int) -> str:
+    exp = len(str(n)) - 1
+    return f"10^{exp}" if n == 10**exp else f"{n:.2e}".replace("e+0", "e")
+
+
+def main() -> None:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--rows", type=float, default=1e8, help="rows of the main file (default 1e8)")
+    p.add_argument("--memory-rows", type=float, default=1e7, help="rows of the in-memory race (default 1e7)")
+    p.add_argument("--quick", action="store_true", help="10⁶ rows everywhere: a smoke run")
+    p.add_argument("--keep", action="store_true", help="keep the generated files and reuse them next time")
+    p.add_argument("--profile", action="store_true", help="time every SQL query of the tree")
+    p.add_argument("--skip-memory", action="store_true", help="leave out the in-memory race")
+    p.add_argument("--md", metavar="FILE", help="also write the table as Markdown")
+    args = p.parse_args()
+    rows = int(1e6 if args.quick else args.rows)
+    mem_rows = int(1e6 if args.quick else args.memory_rows)
+    folder = Path(tempfile.gettempdir()) / "bendwise-bench-sql"
+    folder.mkdir(exist_ok=True)
+    made: list[Path] = []
+    lines: list[str] = []
+    try:
+        path, gen = data_file(folder, rows)
+        if gen:
+            made.append(path)
+        size = path.stat().st_size
+        print(f"data: {path} ({_rows(rows)} rows, {size / 2**30:.2f} GiB"
+              + (f", generated in {gen:.0f} s)" if gen else ", reused)"), flush=True)
+        floor = run_child("floor", path)
+        print(f"floor: {floor['wall']:.1f} s", flush=True)
+        sql = run_child("sql", path, *(["--profile"] if args.profile else []))
+        print(f"sql tree: {sql['wall']:.1f} s", flush=True)
+        # in-process times: interpreter and import start-up are not part of either job
+        ratio = sql["seconds"] / floor["seconds"]
+        table = [
+            ("DuckDB GROUP BY count/sum/sum² (floor)", rows, floor["wall"], floor["seconds"], floor["rss_mb"], ""),
+            ("DuckDB: make_sql_study + grow(2)", rows, sql["wall"], sql["seconds"], sql["rss_mb"],
+             f"{sql['nodes']} nodes; study {sql['study']:.1f} s, grow {sql['grow']:.1f} s"),
+        ]
+        if not args.skip_memory:
+            if mem_rows == rows:
+                mpath, msql = path, sql
+            else:
+                mpath, gen_m = data_file(folder, mem_rows)
+                if gen_m:
+                    made.append(mpath)
+                msql = run_child("sql", mpath)
+                table.append(("DuckDB: make_sql_study + grow(2)", mem_rows, msql["wall"], msql["seconds"],
+                              msql["rss_mb"], f"{msql['nodes']} nodes"))
+            mem = run_child("memory", mpath)
+            table.append(("memory: read_parquet + make_study + grow(2)", mem_rows, mem["wall"], mem["seconds"],
+                          mem["rss_mb"], f"{mem['nodes']} nodes; read {mem['read']:.1f} s, grow {mem['grow']:.1f} s"))
+        lines.append("| run | rows | process wall | in-process | peak RSS | notes |")
+        lines.append("|---|---:|---:|---:|---:|---|")
+        for name, n, wall, inside, rss, note in table:
+            lines.append(f"| {name} | {_rows(n)} | {wall:.1f} s | {inside:.1f} s | {_gb(rss)} | {note} |")
+        lines.append("")
+        lines.append(f"ratio sql tree / floor (in-process): {ratio:.0f}× (target ≤ 4×) — "
+                     f"{'met' if ratio <= 4 else 'missed'}; peak RSS {_gb(sql['rss_mb'])} (target < 2 GB) — "
+                     f"{'met' if sql['rss_mb'] < 2048 else 'missed'}")
+        if args.profile:
+            lines.append("")
+            kinds: dict[str, list[float]] = {}
+            for secs, text, avgs in sql["queries"]:
+                kinds.setdefault(_kind(text, avgs), []).append(secs)
+            lines.append("time by kind of scan: " + "; ".join(
+                f"{k} {sum(v):.0f} s in {len(v)}" for k, v in sorted(kinds.items(), key=lambda kv: -sum(kv[1]))))
+            lines.append("")
+            lines.append(f"slowest SQL queries of the tree ({sql['query_total']:.1f} s in {len(sql['queries'])} queries):")
+            lines.append("")
+            lines.append("| seconds | AVG() count | query (start) |")
+            lines.append("|---:|---:|---|")
+            for secs, text, avgs in sql["queries"][:10]:
+                lines.append(f"| {secs:.1f} | {avgs} | `{text[:110]}` |")
+        print()
+        print("\n".join(lines))
+        if args.md:
+            cmd = "python bench/bench_sql.py " + " ".join(sys.argv[1:])
+            head = [f"Command: `{cmd.strip()}` (machine: {os.cpu_count()} cores)", ""]
+            Path(args.md).write_text("\n".join(head + lines) + "\n")
+    finally:
+        if not args.keep:
+            for f in made:
+                f.unlink(missing_ok=True)
+            if not any(folder.iterdir()):
+                shutil.rmtree(folder, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    if len(sys.argv) > 1 and sys.argv[1] == "--child":
+        child_main(sys.argv[2:])
+    else:
+        main()
