@@ -1,1 +1,1 @@
-"""Part of the bendwise Textual app."""
+"""Screens of the bendwise app (imported lazily by the app, so the first frame stays light)."""

@@ -1,1 +1,1 @@
-"""Part of the bendwise Textual app."""
+"""Widgets of the bendwise app: the remedy tree, node detail, plotext charts, status line."""

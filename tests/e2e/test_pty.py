@@ -1,0 +1,141 @@
+"""The real console entry point in a pseudo-terminal at 80×24 (pexpect + pyte).
+
+Each step polls the emulated screen until a condition holds or a deadline passes (no fixed
+sleeps), and on failure prints the screen it saw.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import shutil
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+pexpect = pytest.importorskip("pexpect")
+pyte = pytest.importorskip("pyte")
+
+DOWN = "\x1b[B"
+ENTER = "\r"
+CTRL_U = "\x15"
+
+
+def _bendwise() -> str:
+    exe = Path(sys.executable).parent / "bendwise"
+    if exe.exists():
+        return str(exe)
+    found = shutil.which("bendwise")
+    if found is None:
+        pytest.skip("the bendwise console script is not installed (pip install -e .)")
+    return found
+
+
+class Terminal:
+    """A child process on a pty, its output fed to a pyte screen."""
+
+    def __init__(self, args: list[str], cwd: Path, env: dict[str, str], cols: int = 80, rows: int = 24) -> None:
+        self.screen = pyte.Screen(cols, rows)
+        self.stream = pyte.ByteStream(self.screen)
+        self.child = pexpect.spawn(args[0], args[1:], cwd=str(cwd), env=env, dimensions=(rows, cols))
+        self.child.delaybeforesend = None  # pexpect's default 50 ms pause before each send
+
+    def pump(self) -> None:
+        while True:
+            try:
+                data = self.child.read_nonblocking(65536, timeout=0.05)
+            except (pexpect.TIMEOUT, pexpect.EOF):
+                return
+            self.stream.feed(data)
+
+    @property
+    def text(self) -> str:
+        return "\n".join(self.screen.display)
+
+    def wait_for(self, check, what: str, timeout: float = 15.0) -> str:
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            self.pump()
+            if check(self.text):
+                return self.text
+        raise AssertionError(f"timed out waiting for {what}; the screen was:\n{self.text}")
+
+    def send(self, keys: str) -> None:
+        self.child.send(keys)
+
+    def close(self) -> None:
+        if self.child.isalive():
+            self.child.terminate(force=True)
+
+
+def _env(**extra: str) -> dict[str, str]:
+    env = {k: v for k, v in os.environ.items() if k not in {"NO_COLOR", "BENDWISE_PLAIN", "COLUMNS", "LINES"}}
+    env["TERM"] = "xterm-256color"
+    env.update(extra)
+    return env
+
+
+def _type_path(term: Terminal, target: Path) -> None:
+    """Clear the path field, type the path, check it arrived, then Enter."""
+    term.send(CTRL_U)
+    term.wait_for(lambda t: "bendwise-n" not in t, "the cleared path field")
+    term.send(str(target))
+    term.wait_for(lambda t: target.name in t, "the typed path")
+    term.send(ENTER)
+
+
+def test_demo_walk_export_quit(tmp_path):
+    started = time.monotonic()
+    term = Terminal([_bendwise(), "demo"], tmp_path, _env())
+    try:
+        screen = term.wait_for(lambda t: "Suggested (aicc" in t and "root" in t, "the grown tree", timeout=20)
+        assert "FAIL" in screen and "pass" in screen  # verdicts as words
+        assert "p-values after a search are optimistic" in screen
+        suggested = re.search(r"Suggested \(aicc, α 0\.05\): (n\d+)", screen).group(1)
+        # move down: the detail follows the cursor
+        term.send(DOWN)
+        term.wait_for(lambda t: "n1 log signal_mv" in t, "the detail of n1")
+        # jump to the suggestion and export it
+        term.send("n")
+        term.wait_for(lambda t: "SUGGESTED" in t, "the suggested node's detail")
+        target = tmp_path / "chosen.json"
+        term.send("e")
+        term.wait_for(lambda t: f"Export {suggested}" in t, "the export dialog")
+        _type_path(term, target)
+        term.wait_for(lambda t: target.exists() and "exported" in t, "the export notice")
+        doc = json.loads(target.read_text(encoding="utf-8"))
+        assert doc["id"] == suggested and doc["passes"] is True and "caution" in doc
+        # the same path again is not overwritten without a yes
+        term.send("e")
+        term.wait_for(lambda t: f"Export {suggested}" in t, "the export dialog again")
+        _type_path(term, target)
+        term.wait_for(lambda t: "Replace it?" in t, "the overwrite question")
+        term.send("n")
+        term.wait_for(lambda t: "kept as it was" in t, "the refusal notice")
+        term.send("q")
+        term.child.expect(pexpect.EOF, timeout=10)
+        term.child.close()
+        assert term.child.exitstatus == 0
+    finally:
+        term.close()
+    assert time.monotonic() - started < 30
+
+
+def test_linux_console_and_no_color(tmp_path):
+    """TERM=linux and NO_COLOR=1: words for verdicts, plain chart markers, no block glyphs."""
+    term = Terminal([_bendwise(), "demo"], tmp_path, _env(TERM="linux", NO_COLOR="1"))
+    try:
+        term.wait_for(lambda t: "Suggested (aicc" in t, "the grown tree", timeout=20)
+        term.send("3")  # the fitted-curve chart
+        screen = term.wait_for(lambda t: "fitted curve" in t and "*" in t, "the curve chart")
+        chart = screen[screen.index("Fitted curve"):]
+        assert not [ch for ch in chart if 0x2800 <= ord(ch) <= 0x28FF or 0x2596 <= ord(ch) <= 0x259F], chart
+        assert "•" in chart and "* fitted curve" in chart
+        assert "FAIL" in screen and "pass" in screen
+        term.send("q")
+        term.child.expect(pexpect.EOF, timeout=10)
+    finally:
+        term.close()

@@ -1,0 +1,67 @@
+"""Launching the app: data errors come BEFORE the app (one line, exit 2); the first frame
+imports no heavy library."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from tui.cli import main
+
+DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"
+
+
+@pytest.mark.parametrize(
+    ("argv", "needle"),
+    [
+        (["open", "no-such-file.csv", "-y", "a", "-x", "b"], "file not found"),
+        ([str(DATA), "-y", "signal", "-x", "conc_mg_l"], "did you mean 'signal_mv'"),
+        ([str(DATA), "-y", "standard_id", "-x", "conc_mg_l"], "not numeric"),
+        ([str(DATA), "-y", "signal_mv"], "give both -y and -x"),
+        ([str(DATA), "-y", "signal_mv", "-x", "conc_mg_l", "--covariates", "nope"], "covariate column 'nope'"),
+    ],
+)
+def test_data_errors_are_one_line_before_the_app(capsys, argv, needle):
+    assert main(argv) == 2
+    out, err = capsys.readouterr()
+    assert out == "" and err.count("\n") == 1 and needle in err and err.startswith("bendwise: error:")
+
+
+def test_depth_is_checked_by_the_parser(capsys):
+    assert main(["demo", "--depth", "9"]) == 2
+    assert "depth 9 is out of range" in capsys.readouterr().err
+
+
+def test_demo_without_datasets_is_one_clear_line(capsys, monkeypatch, tmp_path):
+    import tui.screens.data as data
+
+    monkeypatch.setattr(data, "datasets_dir", lambda: tmp_path / "datasets")
+    assert main(["demo"]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "demo data not found" in err
+
+
+def test_first_frame_imports_no_heavy_library():
+    """The app module, its screens and widgets load without pandas, scipy or statsmodels."""
+    code = (
+        "import sys\n"
+        "import tui.app, tui.screens.main, tui.screens.start, tui.screens.compare, tui.screens.help\n"
+        "import tui.widgets.detail, tui.widgets.charts, tui.widgets.status, tui.dialogs, tui.exporting\n"
+        "import tui.commands.open, tui.commands.demo\n"
+        "heavy = [m for m in ('pandas', 'scipy', 'statsmodels', 'plotext') if m in sys.modules]\n"
+        "print(','.join(heavy))\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
+                         cwd=Path(__file__).resolve().parents[2])
+    assert out.stdout.strip() == ""
+
+
+def test_make_app_defaults_to_the_demo():
+    from tui.app import make_app
+
+    app = make_app()
+    assert app.request.path.endswith("sensor_calibration.csv")
+    assert (app.request.y, app.request.x, app.request.covariates) == ("signal_mv", "conc_mg_l", ("run_day", "temp_c"))

@@ -1,0 +1,132 @@
+"""Export of the selected node: one function (tui.exporting.export_node), atomic, never
+overwriting without confirmation; and the dialog flow that uses it."""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import pytest
+
+from engine import load_table, make_study
+from engine.remedies import POST_SEARCH_CAUTION, RemedyTree
+from tui.app import make_app
+from tui.exporting import export_node
+
+DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"
+ARGS = dict(y="signal_mv", x="conc_mg_l", covariates=("run_day", "temp_c"))
+
+
+@pytest.fixture(scope="module")
+def tree() -> RemedyTree:
+    study = make_study(load_table(DATA), y="signal_mv", x="conc_mg_l", covariates=["run_day", "temp_c"],
+                       source=DATA.name)
+    t = RemedyTree(study)
+    t.grow(2)
+    return t
+
+
+def _same(a, b) -> bool:
+    """JSON round trip: NaN/inf become null, tuples lists."""
+    if isinstance(a, dict):
+        return a.keys() == b.keys() and all(_same(a[k], b[k]) for k in a)
+    if isinstance(a, (list, tuple)):
+        return len(a) == len(b) and all(_same(x, y) for x, y in zip(a, b, strict=True))
+    if isinstance(a, float) and not math.isfinite(a):
+        return b is None
+    return a == b
+
+
+def test_export_writes_the_node_json(tree, tmp_path):
+    out = export_node(tree, "n6", tmp_path / "n6.json")
+    doc = json.loads(out.read_text(encoding="utf-8"))
+    expect = tree.node_json(tree.nodes["n6"])
+    assert _same(expect, {k: doc[k] for k in expect})
+    assert doc["caution"] == POST_SEARCH_CAUTION and doc["alpha"] == tree.alpha
+    assert doc["response"] == "signal_mv" and doc["predictor"] == "conc_mg_l"
+    assert list(tmp_path.iterdir()) == [out]  # no temporary file left behind
+
+
+def test_export_never_overwrites_without_force(tree, tmp_path):
+    target = tmp_path / "model.json"
+    target.write_text("keep me", encoding="utf-8")
+    with pytest.raises(FileExistsError):
+        export_node(tree, "n6", target)
+    assert target.read_text(encoding="utf-8") == "keep me"
+    assert list(tmp_path.iterdir()) == [target]
+    export_node(tree, "n6", target, force=True)
+    assert json.loads(target.read_text(encoding="utf-8"))["id"] == "n6"
+
+
+def test_export_refuses_folders_and_missing_folders(tree, tmp_path):
+    with pytest.raises(IsADirectoryError):
+        export_node(tree, "n6", tmp_path)
+    with pytest.raises(FileNotFoundError):
+        export_node(tree, "n6", tmp_path / "no" / "such.json")
+    with pytest.raises(KeyError):
+        export_node(tree, "n999", tmp_path / "x.json")
+
+
+async def _ready(app, pilot):
+    await app.workers.wait_for_complete()
+    await pilot.pause()
+    await pilot.pause()
+
+
+async def test_export_dialog_writes_then_asks_before_replacing(tree, tmp_path):
+    from tui.dialogs import ConfirmDialog, ExportDialog
+    from tui.widgets.remedy_tree import RemedyTreeView
+
+    app = make_app(DATA, **ARGS, export_dir=tmp_path)
+    target = tmp_path / "chosen.json"
+    async with app.run_test(size=(80, 24)) as pilot:
+        await _ready(app, pilot)
+        view = app.screen.query_one(RemedyTreeView)
+        assert view.select_id("n6")
+        await pilot.pause()
+        await pilot.press("e")
+        await pilot.pause()
+        assert isinstance(app.screen, ExportDialog)
+        assert app.screen.query_one("#export-path").value == str(tmp_path / "bendwise-n6.json")
+        await pilot.press("ctrl+u", *str(target), "enter")
+        await pilot.pause()
+        doc = json.loads(target.read_text(encoding="utf-8"))
+        assert doc["id"] == "n6" and _same(tree.node_json(tree.nodes["n6"])["criteria"], doc["criteria"])
+        # the same path again, from another node: a question first; "n" keeps the file
+        view = app.screen.query_one(RemedyTreeView)
+        assert view.select_id("root")
+        await pilot.pause()
+        await pilot.press("e")
+        await pilot.pause()
+        await pilot.press("ctrl+u", *str(target), "enter")
+        await pilot.pause()
+        assert isinstance(app.screen, ConfirmDialog)
+        await pilot.press("n")
+        await pilot.pause()
+        assert json.loads(target.read_text(encoding="utf-8"))["id"] == "n6"
+        # and "y" replaces it
+        await pilot.press("e")
+        await pilot.pause()
+        await pilot.press("ctrl+u", *str(target), "enter")
+        await pilot.pause()
+        assert isinstance(app.screen, ConfirmDialog)
+        await pilot.press("y")
+        await pilot.pause()
+        assert json.loads(target.read_text(encoding="utf-8"))["id"] == "root"
+        assert sorted(p.name for p in tmp_path.iterdir()) == ["chosen.json"]
+
+
+async def test_export_dialog_escape_writes_nothing(tmp_path):
+    from tui.dialogs import ExportDialog
+
+    app = make_app(DATA, **ARGS, export_dir=tmp_path)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await _ready(app, pilot)
+        await pilot.press("e")
+        await pilot.pause()
+        assert isinstance(app.screen, ExportDialog)
+        await pilot.press("escape")
+        await pilot.pause()
+        assert not isinstance(app.screen, ExportDialog)
+    assert list(tmp_path.iterdir()) == []

@@ -1,0 +1,96 @@
+"""``bendwise open DATA`` (also ``bendwise DATA``): open the app on a table.
+
+The table is read and the chosen columns are checked BEFORE the app starts, so a data error
+is one line on stderr and exit status 2, never a flash of the app. Without -y/-x the app
+opens on a start screen to choose the columns.
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import os
+import sys
+
+from .common import add_data_args, alpha_arg, split_list
+
+__all__ = ["register", "run", "launch", "depth_arg"]
+
+
+def depth_arg(text: str) -> int:
+    """argparse type: moves from the straight line, 0 to 4."""
+    try:
+        val = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"depth {text!r} is not a whole number; give 0 to 4") from None
+    if not 0 <= val <= 4:
+        raise argparse.ArgumentTypeError(f"depth {val} is out of range; use 0 to 4")
+    return val
+
+
+def add_app_args(p: argparse.ArgumentParser) -> None:
+    """Options shared by ``open`` and ``demo``."""
+    p.add_argument("--depth", type=depth_arg, default=2, help="moves from the straight line to grow at start (default 2)")
+    p.add_argument("--alpha", type=alpha_arg, default=0.05, help="level of the lack-of-fit verdicts (default 0.05)")
+    p.add_argument("--rule", choices=("aicc", "bic", "simplest", "press"), default="aicc",
+                   help="suggestion rule (default aicc)")
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    """Add the ``open`` subcommand."""
+    p = sub.add_parser(
+        "open",
+        help="open the terminal app on a table (also: bendwise DATA)",
+        description="Walk the remedy tree of a table by keyboard. Without -y and -x a start screen lets you "
+        "choose the response, the predictor and the covariates.",
+    )
+    add_data_args(p, need_xy=False, covariates=True)
+    add_app_args(p)
+    p.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Check the data, then run the app."""
+    from engine.errors import UsageError
+
+    from ..screens.data import DataRequest, build_study, read_frame
+
+    req = DataRequest(args.data, args.y, args.x, tuple(split_list(args.covariates)), args.weights, args.tolerance,
+                      args.sheet, args.decimal, args.delimiter)
+    if bool(req.y) != bool(req.x):
+        raise UsageError("give both -y and -x, or neither (then choose them on the start screen)")
+    if req.covariates and not req.y:
+        raise UsageError("--covariates needs -y and -x; without them choose covariates on the start screen")
+    _say(f"reading {req.source}…")
+    frame = read_frame(req)
+    study = build_study(req, frame) if req.y else None
+    return launch(req, study=study, frame=None if study is not None else frame, depth=args.depth, alpha=args.alpha,
+                  rule=args.rule)
+
+
+def _say(text: str) -> None:
+    if sys.stderr.isatty():
+        sys.stderr.write(f"\r{text}")
+        sys.stderr.flush()
+
+
+def launch(req, **kwargs) -> int:
+    """Run the app; if an engine step is still running at quit, leave without waiting for it."""
+    from ..app import make_app
+
+    app = make_app(request=req, **kwargs)
+    _say("\r" + " " * 60 + "\r")
+    # The UI thread needs the GIL for many short turns per key press while a worker scores;
+    # a shorter switch interval (default 5 ms) hands it over sooner.
+    sys.setswitchinterval(0.001)
+    loop = asyncio.new_event_loop()
+    code = app.run(loop=loop)
+    # Worker threads only compute (the engine checks the cancel flag between nodes); one node of
+    # a large table can take seconds, and quitting must not wait for it.
+    if any(not w.is_finished for w in app.workers):
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(int(app.return_code or 0))
+    loop.run_until_complete(loop.shutdown_default_executor())
+    loop.close()
+    return int(code or app.return_code or 0)

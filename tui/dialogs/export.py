@@ -1,0 +1,52 @@
+"""Ask where to export the selected node. Returns the path typed (None: cancelled)."""
+
+from __future__ import annotations
+
+from typing import ClassVar
+
+from textual import on
+from textual.app import ComposeResult
+from textual.binding import Binding, BindingType
+from textual.containers import Vertical
+from textual.screen import ModalScreen
+from textual.widgets import Input, Label, Static
+
+__all__ = ["ExportDialog"]
+
+
+class ExportDialog(ModalScreen[str | None]):
+    """Type a file path; Enter exports (an existing file is only replaced after a yes)."""
+
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("escape", "cancel", "Cancel", id="export.cancel", tooltip="Do not export"),
+    ]
+
+    def __init__(self, node_id: str, label: str, default: str) -> None:
+        super().__init__()
+        self.node_id = node_id
+        self.label = label
+        self.default = default
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="dialog"):
+            yield Label(f"Export {self.node_id}: {self.label}", classes="dialog-title")
+            yield Input(value=self.default, id="export-path")
+            yield Static("", id="export-error", classes="dialog-error")
+            yield Static("Writes the node as JSON. Enter = export   Esc = cancel   ctrl+u = clear the path",
+                         classes="dialog-keys")
+
+    def on_mount(self) -> None:
+        inp = self.query_one(Input)
+        inp.cursor_blink = False
+        inp.focus()
+
+    @on(Input.Submitted, "#export-path")
+    def _submitted(self, event: Input.Submitted) -> None:
+        path = event.value.strip()
+        if not path:
+            self.query_one("#export-error", Static).update("give a file path, e.g. model.json")
+            return
+        self.dismiss(path)
+
+    def action_cancel(self) -> None:
+        self.dismiss(None)

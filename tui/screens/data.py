@@ -1,0 +1,85 @@
+"""What to open and how to read it; the engine calls the screens make from their workers.
+
+No Textual imports and no pandas at import time: these run in worker threads (or in the
+CLI before the app starts, so that data errors are one line and exit 2).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from engine.study import Study
+
+__all__ = ["DataRequest", "read_frame", "build_study", "demo_request", "datasets_dir"]
+
+
+@dataclass(frozen=True, slots=True)
+class DataRequest:
+    """The table and the columns of one analysis (as typed on the command line)."""
+
+    path: str
+    """Table file, or '-' for standard input."""
+    y: str | None = None
+    """Response column (None: choose on the start screen)."""
+    x: str | None = None
+    """Predictor column."""
+    covariates: tuple[str, ...] = ()
+    """Columns the tree may add."""
+    weights: str | None = None
+    """Column of positive weights."""
+    tolerance: str | None = None
+    """Merge settings closer than this."""
+    sheet: str | None = None
+    """Excel sheet."""
+    decimal: str | None = None
+    """Decimal mark of text files."""
+    delimiter: str | None = None
+    """Field separator of text files."""
+
+    @property
+    def source(self) -> str:
+        """Name shown to the user."""
+        return "<stdin>" if self.path == "-" else Path(self.path).name
+
+    def choose(self, y: str, x: str, covariates: tuple[str, ...]) -> DataRequest:
+        """Copy with the columns picked on the start screen."""
+        return replace(self, y=y, x=x, covariates=covariates)
+
+
+def datasets_dir() -> Path:
+    """The bundled demo data, next to the installed packages."""
+    import tui
+
+    return Path(tui.__file__).resolve().parent.parent / "datasets"
+
+
+def demo_request() -> DataRequest:
+    """The main demo: sensor calibration with two candidate covariates."""
+    path = datasets_dir() / "sensor_calibration.csv"
+    return DataRequest(str(path), "signal_mv", "conc_mg_l", ("run_day", "temp_c"))
+
+
+def read_frame(req: DataRequest) -> Any:
+    """The table as a DataFrame (``engine.load_table``; raises DataError with one line)."""
+    from engine import load_table
+
+    delim = req.delimiter
+    if delim in {"\\t", "tab", "TAB"}:
+        delim = "\t"
+    return load_table(req.path, sheet=req.sheet, decimal=req.decimal, delimiter=delim)
+
+
+def build_study(req: DataRequest, frame: Any = None) -> Study:
+    """Clean the chosen columns into a Study (raises BendwiseError with one line)."""
+    from engine import make_study
+    from engine.errors import UsageError
+
+    if not req.y or not req.x:
+        raise UsageError("choose a response and a predictor column")
+    if frame is None:
+        frame = read_frame(req)
+    return make_study(frame, y=req.y, x=req.x, covariates=list(req.covariates), weights=req.weights,
+                      tolerance=req.tolerance, source=req.source)

@@ -1,0 +1,103 @@
+"""Words and numbers for the screens: engine results in, rich Text out (no arithmetic).
+
+Meaning never rides on colour alone: every verdict has a word, every mark a letter or
+symbol that also reads in monochrome.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from typing import Any
+
+from rich.text import Text
+
+from ..output import fmt_num, fmt_p
+
+__all__ = [
+    "fmt_num",
+    "fmt_p",
+    "plain_glyphs",
+    "glyph",
+    "verdict_word",
+    "verdict_sentence",
+    "tree_label",
+    "test_words",
+    "VERDICT_STYLE",
+]
+
+VERDICT_STYLE = {"pass": "bold green", "FAIL": "bold red", "untestable": "bold yellow", "error": "bold magenta"}
+
+
+def plain_glyphs() -> bool:
+    """True on terminals whose fonts lack block/braille glyphs (the Linux console)."""
+    return os.environ.get("TERM", "") == "linux" or bool(os.environ.get("BENDWISE_PLAIN"))
+
+
+def glyph(fancy: str, plain: str) -> str:
+    """``fancy`` normally, ``plain`` on the Linux console."""
+    return plain if plain_glyphs() else fancy
+
+
+def verdict_word(json: dict, alpha: float) -> str:
+    """'pass', 'FAIL', 'untestable' or 'error' for a node's lack of fit at α."""
+    if json.get("k") is None:
+        return "error"
+    lof = json["lack_of_fit"]
+    if not lof.get("testable") or lof.get("p") is None:
+        return "untestable"
+    return "pass" if lof["p"] >= alpha else "FAIL"
+
+
+def test_words(t: dict | None) -> str:
+    """A test from its JSON: 'F = 0.37 on 5 and 16 df, p = 0.866' or the reason it is missing."""
+    if t is None:
+        return "—"
+    if not t.get("testable", "f" in t):
+        return f"not testable: {t.get('reason') or 'no reason given'}"
+    df1 = t.get("df_lack", t.get("df_num"))
+    df2 = t.get("df_pure", t.get("df_den"))
+    approx = ", approximate" if t.get("approximate") else ""
+    p = fmt_p(t.get("p"))
+    return f"F = {fmt_num(t.get('f'), 4)} on {df1} and {df2} df, p {p if p.startswith('<') else '= ' + p}{approx}"
+
+
+def verdict_sentence(json: dict, alpha: float) -> Text:
+    """One line in words: PASS/FAIL/UNTESTABLE with the test behind it."""
+    word = verdict_word(json, alpha)
+    style = VERDICT_STYLE[word]
+    if word == "error":
+        return Text.assemble(("ERROR", style), f" — this model could not be scored: {json.get('error')}")
+    lof = json["lack_of_fit"]
+    kind = lof.get("kind", "lack of fit")
+    if word == "untestable":
+        return Text.assemble(("UNTESTABLE", style), f" — lack of fit ({kind}) cannot be tested: {lof.get('reason')}")
+    if word == "pass":
+        return Text.assemble(("PASS", style), f" — no evidence of lack of fit at α = {alpha:g} ({kind}: {test_words(lof)})")
+    return Text.assemble(("FAIL", style), f" — lack of fit at α = {alpha:g}: the curve misses the level means "
+                         f"by more than the replicates scatter ({kind}: {test_words(lof)})")
+
+
+def tree_label(node: Any, json: dict, alpha: float, *, suggested: bool, marked: bool) -> Text:
+    """'*n6   pass y ~ x + x²' — mark (* suggested, = marked), id, verdict word, short model label."""
+    word = verdict_word(json, alpha)
+    lead = "*" if suggested else ("=" if marked else " ")
+    text = Text.assemble(
+        (lead, "bold"),
+        (f"{node.id:<4} ", "bold" if suggested else ""),
+        (f"{word:<4}", VERDICT_STYLE[word]),
+        " ",
+        node.spec.label("y", "x"),
+    )
+    if suggested and marked:
+        text.append(" (marked)", "bold")
+    return text
+
+
+def num(v: float | None, digits: int = 4) -> str:
+    """A number for a table cell ('—' when missing or not finite)."""
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
+        return "—"
+    if 10**digits <= abs(v) < 1e9:
+        return f"{v:.0f}"  # 882773 reads better than 8.8277e+05 in a narrow table
+    return fmt_num(v, digits)

@@ -1,0 +1,93 @@
+"""Always-visible status: the suggested node, the post-search caution, and progress."""
+
+from __future__ import annotations
+
+from rich.console import RenderableType
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.containers import Horizontal, Vertical
+from textual.renderables.bar import Bar as BarRenderable
+from textual.widgets import Label, ProgressBar, Static
+
+from .formatting import glyph, plain_glyphs
+
+__all__ = ["StatusPanel", "CautionLine", "PlainProgressBar"]
+
+
+class _PlainBar(BarRenderable):
+    """'#####-----' for fonts without the thin bar glyphs (and for monochrome)."""
+
+    def __rich_console__(self, console, options):  # type: ignore[override]
+        width = self.width or options.max_width
+        start, end = self.highlight_range
+        start, end = max(int(start), 0), min(int(end), width)
+        yield Text("-" * start + "#" * max(end - start, 0) + "-" * max(width - max(end, start), 0), end="")
+
+
+class PlainProgressBar(ProgressBar):
+    """ProgressBar drawn with ASCII on the Linux console."""
+
+    BAR_RENDERABLE = _PlainBar
+
+
+class CautionLine(Static):
+    """POST_SEARCH_CAUTION: in full when it fits, else its first clause and a pointer to help."""
+
+    def __init__(self, caution: str, *, id: str | None = None) -> None:
+        super().__init__(id=id)
+        self._caution = caution
+
+    def render(self) -> RenderableType:
+        mark = glyph("⚠ ", "! ")
+        full = f"{mark}{self._caution}"
+        if len(full) <= self.size.width or self.size.width == 0:
+            return Text(full)
+        head = self._caution.split(":")[0]
+        return Text(f"{mark}{head} — treat them as descriptive (? for more)")
+
+
+class StatusPanel(Vertical):
+    """Suggestion line, caution line and (while working) a progress row with a cancel hint."""
+
+    DEFAULT_CSS = """
+    StatusPanel { height: auto; }
+    StatusPanel > #suggestion { height: 1; text-overflow: ellipsis; text-wrap: nowrap; }
+    StatusPanel > CautionLine { height: 1; text-wrap: nowrap; text-overflow: ellipsis; }
+    StatusPanel > #progress-row { height: 1; display: none; }
+    StatusPanel > #progress-row.-busy { display: block; }
+    StatusPanel #progress-label { width: 1fr; text-wrap: nowrap; text-overflow: ellipsis; }
+    StatusPanel ProgressBar { width: auto; }
+    """
+
+    def __init__(self, caution: str, *, id: str | None = None) -> None:
+        super().__init__(id=id)
+        self._caution = caution
+
+    def compose(self) -> ComposeResult:
+        yield Static("Suggested: growing the tree…", id="suggestion")
+        yield CautionLine(self._caution, id="caution")
+        with Horizontal(id="progress-row"):
+            bar_cls = PlainProgressBar if plain_glyphs() else ProgressBar
+            yield bar_cls(total=None, show_eta=False, id="progress-bar")
+            yield Label("", id="progress-label")
+
+    def set_suggestion(self, text: Text | str) -> None:
+        """Replace the suggestion line."""
+        self.query_one("#suggestion", Static).update(text)
+
+    def busy(self, label: str, done: int | None = None, total: int | None = None) -> None:
+        """Show the progress row (indeterminate when ``total`` is None)."""
+        self.query_one("#progress-row").add_class("-busy")
+        bar = self.query_one("#progress-bar", ProgressBar)
+        bar.update(total=total, progress=done or 0)
+        # one fixed line: no need to lay the screen out again for each progress message
+        self.query_one("#progress-label", Label).update(f" Esc cancels · {label}", layout=False)
+
+    def idle(self) -> None:
+        """Hide the progress row."""
+        self.query_one("#progress-row").remove_class("-busy")
+
+    @property
+    def is_busy(self) -> bool:
+        """True while the progress row is shown."""
+        return self.query_one("#progress-row").has_class("-busy")
