@@ -1,18 +1,14 @@
-"""Export the selected node. For now: the node's JSON (``RemedyTree.node_json``).
+"""Export the selected node from the app: the same spec folder ``bendwise export`` writes.
 
-The export issue will swap in a spec writer; the app calls only :func:`export_node`, so the
-replacement happens here and nowhere else. No Textual imports: tests call it directly.
+One function, :func:`export_node`, wraps :func:`engine.export.export_node` (spec.json,
+reproduce.py, report.md, written atomically into a new folder) and turns its refusals into the
+exceptions the app's dialogs understand. No Textual imports: tests call it directly.
 """
 
 from __future__ import annotations
 
-import json
-import os
-import tempfile
 from pathlib import Path
-from typing import TYPE_CHECKING
-
-from .output import _clean
+from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
     from engine.remedies import RemedyTree
@@ -20,64 +16,38 @@ if TYPE_CHECKING:
 __all__ = ["export_node", "default_export_name"]
 
 
-def _umask() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
-
-
 def default_export_name(node_id: str) -> str:
-    """File name offered in the export dialog."""
-    return f"bendwise-{node_id}.json"
+    """Folder name offered in the export dialog."""
+    return f"bendwise-{node_id}"
 
 
-def export_node(tree: RemedyTree, node_id: str, path: str | Path, force: bool = False) -> Path:
-    """Write the node's JSON to ``path`` atomically and return the resolved path.
+def export_node(tree: RemedyTree, node_id: str, path: str | Path, force: bool = False, *,
+                data_path: str | Path | None = None, reading: dict[str, Any] | None = None) -> Path:
+    """Write the node's spec folder at ``path`` and return it (resolved).
 
-    Raises ``FileExistsError`` when the file exists and ``force`` is false (the app then asks
-    for confirmation), ``IsADirectoryError`` for a folder, ``FileNotFoundError`` when the
-    folder does not exist, ``KeyError`` for an unknown node. The file is written to a
-    temporary name in the same folder and moved into place, so a reader never sees half a
-    file; without ``force`` the move refuses to replace a file that appeared meanwhile.
+    Raises ``FileExistsError`` when ``path`` exists and ``force`` is false (the app then asks for
+    confirmation; with ``force`` only an earlier export folder is replaced), ``FileNotFoundError``
+    when the parent folder does not exist, ``KeyError`` for an unknown node and ``ValueError``
+    when the engine refuses the node (e.g. collinear terms), with its one-line reason.
     """
-    from engine.remedies import POST_SEARCH_CAUTION
+    from engine.errors import BendwiseError
+    from engine.export import ExportExists, describe_reading
+    from engine.export import export_node as write_export
 
+    if node_id not in tree.nodes:
+        raise KeyError(node_id)
     target = Path(path).expanduser()
-    if target.is_dir():
-        raise IsADirectoryError(f"{target} is a folder; give a file name, e.g. {target / default_export_name(node_id)}")
     if not target.parent.is_dir():
         raise FileNotFoundError(f"folder {target.parent} does not exist; create it first or choose another path")
     if target.exists() and not force:
         raise FileExistsError(f"{target} exists; confirm to replace it")
-    node = tree.nodes[node_id]
-    doc = dict(tree.node_json(node))
-    doc["alpha"] = tree.alpha
-    doc["source"] = tree.study.source
-    doc["response"] = tree.study.y_name
-    doc["predictor"] = tree.study.x_name
-    doc["caution"] = POST_SEARCH_CAUTION
-    text = json.dumps(_clean(doc), indent=2, allow_nan=False, ensure_ascii=False) + "\n"
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
+    if data_path is not None and str(data_path) != "-" and reading is None:
+        reading = describe_reading(data_path)
     try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the file the usual mode
-        if force:
-            os.replace(tmp, target)
-        else:
-            try:
-                os.link(tmp, target)  # fails if the name exists: never clobbers
-            except FileExistsError:
-                raise FileExistsError(f"{target} exists; confirm to replace it") from None
-            except OSError:
-                if target.exists():
-                    raise FileExistsError(f"{target} exists; confirm to replace it") from None
-                os.replace(tmp, target)  # file systems without hard links
-            else:
-                os.unlink(tmp)
-    finally:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
+        write_export(tree, node_id, target, data_path=None if str(data_path) == "-" else data_path,
+                     reading=reading, force=force)
+    except ExportExists as exc:
+        raise FileExistsError(str(exc)) from None
+    except BendwiseError as exc:
+        raise ValueError(str(exc)) from None
     return target.resolve()

@@ -101,13 +101,15 @@ def test_demo_walk_export_quit(tmp_path):
         # jump to the suggestion and export it
         term.send("n")
         term.wait_for(lambda t: "SUGGESTED" in t, "the suggested node's detail")
-        target = tmp_path / "chosen.json"
+        target = tmp_path / "chosen"
         term.send("e")
         term.wait_for(lambda t: f"Export {suggested}" in t, "the export dialog")
         _type_path(term, target)
-        term.wait_for(lambda t: target.exists() and "exported" in t, "the export notice")
-        doc = json.loads(target.read_text(encoding="utf-8"))
-        assert doc["id"] == suggested and doc["passes"] is True and "caution" in doc
+        term.wait_for(lambda t: (target / "spec.json").exists() and "exported" in t, "the export notice")
+        doc = json.loads((target / "spec.json").read_text(encoding="utf-8"))
+        text = json.dumps(doc)
+        assert f'"{suggested}"' in text and "optimistic" in text
+        assert (target / "reproduce.py").exists() and (target / "report.md").exists()
         # the same path again is not overwritten without a yes
         term.send("e")
         term.wait_for(lambda t: f"Export {suggested}" in t, "the export dialog again")

@@ -38,34 +38,47 @@ def _same(a, b) -> bool:
     return a == b
 
 
-def test_export_writes_the_node_json(tree, tmp_path):
-    out = export_node(tree, "n6", tmp_path / "n6.json")
-    doc = json.loads(out.read_text(encoding="utf-8"))
-    expect = tree.node_json(tree.nodes["n6"])
-    assert _same(expect, {k: doc[k] for k in expect})
-    assert doc["caution"] == POST_SEARCH_CAUTION and doc["alpha"] == tree.alpha
-    assert doc["response"] == "signal_mv" and doc["predictor"] == "conc_mg_l"
-    assert list(tmp_path.iterdir()) == [out]  # no temporary file left behind
+def _spec(folder: Path) -> dict:
+    return json.loads((folder / "spec.json").read_text(encoding="utf-8"))
+
+
+def test_export_writes_the_spec_folder(tree, tmp_path):
+    import jsonschema
+
+    out = export_node(tree, "n6", tmp_path / "n6", data_path=DATA)
+    assert sorted(p.name for p in out.iterdir()) == ["report.md", "reproduce.py", "spec.json"]
+    doc = _spec(out)
+    schema = json.loads((Path(__file__).resolve().parents[2] / "engine" / "schema" / "spec-v1.json").read_text())
+    jsonschema.validate(doc, schema)  # reference: the project's own JSON Schema, checked by jsonschema
+    text = json.dumps(doc)
+    assert POST_SEARCH_CAUTION in text
+    # the coefficients are the engine's numbers for that node
+    est = {c.name: c.estimate for c in tree.nodes["n6"].score.fit.coefficients}
+    assert "n6" in text and all(repr(v)[:8] in text for v in est.values())
+    assert list(tmp_path.iterdir()) == [out]  # no temporary folder left behind
 
 
 def test_export_never_overwrites_without_force(tree, tmp_path):
-    target = tmp_path / "model.json"
-    target.write_text("keep me", encoding="utf-8")
+    target = tmp_path / "model"
+    target.mkdir()
+    (target / "keep.txt").write_text("keep me", encoding="utf-8")
     with pytest.raises(FileExistsError):
-        export_node(tree, "n6", target)
-    assert target.read_text(encoding="utf-8") == "keep me"
-    assert list(tmp_path.iterdir()) == [target]
-    export_node(tree, "n6", target, force=True)
-    assert json.loads(target.read_text(encoding="utf-8"))["id"] == "n6"
+        export_node(tree, "n6", target, data_path=DATA)
+    assert (target / "keep.txt").read_text(encoding="utf-8") == "keep me"
+    # force replaces only an earlier export, never a folder with other files
+    with pytest.raises((FileExistsError, ValueError)):
+        export_node(tree, "n6", target, force=True, data_path=DATA)
+    assert (target / "keep.txt").exists()
+    first = export_node(tree, "root", tmp_path / "again", data_path=DATA)
+    export_node(tree, "n6", first, force=True, data_path=DATA)
+    assert "n6" in (first / "spec.json").read_text(encoding="utf-8")
 
 
-def test_export_refuses_folders_and_missing_folders(tree, tmp_path):
-    with pytest.raises(IsADirectoryError):
-        export_node(tree, "n6", tmp_path)
+def test_export_refuses_missing_folders_and_unknown_nodes(tree, tmp_path):
     with pytest.raises(FileNotFoundError):
-        export_node(tree, "n6", tmp_path / "no" / "such.json")
+        export_node(tree, "n6", tmp_path / "no" / "such", data_path=DATA)
     with pytest.raises(KeyError):
-        export_node(tree, "n999", tmp_path / "x.json")
+        export_node(tree, "n999", tmp_path / "x", data_path=DATA)
 
 
 async def _ready(app, pilot):
@@ -79,7 +92,7 @@ async def test_export_dialog_writes_then_asks_before_replacing(tree, tmp_path):
     from tui.widgets.remedy_tree import RemedyTreeView
 
     app = make_app(DATA, **ARGS, export_dir=tmp_path)
-    target = tmp_path / "chosen.json"
+    target = tmp_path / "chosen"
     async with app.run_test(size=(80, 24)) as pilot:
         await _ready(app, pilot)
         view = app.screen.query_one(RemedyTreeView)
@@ -88,11 +101,10 @@ async def test_export_dialog_writes_then_asks_before_replacing(tree, tmp_path):
         await pilot.press("e")
         await pilot.pause()
         assert isinstance(app.screen, ExportDialog)
-        assert app.screen.query_one("#export-path").value == str(tmp_path / "bendwise-n6.json")
+        assert app.screen.query_one("#export-path").value == str(tmp_path / "bendwise-n6")
         await pilot.press("ctrl+u", *str(target), "enter")
         await pilot.pause()
-        doc = json.loads(target.read_text(encoding="utf-8"))
-        assert doc["id"] == "n6" and _same(tree.node_json(tree.nodes["n6"])["criteria"], doc["criteria"])
+        assert '"n6"' in (target / "spec.json").read_text(encoding="utf-8")
         # the same path again, from another node: a question first; "n" keeps the file
         view = app.screen.query_one(RemedyTreeView)
         assert view.select_id("root")
@@ -104,7 +116,7 @@ async def test_export_dialog_writes_then_asks_before_replacing(tree, tmp_path):
         assert isinstance(app.screen, ConfirmDialog)
         await pilot.press("n")
         await pilot.pause()
-        assert json.loads(target.read_text(encoding="utf-8"))["id"] == "n6"
+        assert '"n6"' in (target / "spec.json").read_text(encoding="utf-8")
         # and "y" replaces it
         await pilot.press("e")
         await pilot.pause()
@@ -113,8 +125,8 @@ async def test_export_dialog_writes_then_asks_before_replacing(tree, tmp_path):
         assert isinstance(app.screen, ConfirmDialog)
         await pilot.press("y")
         await pilot.pause()
-        assert json.loads(target.read_text(encoding="utf-8"))["id"] == "root"
-        assert sorted(p.name for p in tmp_path.iterdir()) == ["chosen.json"]
+        assert '"root"' in (target / "spec.json").read_text(encoding="utf-8")
+        assert sorted(p.name for p in tmp_path.iterdir()) == ["chosen"]
 
 
 async def test_export_dialog_escape_writes_nothing(tmp_path):

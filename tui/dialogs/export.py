@@ -32,7 +32,7 @@ class ExportDialog(ModalScreen[str | None]):
             yield Label(f"Export {self.node_id}: {self.label}", classes="dialog-title")
             yield Input(value=self.default, id="export-path")
             yield Static("", id="export-error", classes="dialog-error")
-            yield Static("Writes the node as JSON. Enter = export   Esc = cancel   ctrl+u = clear the path",
+            yield Static("Writes a folder: spec.json, reproduce.py, report.md. Enter = export   Esc = cancel   ctrl+u = clear",
                          classes="dialog-keys")
 
     def on_mount(self) -> None:
@@ -44,7 +44,7 @@ class ExportDialog(ModalScreen[str | None]):
     def _submitted(self, event: Input.Submitted) -> None:
         path = event.value.strip()
         if not path:
-            self.query_one("#export-error", Static).update("give a file path, e.g. model.json")
+            self.query_one("#export-error", Static).update("give a folder path, e.g. my-model")
             return
         self.dismiss(path)
 

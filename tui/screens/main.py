@@ -29,12 +29,13 @@ from ..messages import (
     TreeGrown,
     TreeSummary,
 )
-from ..widgets.charts import Markers, boxcox_figure, curve_figure, residual_figure
+from ..widgets.charts import Markers
 from ..widgets.detail import NodeDetail
 from ..widgets.formatting import plain_glyphs
 from ..widgets.plot import PlotView
 from ..widgets.remedy_tree import SORTS, RemedyTreeView
 from ..widgets.status import StatusPanel
+from .chart_panes import ChartPanes
 from .data import DataRequest
 from .work import TreeWork
 
@@ -48,7 +49,7 @@ WIDE = (150, 36)
 """From this many columns and rows the charts get their own column instead of tabs."""
 
 
-class MainScreen(TreeWork, Screen):
+class MainScreen(ChartPanes, TreeWork, Screen):
     """Walk the remedy tree by keyboard."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
@@ -270,12 +271,6 @@ class MainScreen(TreeWork, Screen):
         self.query_one(NodeDetail).show_message(Text(f"Could not grow the tree: {event.error}", style="bold"))
         self.query_one(StatusPanel).set_suggestion(f"Suggested: none — {event.error}")
 
-    @on(ChartsComputed)
-    def _charts_computed(self, event: ChartsComputed) -> None:
-        self._charts[event.node_id] = event
-        if self.query_one(RemedyTreeView).highlighted_id == event.node_id:
-            self._draw_charts(event)
-
     # ---- showing a node -------------------------------------------------------------
     @on(Tree.NodeExpanded, "#tree")
     def _opened(self, event: Tree.NodeExpanded) -> None:
@@ -305,54 +300,7 @@ class MainScreen(TreeWork, Screen):
         self.query_one(NodeDetail).show_node(board, nid)
         if board is None or nid is None or nid not in board.nodes:
             return
-        node = board.nodes[nid]
-        prof = node.detail.get("boxcox")
-        box = self.query_one("#boxcox", PlotView)
-        if prof is not None:
-            box.show(*boxcox_figure(prof, self.markers))
-        else:
-            box.show(None, message=f"{nid} is not a Box–Cox node: its profile is shown on nodes made by the "
-                     "'Box–Cox y' move")
-        self._request_charts(nid)
-
-    def _charts_visible(self) -> bool:
-        if self.has_class("-wide"):
-            return True
-        return self.query_one("#views", TabbedContent).active in ("tab-residuals", "tab-curve")
-
-    def _request_charts(self, nid: str) -> None:
-        """Draw cached chart data at once; compute new data only for a visible chart, and only once
-        the cursor rests (each computation is a pass over the rows)."""
-        cached = self._charts.get(nid)
-        if cached is not None:
-            self._draw_charts(cached)
-            return
-        for pid in ("#residuals", "#curve", "#residuals-wide", "#curve-wide"):
-            self.query_one(pid, PlotView).show(None, message=f"drawing {nid}…")
-        if self._chart_timer is not None:
-            self._chart_timer.stop()
-        if self._charts_visible():
-            self._chart_timer = self.set_timer(0.12, lambda: self._charts_for_cursor(nid))
-
-    def _charts_for_cursor(self, nid: str) -> None:
-        if self._current() == nid and nid not in self._charts:
-            self._compute_charts(nid)
-
-    @on(TabbedContent.TabActivated, "#views")
-    def _tab_activated(self, event: TabbedContent.TabActivated) -> None:
-        nid = self._current()
-        if nid is not None and self.board is not None and nid in self.board.nodes:
-            self._request_charts(nid)
-
-    def _draw_charts(self, ev: ChartsComputed) -> None:
-        st = self.board.tree.study if self.board is not None else None
-        for rid, cid in (("#residuals", "#curve"), ("#residuals-wide", "#curve-wide")):
-            if ev.residuals is None or st is None:
-                self.query_one(rid, PlotView).show(None, message=ev.error or "no chart")
-                self.query_one(cid, PlotView).show(None, message=ev.error or "no chart")
-                continue
-            self.query_one(rid, PlotView).show(*residual_figure(ev.residuals, st.x_name, self.markers))
-            self.query_one(cid, PlotView).show(*curve_figure(ev.curve, st.x_name, st.y_name, self.markers))
+        self._show_charts(nid)
 
     def _refresh_status(self) -> None:
         board = self.board
@@ -524,18 +472,25 @@ class MainScreen(TreeWork, Screen):
             self.notify("not exported: scoring started; export when it finishes", severity="warning")
             return
         try:
-            written = export_node(board.tree, nid, path, force=force)
+            req = self.request
+            from engine.export import describe_reading
+
+            reading = None if req.path == "-" else describe_reading(
+                req.path, delimiter=getattr(req, "delimiter", None), decimal=getattr(req, "decimal", None),
+                sheet=getattr(req, "sheet", None))
+            written = export_node(board.tree, nid, path, force=force, data_path=req.path, reading=reading)
         except FileExistsError:
             def answer(yes: bool | None) -> None:
                 if yes:
                     self._write_export(nid, path, force=True)
                 else:
-                    self.notify(f"not exported: {path} kept as it was")
+                    self.notify(f"not exported, kept as it was: {path}")
 
-            self.app.push_screen(ConfirmDialog("The file exists. Replace it?", f"{path}\nwould be replaced by {nid} as JSON"),
+            self.app.push_screen(ConfirmDialog("The folder exists. Replace it?",
+                                               f"{path}\nwould be replaced by the export of {nid}"),
                                  answer)
             return
-        except OSError as exc:
+        except (OSError, ValueError) as exc:
             self.notify(f"not exported: {exc}", severity="error", title="export")
             return
         self.notify(f"exported {nid} to {written}", title="export")
