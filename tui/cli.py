@@ -11,13 +11,13 @@ import argparse
 import importlib
 import os
 import sys
+from collections.abc import Sequence
 
 # The engine solves many small least-squares problems; a threaded BLAS spends more time
 # waking threads than computing on them (measured: 18.6 ms vs 0.41 ms for a 200×60 QR on two
 # cores). Users can still override this from the environment.
 for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")
-from collections.abc import Sequence
 
 # Subcommand modules in tui/commands/, in the order --help lists them.
 _COMMANDS = ("check", "grow", "plan", "export", "apply", "demo", "open")
