@@ -67,7 +67,7 @@ class MainScreen(ChartPanes, TreeWork, Screen):
                 tooltip="Cycle the suggestion rule: aicc → bic → simplest → press"),
         Binding("n", "goto_suggestion", "Suggested", show=False, id="main.suggested",
                 tooltip="Move the cursor to the suggested node"),
-        Binding("e", "export", "Export", id="main.export", tooltip="Export the highlighted node (JSON) to a file"),
+        Binding("e", "export", "Export", id="main.export", tooltip="Export the highlighted node: spec.json, reproduce.py and report.md in a folder"),
         Binding("1", "view('detail')", "Detail", show=False, id="main.view.detail",
                 tooltip="Show the detail of the node (numbers in words)"),
         Binding("2", "view('residuals')", "Residuals", show=False, id="main.view.residuals",
