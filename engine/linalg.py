@@ -128,8 +128,8 @@ def _back_substitute(r: np.ndarray, b: np.ndarray) -> np.ndarray:
     return x
 
 
-def design_rss(stats: GroupStats, design: Design) -> float:
-    """Residual sum of squares only (no inference): for profiles that call it many times."""
+def _stacked(stats: GroupStats, design: Design) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None]:
+    """(group-mean rows, stacked matrix, stacked target, within-factor rows or None)."""
     xm = _mean_rows(stats, design)
     sw = np.sqrt(stats.wsum)
     a = xm * sw[:, None]
@@ -138,6 +138,12 @@ def design_rss(stats: GroupStats, design: Design) -> float:
     if within is not None:
         a = np.vstack([a, within[:, :-1]])
         t = np.concatenate([t, within[:, -1]])
+    return xm, a, t, within
+
+
+def design_rss(stats: GroupStats, design: Design) -> float:
+    """Residual sum of squares only (no inference): for profiles that call it many times."""
+    _, a, t, within = _stacked(stats, design)
     norms = np.sqrt((a * a).sum(axis=0))
     norms[norms == 0] = 1.0
     beta, *_ = np.linalg.lstsq(a / norms, t, rcond=None)
@@ -177,14 +183,7 @@ def solve_stacked(a: np.ndarray, t: np.ndarray) -> _Solution:
 
 def fit_design(stats: GroupStats, design: Design, conf: float = 0.95) -> Fit:
     """Fit ``design`` to the grouped response; coefficients reported in the raw basis."""
-    xm = _mean_rows(stats, design)
-    sw = np.sqrt(stats.wsum)
-    a = xm * sw[:, None]
-    t = stats.mean * sw
-    within = _within_rows(stats, design)
-    if within is not None:
-        a = np.vstack([a, within[:, :-1]])
-        t = np.concatenate([t, within[:, -1]])
+    xm, a, t, within = _stacked(stats, design)
     sol = solve_stacked(a, t)
     sse = sol.rss if within is not None else sol.rss + stats.ss_pure
     sse = max(sse, 0.0)
