@@ -8,7 +8,6 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING
 
-from textual import on
 from textual.widgets import TabbedContent
 
 from ..messages import ChartsComputed
@@ -41,8 +40,6 @@ class ChartPanes(_Base):
 
         def _current(self) -> str | None: ...
 
-        def _compute_charts(self, nid: str) -> object: ...
-
     def _show_charts(self, nid: str) -> None:
         """Box–Cox profile at once (its data are in the node); the other charts on request."""
         assert self.board is not None
@@ -55,8 +52,8 @@ class ChartPanes(_Base):
                      "'Box–Cox y' move")
         self._request_charts(nid)
 
-    @on(ChartsComputed)
-    def _charts_computed(self, event: ChartsComputed) -> None:
+    # handlers by name (on_…): Textual's @on only registers methods of MessagePump classes
+    def on_charts_computed(self, event: ChartsComputed) -> None:
         self._charts[event.node_id] = event
         if self.query_one(RemedyTreeView).highlighted_id == event.node_id:
             self._draw_charts(event)
@@ -82,10 +79,9 @@ class ChartPanes(_Base):
 
     def _charts_for_cursor(self, nid: str) -> None:
         if self._current() == nid and nid not in self._charts:
-            self._compute_charts(nid)
+            self._compute_charts(nid)  # type: ignore[attr-defined]  # TreeWork's worker
 
-    @on(TabbedContent.TabActivated, "#views")
-    def _tab_activated(self, event: TabbedContent.TabActivated) -> None:
+    def on_tabbed_content_tab_activated(self, event: TabbedContent.TabActivated) -> None:
         nid = self._current()
         if nid is not None and self.board is not None and nid in self.board.nodes:
             self._request_charts(nid)

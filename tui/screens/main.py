@@ -18,7 +18,7 @@ from textual.binding import Binding, BindingType
 from textual.containers import Horizontal, Vertical
 from textual.screen import Screen
 from textual.timer import Timer
-from textual.widgets import Footer, Static, TabbedContent, TabPane, Tree
+from textual.widgets import Footer, Static, TabbedContent, TabPane, Tabs, Tree
 
 from ..messages import (
     ChartsComputed,
@@ -76,10 +76,11 @@ class MainScreen(ChartPanes, TreeWork, Screen):
                 tooltip="Chart: the fitted curve over the data, original scale"),
         Binding("4", "view('boxcox')", "Box–Cox", show=False, id="main.view.boxcox",
                 tooltip="Chart: Box–Cox profile (on a Box–Cox node)"),
-        Binding("pagedown", "scroll_detail(1)", "Detail down", show=False, id="main.detail.down",
-                tooltip="Scroll the detail pane down"),
-        Binding("pageup", "scroll_detail(-1)", "Detail up", show=False, id="main.detail.up",
-                tooltip="Scroll the detail pane up"),
+        Binding("right_square_bracket", "scroll_detail(1)", "Detail down", show=False, id="main.detail.down",
+                tooltip="Scroll the detail pane down a page (PgUp/PgDn page through the tree; Tab focuses the "
+                "detail so arrows scroll it)"),
+        Binding("left_square_bracket", "scroll_detail(-1)", "Detail up", show=False, id="main.detail.up",
+                tooltip="Scroll the detail pane up a page"),
         Binding("escape", "cancel", "Cancel", show=False, id="main.cancel",
                 tooltip="Stop growing (nodes scored so far stay)"),
     ]
@@ -139,6 +140,7 @@ class MainScreen(ChartPanes, TreeWork, Screen):
         view = self.query_one(RemedyTreeView)
         view.on_cursor = self._cursor_moved
         view.focus()
+        self.query_one(Tabs).can_focus = False  # views switch with 1–4; Tab goes tree ⇄ detail
         self._layout_for(self.size.width, self.size.height)
         self.query_one(StatusPanel).busy("starting…")
         self._busy = True
