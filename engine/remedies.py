@@ -635,7 +635,8 @@ class RemedyTree:
                 continue
             hit = self._by_spec.get(spec)
             if hit is not None:
-                self.nodes[hit].also_from.append((node_id, move))
+                if self.nodes[hit].parent != node_id:  # made before a cancelled pass: not a second path
+                    self.nodes[hit].also_from.append((node_id, move))
                 continue
             self._counter += 1
             child = Node(f"n{self._counter}", node_id, move, spec, node.depth + 1, detail=detail)
