@@ -18,11 +18,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .dist import t_ppf, t_sf2
+from .dist import t_ppf
 from .groups import GroupStats
 from .results import Coefficient, Fit
 
-__all__ = ["Column", "Design", "fit_design", "design_rss", "poly_map", "solve_stacked"]
+__all__ = ["Column", "Design", "fit_design", "fit_rss_rank", "RssRank", "design_rss", "poly_map", "solve_stacked"]
 
 _EPS = np.finfo(float).eps
 
@@ -152,8 +152,12 @@ def design_rss(stats: GroupStats, design: Design) -> float:
     return max(rss if within is not None else rss + stats.ss_pure, 0.0)
 
 
-def solve_stacked(a: np.ndarray, t: np.ndarray) -> _Solution:
-    """Least squares min ||t − a β|| by column-scaled, column-pivoted QR with one refinement."""
+def solve_stacked(a: np.ndarray, t: np.ndarray, *, with_cov: bool = True) -> _Solution:
+    """Least squares min ||t − a β|| by column-scaled, column-pivoted QR with one refinement.
+
+    ``with_cov=False`` skips the unscaled covariance (left as an empty array) for callers that
+    need only the coefficients, the rank and the residual sum of squares.
+    """
     from scipy.linalg import qr
 
     m, p = a.shape
@@ -172,13 +176,54 @@ def solve_stacked(a: np.ndarray, t: np.ndarray) -> _Solution:
     sub = sub + _back_substitute(r1, q1.T @ resid)  # iterative refinement
     beta_s[piv[:rank]] = sub
     resid = t - a_s @ beta_s
+    beta = beta_s / norms
+    aliased = tuple(sorted(int(i) for i in piv[rank:]))
+    if not with_cov:
+        return _Solution(beta, np.empty((0, 0)), rank, aliased, float(resid @ resid))
     rinv = _back_substitute(r1, np.eye(rank))
     cov_s = np.zeros((p, p))
     cov_s[np.ix_(piv[:rank], piv[:rank])] = rinv @ rinv.T
-    beta = beta_s / norms
     cov = cov_s / np.outer(norms, norms)
-    aliased = tuple(sorted(int(i) for i in piv[rank:]))
     return _Solution(beta, cov, rank, aliased, float(resid @ resid))
+
+
+@dataclass(frozen=True, slots=True)
+class RssRank:
+    """Residual sum of squares, rank and residual df of a design (no inference)."""
+
+    sse: float
+    """Residual sum of squares (pure error included), as ``Fit.sse``."""
+    rank: int
+    """Rank of the design, as ``Fit.rank``."""
+    df_resid: int
+    """n − rank, as ``Fit.df_resid``."""
+
+
+def fit_rss_rank(stats: GroupStats, design: Design) -> RssRank:
+    """The ``sse``, ``rank`` and ``df_resid`` that :func:`fit_design` would report, without the
+    coefficients, covariance and intervals (for the x-as-factor comparison models)."""
+    _, a, t, within = _stacked(stats, design)
+    sol = solve_stacked(a, t, with_cov=False)
+    sse = sol.rss if within is not None else sol.rss + stats.ss_pure
+    return RssRank(max(sse, 0.0), sol.rank, stats.n - sol.rank)
+
+
+def _is_identity(m: np.ndarray) -> bool:
+    return m.shape[0] == m.shape[1] and bool(np.array_equal(m, np.eye(m.shape[0], dtype=m.dtype)))
+
+
+def _t_sf2_many(ts: list[float], df: float) -> list[float]:
+    """Two-sided t p-values of several statistics on one ``df`` in one call (the values of
+    ``dist.t_sf2``: 0 for an infinite statistic, NaN for a missing one)."""
+    from scipy.special import stdtr
+
+    if not ts:
+        return []
+    arr = np.asarray(ts, dtype=float)
+    finite = np.isfinite(arr)
+    out = np.where(finite, 2.0 * stdtr(df, -np.abs(np.where(finite, arr, 0.0))), 0.0)
+    out[np.isnan(arr)] = np.nan
+    return out.tolist()
 
 
 def fit_design(stats: GroupStats, design: Design, conf: float = 0.95) -> Fit:
@@ -191,31 +236,38 @@ def fit_design(stats: GroupStats, design: Design, conf: float = 0.95) -> Fit:
     df = n - sol.rank
     sigma2 = sse / df if df > 0 else math.nan
     to_raw = design.to_raw
-    beta_raw = (to_raw @ sol.beta.astype(np.longdouble)).astype(float)
     cov_work = sol.cov_unscaled * sigma2 if df > 0 else np.full_like(sol.cov_unscaled, np.nan)
-    tr = to_raw.astype(float)
-    cov_raw = (to_raw @ cov_work.astype(np.longdouble) @ to_raw.T).astype(float) if df > 0 else tr @ cov_work @ tr.T
+    if _is_identity(to_raw) and np.isfinite(sol.beta).all() and np.isfinite(cov_work).all():
+        # the working basis is the raw basis: the extended-precision products are exact copies
+        beta_raw = sol.beta + 0.0
+        cov_raw = cov_work + 0.0
+    else:
+        beta_raw = (to_raw @ sol.beta.astype(np.longdouble)).astype(float)
+        tr = to_raw.astype(float)
+        cov_raw = (to_raw @ cov_work.astype(np.longdouble) @ to_raw.T).astype(float) if df > 0 else tr @ cov_work @ tr.T
     tq = t_ppf(0.5 + conf / 2, df) if df > 0 else math.nan
     aliased_names = tuple(design.names[i] for i in sol.aliased)
-    coefs = []
-    for j, name in enumerate(design.names):
-        est = float(beta_raw[j])
-        var = float(cov_raw[j, j])
+    ests = beta_raw.tolist()
+    variances = np.diagonal(cov_raw).tolist()
+    ses: list[float] = []
+    tvals: list[float] = []
+    for name, est, var in zip(design.names, ests, variances, strict=True):
         se = math.sqrt(var) if var > 0 else (0.0 if var == 0 else math.nan)
         if name in aliased_names or df <= 0:
-            tval = pval = math.nan
+            tval = math.nan
         else:
             tval = est / se if se > 0 else math.copysign(math.inf, est) if est else math.nan
-            pval = t_sf2(tval, df) if not math.isnan(tval) else math.nan
-        coefs.append(
-            Coefficient(name, est, se, tval, pval, est - tq * se if df > 0 else math.nan,
-                        est + tq * se if df > 0 else math.nan)
-        )
+        ses.append(se)
+        tvals.append(tval)
+    pvals = _t_sf2_many(tvals, df) if df > 0 else [math.nan] * len(tvals)
+    coefs = tuple(
+        Coefficient(name, est, se, tval, pval, est - tq * se if df > 0 else math.nan,
+                    est + tq * se if df > 0 else math.nan)
+        for name, est, se, tval, pval in zip(design.names, ests, ses, tvals, pvals, strict=True)
+    )
     wbar = float((stats.wsum * stats.mean).sum() / stats.wsum.sum())
     if design.intercept:
         ss_tot = float(stats.ss.sum() + (stats.wsum * (stats.mean - wbar) ** 2).sum())
-        if stats.cross is not None:
-            pass  # within part of y is already in stats.ss
         dft = n - 1
     else:
         ss_tot = float(stats.ss.sum() + (stats.wsum * stats.mean**2).sum())
@@ -229,8 +281,8 @@ def fit_design(stats: GroupStats, design: Design, conf: float = 0.95) -> Fit:
     fitted = xm @ sol.beta
     lev = np.einsum("gi,ij,gj->g", xm, sol.cov_unscaled, xm) if design.p else np.zeros(stats.c)
     return Fit(
-        coefficients=tuple(coefs),
-        cov=tuple(tuple(float(v) for v in row) for row in cov_raw),
+        coefficients=coefs,
+        cov=tuple(map(tuple, cov_raw.tolist())),
         n=n,
         rank=sol.rank,
         df_resid=df,
@@ -242,6 +294,6 @@ def fit_design(stats: GroupStats, design: Design, conf: float = 0.95) -> Fit:
         loglik=loglik,
         aliased=aliased_names,
         conf_level=conf,
-        group_fitted=tuple(float(v) for v in fitted),
-        group_leverage=tuple(float(v) for v in lev),
+        group_fitted=tuple(fitted.tolist()),
+        group_leverage=tuple(lev.tolist()),
     )

@@ -57,6 +57,127 @@ ProgressFn = Callable[[int, int, str], None]
 CancelFn = Callable[[], bool]
 
 
+
+# ----- small numerical helpers (scipy.optimize and scipy.interpolate cost ~0.2 s to import) -----
+
+def _brentq(f: Callable[[float], float], xa: float, xb: float, xtol: float = 2e-12,
+            rtol: float = 4 * float(np.finfo(float).eps), maxiter: int = 100) -> float:
+    """Root of ``f`` bracketed by [xa, xb] by Brent's method (inverse quadratic interpolation,
+    secant and bisection steps), step for step as ``scipy.optimize.brentq``.
+
+    Raises ValueError when the ends do not bracket a sign change or ``f`` returns NaN, and
+    RuntimeError after ``maxiter`` steps.
+    """
+    def call(x: float) -> float:
+        fx = float(f(x))
+        if math.isnan(fx):
+            raise ValueError(f"the function is undefined (NaN) at {x:.6g}")
+        return fx
+
+    xpre, xcur = float(xa), float(xb)
+    xblk = fblk = spre = scur = 0.0
+    fpre, fcur = call(xpre), call(xcur)
+    if fpre == 0:
+        return xpre
+    if fcur == 0:
+        return xcur
+    if math.copysign(1.0, fpre) == math.copysign(1.0, fcur):
+        raise ValueError("the ends of the bracket give values of the same sign")
+    for _ in range(maxiter):
+        if fpre != 0 and fcur != 0 and math.copysign(1.0, fpre) != math.copysign(1.0, fcur):
+            xblk, fblk = xpre, fpre
+            spre = scur = xcur - xpre
+        if abs(fblk) < abs(fcur):  # keep the best point in xcur
+            xpre, xcur, xblk = xcur, xblk, xcur
+            fpre, fcur, fblk = fcur, fblk, fcur
+        delta = (xtol + rtol * abs(xcur)) / 2
+        sbis = (xblk - xcur) / 2
+        if fcur == 0 or abs(sbis) < delta:
+            return xcur
+        if abs(spre) > delta and abs(fcur) < abs(fpre):
+            if xpre == xblk:  # secant
+                stry = -fcur * (xcur - xpre) / (fcur - fpre)
+            else:  # inverse quadratic
+                dpre = (fpre - fcur) / (xpre - xcur)
+                dblk = (fblk - fcur) / (xblk - xcur)
+                stry = -fcur * (fblk * dblk - fpre * dpre) / (dblk * dpre * (fblk - fpre))
+            if 2 * abs(stry) < min(abs(spre), 3 * abs(sbis) - delta):
+                spre, scur = scur, stry
+            else:
+                spre = scur = sbis
+        else:
+            spre = scur = sbis
+        xpre, fpre = xcur, fcur
+        xcur += scur if abs(scur) > delta else (delta if sbis > 0 else -delta)
+        fcur = call(xcur)
+    raise RuntimeError(f"the root search did not converge in {maxiter} steps")
+
+
+class _Spline:
+    """Cubic interpolating spline with not-a-knot ends through (x, y), x increasing, 4+ points;
+    the values of ``scipy.interpolate.CubicSpline(x, y)`` (same system, same elimination order)."""
+
+    def __init__(self, x: np.ndarray, y: np.ndarray) -> None:
+        x = np.asarray(x, dtype=float)
+        y = np.asarray(y, dtype=float)
+        if not np.isfinite(y).all():
+            raise ValueError("spline values must be finite")
+        n = x.size
+        dx = np.diff(x)
+        slope = np.diff(y) / dx
+        # first derivatives s solve sub[i]·s[i−1] + diag[i]·s[i] + sup[i]·s[i+1] = b[i]
+        sub, diag, sup, b = np.zeros(n), np.zeros(n), np.zeros(n), np.empty(n)
+        diag[1:-1] = 2 * (dx[:-1] + dx[1:])
+        sup[1:-1] = dx[:-1]
+        sub[1:-1] = dx[1:]
+        b[1:-1] = 3 * (dx[1:] * slope[:-1] + dx[:-1] * slope[1:])
+        d = x[2] - x[0]
+        diag[0], sup[0] = dx[1], d
+        b[0] = ((dx[0] + 2 * d) * dx[1] * slope[0] + dx[0] ** 2 * slope[1]) / d
+        d = x[-1] - x[-3]
+        diag[-1], sub[-1] = dx[-2], d
+        b[-1] = (dx[-1] ** 2 * slope[-2] + (2 * d + dx[-1]) * dx[-2] * slope[-1]) / d
+        s = _solve_tridiagonal(sub, diag, sup, b)
+        t = (s[:-1] + s[1:] - 2 * slope) / dx
+        self._x = x
+        self._c = np.array([t / dx, (slope - s[:-1]) / dx - t, s[:-1], y[:-1]])
+
+    def __call__(self, v: np.ndarray | float) -> np.ndarray:
+        v = np.asarray(v, dtype=float)
+        i = np.clip(np.searchsorted(self._x, v, side="right") - 1, 0, self._x.size - 2)
+        h = v - self._x[i]
+        c = self._c
+        return c[3, i] + c[2, i] * h + c[1, i] * (h * h) + c[0, i] * (h * h * h)
+
+
+def _solve_tridiagonal(sub: np.ndarray, diag: np.ndarray, sup: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Gaussian elimination with partial pivoting on a tridiagonal system (a row swap adds a
+    second super-diagonal), then back substitution column by column."""
+    n = diag.size
+    u0, u1, u2 = diag.tolist(), sup.tolist(), [0.0] * n
+    low, rhs = sub.tolist(), b.tolist()
+    for j in range(n - 1):
+        if abs(low[j + 1]) > abs(u0[j]):  # the row below holds the larger pivot: swap
+            last = j + 1 == n - 1
+            u0[j], u1[j], u2[j], low[j + 1], u0[j + 1], nxt = (
+                low[j + 1], u0[j + 1], 0.0 if last else u1[j + 1], u0[j], u1[j], u2[j])
+            if not last:
+                u1[j + 1] = nxt
+            rhs[j], rhs[j + 1] = rhs[j + 1], rhs[j]
+        m = low[j + 1] / u0[j]
+        u0[j + 1] = u0[j + 1] - m * u1[j]
+        if j + 1 < n - 1:
+            u1[j + 1] = u1[j + 1] - m * u2[j]
+        rhs[j + 1] = rhs[j + 1] - m * rhs[j]
+    for i in range(n - 1, -1, -1):
+        rhs[i] = rhs[i] / u0[i]
+        if i >= 1:
+            rhs[i - 1] = rhs[i - 1] - rhs[i] * u1[i - 1]
+        if i >= 2:
+            rhs[i - 2] = rhs[i - 2] - rhs[i] * u2[i - 2]
+    return np.array(rhs)
+
+
 # ----- Box–Cox with regressors ----------------------------------------------------------
 
 @dataclass(frozen=True, slots=True)
@@ -168,8 +289,6 @@ def profile_boxcox(
     batched pass for a 0.2-step grid (shared by every node through ``grid_cache``), then a
     cubic spline through the profile.
     """
-    from scipy.optimize import brentq, minimize_scalar
-
     if y is None:
         if grid_provider is None or n is None or sum_log_y is None:
             raise ValueError("without rows, give grid_provider, n and sum_log_y")
@@ -187,8 +306,6 @@ def profile_boxcox(
         return -0.5 * n * math.log(rss / n) + (lam - 1.0) * slog if rss > 0 else math.inf
 
     if n > EXACT_PROFILE_LIMIT or logy is None:
-        from scipy.interpolate import CubicSpline
-
         stats_list = None if grid_cache is None else grid_cache.get("bc")
         if stats_list is None:
             if grid_provider is not None:
@@ -198,7 +315,7 @@ def profile_boxcox(
             if grid_cache is not None:
                 grid_cache["bc"] = stats_list
         vals = np.array([from_rss(design_rss(st, design), float(v)) for st, v in zip(stats_list, grid_l, strict=True)])
-        spline = CubicSpline(grid_l, vals)
+        spline = _Spline(grid_l, vals)
         fine = np.arange(lo, hi + 1e-9, 0.0005)
         fv = spline(fine)
         i = int(np.argmax(fv))
@@ -206,9 +323,11 @@ def profile_boxcox(
         below = fv < top - HALF_CHI2_95
         left = np.flatnonzero(below[:i])
         right = np.flatnonzero(below[i:])
-        low = float(brentq(lambda v: spline(v) - top + HALF_CHI2_95, fine[left[-1]], fine[left[-1] + 1])) if left.size else None
-        high = float(brentq(lambda v: spline(v) - top + HALF_CHI2_95, fine[i + right[0] - 1], fine[i + right[0]])) if right.size else None
+        low = float(_brentq(lambda v: spline(v) - top + HALF_CHI2_95, fine[left[-1]], fine[left[-1] + 1])) if left.size else None
+        high = float(_brentq(lambda v: spline(v) - top + HALF_CHI2_95, fine[i + right[0] - 1], fine[i + right[0]])) if right.size else None
     else:
+        from scipy.optimize import brentq, minimize_scalar
+
         def ll(lam: float) -> float:
             st = compute_group_stats(codes, c, _bc(logy, lam), weights, bases)  # type: ignore[arg-type]
             return from_rss(design_rss(st, design), lam)
@@ -305,10 +424,12 @@ def box_tidwell(study: Study, spec: ModelSpec, max_iter: int = 50) -> PowerSearc
         # γ on the unscaled x^α·log x column; b1 on x^α (raw basis)
         return b1, g.estimate / scale, g.p
 
-    b1, gamma, p1 = slope_gamma(1.0)
+    first = slope_gamma(1.0)
+    p1 = first[2]
     alpha, it = 1.0, 0
     for it in range(1, max_iter + 1):  # noqa: B007 - count is reported
-        b1, gamma, _ = slope_gamma(alpha)
+        # the first step starts from α = 1, whose fits were just made
+        b1, gamma, _ = first if it == 1 else slope_gamma(alpha)
         # the x^α·log x column equals (1/α)·t·log t; γ estimates β₁(α_new − α)
         step = gamma / b1 if b1 else 0.0
         if not math.isfinite(step):
@@ -322,15 +443,19 @@ def box_tidwell(study: Study, spec: ModelSpec, max_iter: int = 50) -> PowerSearc
     # likelihood interval on the profile of SSE(α)
     n = study.n
 
+    seen: dict[float, float] = {}
+
     def sse(a: float) -> float:
-        return design_rss(stats, design_for(a, False))
+        # the bracket search and the root finder revisit the same powers: compute each once
+        hit = seen.get(a)
+        if hit is None:
+            hit = seen[a] = design_rss(stats, design_for(a, False))
+        return hit
 
     s_hat = sse(alpha)
 
     def gap(a: float) -> float:
         return n * math.log(sse(a) / s_hat) - CHI2_95
-
-    from scipy.optimize import brentq
 
     low = high = None
     edge = alpha - 0.05
@@ -338,7 +463,7 @@ def box_tidwell(study: Study, spec: ModelSpec, max_iter: int = 50) -> PowerSearc
         edge -= 0.5
     try:
         if gap(edge if edge != 0 else 1e-6) > 0:
-            low = float(brentq(lambda a: gap(a if a != 0 else 1e-9), edge, alpha, xtol=1e-8))
+            low = float(_brentq(lambda a: gap(a if a != 0 else 1e-9), edge, alpha, xtol=1e-8))
     except ValueError:
         low = None
     edge = alpha + 0.05
@@ -346,7 +471,7 @@ def box_tidwell(study: Study, spec: ModelSpec, max_iter: int = 50) -> PowerSearc
         edge += 0.5
     try:
         if gap(edge if edge != 0 else 1e-6) > 0:
-            high = float(brentq(lambda a: gap(a if a != 0 else 1e-9), alpha, edge, xtol=1e-8))
+            high = float(_brentq(lambda a: gap(a if a != 0 else 1e-9), alpha, edge, xtol=1e-8))
     except ValueError:
         high = None
     inside = [v for v in CONVENTIONAL_POWERS if (low is None or v >= low) and (high is None or v <= high)]

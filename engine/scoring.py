@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .errors import BendwiseError, UsageError
-from .linalg import Column, Design, fit_design, poly_map
+from .linalg import Column, Design, fit_design, fit_rss_rank, poly_map
 from .linearity import criteria_from, lack_of_fit, nested_f, power_label, spread_test
 from .results import Criteria, Fit, LackOfFit, SideTest
 from .spec import ModelSpec
@@ -405,7 +405,7 @@ def _shape_test(study: Study, spec: ModelSpec, fr: _Frame, stats, fit: Fit) -> L
            (spec.predictor.key(), spec.degree) if study.approximate_groups else None)
     full = study.cache_get(key)
     if full is None:
-        full = study.cache_put(key, fit_design(stats, _factor_design(study, spec, fr)))
+        full = study.cache_put(key, fit_rss_rank(stats, _factor_design(study, spec, fr)))
     if full.rank <= fit.rank:
         return LackOfFit(False, f"the model already spends as many parameters on x as there are levels "
                          f"({study.c}): nothing is left to test", kind)

@@ -1,0 +1,47 @@
+"""Small numerical helpers of the remedy tree against scipy (reference: scipy.interpolate
+.CubicSpline with its default not-a-knot ends, scipy.optimize.brentq)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from engine.remedies import _brentq, _Spline
+
+
+@given(st.integers(4, 40), st.integers(0, 10_000))
+@settings(max_examples=60, deadline=None, derandomize=True, database=None)
+def test_spline_matches_scipy_cubic_spline(n, seed):
+    from scipy.interpolate import CubicSpline  # reference
+
+    rng = np.random.default_rng(seed)
+    x = np.cumsum(rng.uniform(0.05, 1.0, n))
+    y = rng.normal(0, 10, n) - 50 * (x - x.mean()) ** 2
+    at = np.concatenate([x, rng.uniform(x[0] - 0.5, x[-1] + 0.5, 50)])
+    ref = CubicSpline(x, y)(at)
+    got = _Spline(x, y)(at)
+    assert np.allclose(got, ref, rtol=1e-11, atol=1e-11 * np.abs(y).max())
+
+
+@pytest.mark.parametrize(("f", "a", "b"), [
+    (lambda v: v**3 - 2 * v - 5, 2.0, 3.0),            # Wallis's cubic (common practice)
+    (lambda v: math.cos(v) - v, 0.0, 1.0),
+    (lambda v: math.exp(v) - 1e3, 0.0, 10.0),
+    (lambda v: (v - 0.3) ** 5, -1.0, 2.0),              # a flat (multiple) root
+    (lambda v: math.atan(v - 7.25), -100.0, 50.0),
+])
+def test_brentq_matches_scipy(f, a, b):
+    from scipy.optimize import brentq  # reference
+
+    assert _brentq(f, a, b, xtol=1e-12) == pytest.approx(brentq(f, a, b, xtol=1e-12), abs=1e-11)
+
+
+def test_brentq_refuses_a_bad_bracket():
+    with pytest.raises(ValueError):
+        _brentq(lambda v: v * v + 1.0, -1.0, 1.0)
+    with pytest.raises(ValueError):
+        _brentq(lambda v: math.nan, 0.0, 1.0)
