@@ -40,3 +40,10 @@ def chi2_ppf(q: float, df: float) -> float:
     from scipy.special import chdtri
 
     return float(chdtri(df, 1.0 - q))
+
+
+def chi2_sf(x: float, df: float) -> float:
+    """Upper tail P(χ²_df > x)."""
+    from scipy.special import chdtrc
+
+    return float(chdtrc(df, max(x, 0.0)))

@@ -480,7 +480,9 @@ def _row_diagnostics(study, spec, fr, stats, design, fit, big):
     sp = study.spread_by_level(fr.z, (spec.response.key(), fr.wkey), fr.w)
     reason = (None if not (spec.covariates or study.approximate_groups)
               else "computed on the response, not the residuals (no row pass here)")
-    spread = SideTest(name, sp.testable, sp.statistic, sp.df, sp.p, sp.reason or reason)
+    # the study names its test (Brown–Forsythe from rows, Bartlett from level variances in SQL)
+    name = sp.name.replace("equal spread (", "equal spread of residuals (")
+    spread = SideTest(name, sp.testable, sp.statistic, sp.df, sp.p, "; ".join(r for r in (sp.reason, reason) if r) or None)
     return press, note, rmax, spread
 
 

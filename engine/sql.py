@@ -154,6 +154,8 @@ class SqlStudy(Study):
         self._info = info
         super().__init__(**kw)
         self._moments: dict[tuple, dict] = {}
+        self.exact_scans = 0
+        """Scans run for response transforms the one-scan series could not give exactly enough."""
 
     # --- facts from the first scan ---------------------------------------------------------
     @property
@@ -276,6 +278,16 @@ class SqlStudy(Study):
     def _scan(self, transforms: Sequence[Transform]) -> None:
         """One GROUP BY scan for several response transforms; results cached per transform."""
         todo = [t for t in transforms if t.key() not in self._moments]
+        series = self._info.get("series")
+        if series is not None:
+            rest = []
+            for t in todo:
+                mom = series.moments(t, SERIES_TOL)
+                if mom is None:
+                    rest.append(t)
+                else:
+                    self._moments[t.key()] = mom
+            todo = rest
         if not todo:
             return
         info = self._info
@@ -288,6 +300,7 @@ class SqlStudy(Study):
         shifts = [v if math.isfinite(v) else 0.0 for v in shifts]
         zs = [f"({transform_sql(t, 'y')} - {v!r})" for t, v in zip(todo, shifts, strict=True)]
         sql = aggregate_sql("bw_shifted", keys, nums, zs)
+        self.exact_scans += 1
         self._say(f"scanning {self.n:,} rows for {len(todo)} response transform(s)")
         res = self.con.execute(sql).fetchnumpy()
         self._say("")
@@ -407,57 +420,56 @@ class SqlStudy(Study):
         hit = self._cache.get(key)
         if hit is None:
             ts = [Transform("boxcox", float(v)) if v != 0 else Transform("log") for v in lams]
-            self._scan(ts)
-            hit = [self._pool(self._moments[t.key()], by, bases_key, None, False) for t in ts]
+            series = self._info.get("series")
+            # grid points only locate λ̂ and draw the profile: a looser series tolerance
+            moms = [None if series is None else series.moments(t, GRID_TOL) for t in ts]
+            self._scan([t for t, m in zip(ts, moms, strict=True) if m is None])
+            hit = [self._pool(m if m is not None else self._moments[t.key()], by, bases_key, None, False)
+                   for t, m in zip(ts, moms, strict=True)]
             self._cache[key] = hit
         return hit
 
     def spread_by_level(self, z: Any, key: Any, w: Any) -> SideTest:
-        """Brown–Forsythe across x levels from two SQL scans (level medians, then deviations)."""
-        name = "equal spread (Brown–Forsythe)"
+        """Bartlett's test across x levels, from the level variances of the response scale.
+
+        Brown–Forsythe needs each level's median, i.e. two more passes over the rows; Bartlett's
+        statistic needs only the level counts and variances the one scan already gives
+        (scipy.stats.bartlett computes the same). It assumes normal errors within levels.
+        """
+        name = "equal spread (Bartlett)"
         hit = self._cache.get(("spread", key))
         if hit is not None:
             return hit
         tkey, wkey = key
-        if wkey is not None or tkey != ("identity", None):
-            # each response scale costs two more scans of the files; the untransformed response
-            # (what check reports) is computed, the others are declared unavailable
-            hit = SideTest(name, False, reason="computed for the untransformed, unweighted response only with "
-                           "the SQL engine (each other scale needs two more scans)")
-            self._cache[("spread", key)] = hit
-            return hit
-        zsql = transform_sql(Transform(*tkey), "y")
-        self._say("scanning for level medians (spread test)")
-        res = self.con.execute(
-            f"WITH m AS (SELECT code, MEDIAN({zsql}) AS med FROM bw_clean JOIN bw_xmap USING (x) GROUP BY code) "
-            f"SELECT code, COUNT(*) AS n, AVG(ABS({zsql} - med)) AS dm, VAR_POP(ABS({zsql} - med)) AS dv "
-            "FROM bw_clean JOIN bw_xmap USING (x) JOIN m USING (code) GROUP BY code ORDER BY code"
-        ).fetchnumpy()
-        self._say("")
-        from .dist import f_sf
-
-        nk = np.asarray(res["n"], dtype=float)
-        dm = np.asarray(res["dm"], dtype=float)
-        dv = np.nan_to_num(np.asarray(res["dv"], dtype=float))
-        ok = nk >= 2
-        if ok.sum() < 2:
-            hit = SideTest(name, False, reason="needs at least two levels with two or more replicates")
+        if wkey is not None:
+            hit = SideTest(name, False, reason="not computed for weighted nodes with the SQL engine")
         else:
-            nk, dm, dv = nk[ok], dm[ok], dv[ok]
-            k = int(ok.sum())
-            total = float(nk.sum())
-            grand = float((nk * dm).sum() / total)
-            ssb = float((nk * (dm - grand) ** 2).sum())
-            ssw = float((nk * dv).sum())
-            scale = float((nk * (dv + dm**2)).sum())
-            if ssw <= 1e-12 * scale:
-                hit = SideTest(name, False, reason="the absolute deviations do not vary within levels")
-            else:
-                f = (ssb / (k - 1)) / (ssw / (total - k))
-                hit = SideTest(name, True, f, (k - 1, total - k), f_sf(f, k - 1, total - k))
+            st = self.group_stats(None, ("z", tkey), by=())
+            hit = bartlett_from_groups(np.asarray(st.count, dtype=float), np.asarray(st.ss, dtype=float), name)
         self._cache[("spread", key)] = hit
         return hit
 
+
+def bartlett_from_groups(count: np.ndarray, ss: np.ndarray, name: str = "equal spread (Bartlett)") -> SideTest:
+    """Bartlett's (1937) test of equal variances from group sizes and within-group sums of squares."""
+    from .dist import chi2_sf
+
+    keep = count >= 2
+    if keep.sum() < 2:
+        return SideTest(name, False, reason="needs at least two levels with two or more replicates")
+    nk, ssk = count[keep], ss[keep]
+    var = ssk / (nk - 1.0)
+    scale = float(np.max(np.abs(var))) if var.size else 0.0
+    if scale <= 0 or (var <= 1e-13 * scale).any():
+        return SideTest(name, False, reason="a level has no spread (all its replicates are equal)")
+    k = int(keep.sum())
+    dof = float(nk.sum()) - k
+    pooled = float(ssk.sum()) / dof
+    stat = (dof * math.log(pooled) - float(((nk - 1.0) * np.log(var)).sum()))
+    stat /= 1.0 + (float((1.0 / (nk - 1.0)).sum()) - 1.0 / dof) / (3.0 * (k - 1))
+    note = ("one-pass test from level variances (Brown–Forsythe needs the rows: --engine memory); "
+            "it assumes normal errors within levels")
+    return SideTest(name, True, stat, (k - 1,), chi2_sf(stat, k - 1), reason=note)
 
 def make_sql_study(
     path: str,
@@ -472,8 +484,14 @@ def make_sql_study(
     source: str = "",
     progress: ProgressFn | None = None,
     memory_limit: str | None = None,
+    exact: bool = False,
 ) -> SqlStudy:
-    """Build a :class:`SqlStudy` over a file, folder or glob of Parquet/CSV files."""
+    """Build a :class:`SqlStudy` over a file, folder or glob of Parquet/CSV files.
+
+    Clean data with a positive response take the one-scan path (:func:`_series_setup`); other
+    data, or ``exact=True``, take the exact path: a cleaning scan, then one scan per batch of
+    response transforms.
+    """
     try:
         import duckdb
     except ImportError:
@@ -554,12 +572,6 @@ def make_sql_study(
             c = q(col)
             checks.append((col, "missing", f"({c} IS NULL OR trim(CAST({c} AS VARCHAR)) IN ({na_list if as_text else lit('')}))"))
     case = "CASE " + " ".join(f"WHEN {cond} THEN {i}" for i, (_, _, cond) in enumerate(checks)) + " ELSE -1 END"
-    if progress:
-        progress("scanning rows: cleaning counts")
-    counts = dict(con.execute(f"SELECT {case} AS r, COUNT(*) FROM {src} GROUP BY r").fetchall())
-    n_read = int(sum(counts.values()))
-    drops = tuple(DropCount(checks[i][0], checks[i][1], int(cnt), ())
-                  for i, cnt in sorted(counts.items()) if i >= 0 and cnt)
     cols_sql = [f"{num_expr(y_col)[0]} AS y", f"{num_expr(x_col)[0]} AS x"]
     cat_cols = [c for c in cov_cols if kinds[c] == "categorical"]
     num_cols = [c for c in cov_cols if kinds[c] == "numeric"]
@@ -568,57 +580,42 @@ def make_sql_study(
     for c in num_cols:
         cols_sql.append(f"{num_expr(c)[0]} AS {q(c)}")
     con.execute(f"CREATE TEMP VIEW bw_clean AS SELECT {', '.join(cols_sql)} FROM {src} WHERE {case} = -1")
-
-    if progress:
-        progress("scanning rows: ranges and domains")
-    parts = ["COUNT(*)", "MIN(y)", "MAX(y)", "MIN(x)", "MAX(x)",
-             "COUNT(*) FILTER (WHERE y <= 0)", "COUNT(*) FILTER (WHERE y = 0)", "COUNT(*) FILTER (WHERE y < 0)",
-             "COUNT(*) FILTER (WHERE x <= 0)", "COUNT(*) FILTER (WHERE x = 0)", "COUNT(*) FILTER (WHERE x < 0)",
-             "SUM(CASE WHEN y > 0 THEN LN(y) ELSE 0 END)", "SUM(CASE WHEN y <> 0 THEN LN(ABS(y)) ELSE 0 END)"]
-    parts += [f"MIN({q(c)})" for c in num_cols]
-    parts += [f"MAX({q(c)})" for c in num_cols]
-    parts += [f"AVG({q(c)})" for c in num_cols]
-    parts.append("AVG(y)")
-    row = _one(con.execute(f"SELECT {', '.join(parts)} FROM bw_clean"))
-    n = int(row[0])
+    con.execute(f"CREATE TEMP VIEW bw_all AS SELECT {', '.join(cols_sql)} FROM {src}")
+    cat_missing = set(_NA_TEXT) if as_text else {""}
+    facts = None if exact else _series_setup(con, cat_cols, num_cols, cat_missing, progress)
+    if facts is None:
+        facts = _exact_setup(con, src, case, checks, cat_cols, num_cols, progress)
+    n, n_read, drops = facts["n"], facts["n_read"], facts["drops"]
     if n < 3:
         raise DataError(f"only {n} usable row(s) after cleaning (need at least 3); "
                         + ("; ".join(d.describe() for d in drops) if drops else "add data"))
-    ymin, ymax, xmin, xmax = (float(v) for v in row[1:5])
+    ymin, ymax = facts["y_min"], facts["y_max"]
+    unit_x = np.asarray(facts["units"]["x"], dtype=float)
+    unit_n = np.asarray(facts["units"]["n"], dtype=float)
+    x_values = np.unique(unit_x)
+    xmin, xmax = float(x_values[0]), float(x_values[-1])
     if xmin == xmax:
         raise DataError(f"predictor {x_col!r} has one distinct value ({xmin:g}); a line needs at least 2 settings "
                         "(3 or more to test its shape)")
     if ymin == ymax:
         raise DataError(f"response {y_col!r} is constant (all {ymin:g}); there is nothing to fit")
-    k = len(num_cols)
-    for i, c in enumerate(num_cols):
-        if row[13 + i] == row[13 + k + i]:
-            raise DataError(f"covariate {c!r} has one value ({float(row[13 + i]):g}) in the rows used; it "
+    for c in num_cols:
+        value = facts["num_constant"][c]
+        if value is not None:
+            raise DataError(f"covariate {c!r} has one value ({value:g}) in the rows used; it "
                             "cannot explain anything: drop it from --covariates")
     covs: list[Covariate] = []
-    levels_of: dict[str, tuple[str, ...]] = {}
     for c in cat_cols:
-        lv = tuple(str(r[0]) for r in con.execute(
-            f"SELECT DISTINCT {q(c)} FROM bw_clean ORDER BY {q(c)}").fetchall())
+        vals = np.asarray(facts["units"][c]).astype(str)
+        lv = tuple(str(v) for v in np.unique(vals))
         if len(lv) < 2:
             raise DataError(f"covariate {c!r} has one category ({lv[0]!r}) in the rows used; it cannot explain "
                             "anything: drop it from --covariates")
         if len(lv) > MAX_CATEGORIES:
             raise DataError(f"covariate {c!r} has {len(lv)} categories (at most {MAX_CATEGORIES}); is it an "
                             "identifier? Drop it or merge categories")
-        levels_of[c] = lv
-    xv = con.execute("SELECT x, COUNT(*) FROM bw_clean GROUP BY x ORDER BY x").fetchnumpy()
-    x_values = np.asarray(xv["x"], dtype=float)
-    keys = ["x", *cat_cols]
-    key_list = ", ".join(q(kk) for kk in keys)
-    units = con.execute(f"SELECT {key_list}, COUNT(*) AS n FROM bw_clean GROUP BY {key_list} "
-                        f"ORDER BY {key_list}").fetchnumpy()
-    unit_x = np.asarray(units["x"], dtype=float)
-    unit_n = np.asarray(units["n"], dtype=float)
-    for c in cat_cols:
-        vals = np.asarray(units[c]).astype(str)
-        codes = np.searchsorted(np.asarray(levels_of[c]), vals)
-        covs.append(Covariate(c, "categorical", codes.astype(np.intp), levels_of[c]))
+        codes = np.searchsorted(np.asarray(lv), vals)
+        covs.append(Covariate(c, "categorical", codes.astype(np.intp), lv))
     for c in num_cols:
         covs.append(Covariate(c, "numeric", np.empty(0)))
     covs_sorted = tuple(sorted(covs, key=lambda cv: cov_cols.index(cv.name)))
@@ -626,16 +623,16 @@ def make_sql_study(
         tol = tol * (xmax - xmin)
     info = {
         "n": n, "x_min": xmin, "x_max": xmax,
-        "y_le0": int(row[5]), "y_eq0": int(row[6]), "y_lt0": int(row[7]),
-        "x_le0": int(row[8]), "x_eq0": int(row[9]), "x_lt0": int(row[10]),
-        "slog": float(row[11]), "slogabs": float(row[12]),
-        "num_mean": {c: float(row[13 + 2 * k + i]) for i, c in enumerate(num_cols)},
-        "y_mean": float(row[13 + 3 * k]),
+        "y_le0": facts["y_le0"], "y_eq0": facts["y_eq0"], "y_lt0": facts["y_lt0"],
+        "x_le0": int(unit_n[unit_x <= 0].sum()), "x_eq0": int(unit_n[unit_x == 0].sum()),
+        "x_lt0": int(unit_n[unit_x < 0].sum()),
+        "slog": facts["slog"], "slogabs": facts["slogabs"],
+        "num_mean": facts["num_mean"],
+        "y_mean": facts["y_mean"],
         "x_values": x_values, "unit_x": unit_x, "unit_n": unit_n,
         "cat_cols": cat_cols, "num_cols": num_cols,
+        "series": facts.get("series"),
     }
-    import pandas as pd
-
     study = SqlStudy(
         con,
         progress=progress,
@@ -653,14 +650,395 @@ def make_sql_study(
         tolerance_text=None if tolerance is None else str(tolerance),
     )
     # x value → level code, for scans that group by level (spread test)
-    xmap = pd.DataFrame({"x": x_values, "code": study.x_codes_for_values(x_values)})
-    con.register("bw_xmap_df", xmap)
-    con.execute("CREATE TEMP TABLE bw_xmap AS SELECT * FROM bw_xmap_df")
+    con.register("bw_xmap_src", {"x": x_values, "code": study.x_codes_for_values(x_values).astype(np.int64)})
+    con.execute("CREATE TEMP TABLE bw_xmap AS SELECT * FROM bw_xmap_src")
+    con.unregister("bw_xmap_src")
     shifted = ["x", "y", *[q(c) for c in cat_cols]]
     shifted += [f"({q(c)} - {info['num_mean'][c]!r}) AS {q(c)}" for c in num_cols]
     con.execute(f"CREATE TEMP VIEW bw_shifted AS SELECT {', '.join(shifted)} FROM bw_clean")
     study.prefetch()
     return study
+
+
+# ----------------------------------------------------------------------------- set-up scans
+
+PREFIX_ROWS = 1 << 18
+"""Rows read from the start of the data to place each replicate group's series centre."""
+SERIES_TOL = 1e-10
+"""Largest truncation error of the series, relative to the within-group spread (node statistics)."""
+GRID_TOL = 1e-7
+"""The same for Box–Cox profile grid points (they only locate λ̂; the chosen λ is held to SERIES_TOL)."""
+SERIES_ORDERS = (6, 8, 10, 12)
+"""Candidate orders M of the power sums Σd^k (even)."""
+_LAMBDA_DESIGN = 1.0
+"""|λ| the order is sized for: y, √y, 1/y (log y is exact at any order); a Box–Cox λ far beyond
+may need an exact scan of its own."""
+
+
+def _tail(log_r: float | np.ndarray, log_d: np.ndarray, start: int, shift: int, terms: int = 60) -> np.ndarray:
+    """Σ_{k=start}^{start+terms} r^k D^(k−shift) / k!, per unit (0 where D = 0)."""
+    ks = np.arange(start, start + terms, dtype=float)
+    lg = np.array([math.lgamma(k + 1.0) for k in ks])
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        e = ks[None, :] * log_r + (ks[None, :] - shift) * log_d[:, None] - lg[None, :]
+        out = np.exp(e).sum(axis=1)
+    return np.where(np.isfinite(log_d), out, 0.0)
+
+
+class _Series:
+    """Per-group power sums of d = ln y − c (c: the group's centre) and their use.
+
+    For any power λ, e^{λ ln y} = e^{λ(c+a)} e^{λδ} with δ = d − a, a the group mean of d, and
+    E e^{λδ} = Σ λ^k μ_k / k!, Var e^{λδ} = Σ_{j,k≥1} λ^{j+k}(μ_{j+k} − μ_j μ_k)/(j! k!),
+    Cov(e^{λδ}, t) = Σ_{k≥1} λ^k Cov(δ^k, t)/k!, with μ_k the central moments of d. The series
+    are truncated at order M (K for the covariances); the truncation error is bounded with
+    D = max |δ| in the group (from its smallest and largest y): E|δ|^k ≤ D^(k−M) μ_M for k > M.
+    Each d also carries the rounding of LN(y) (about ε·|ln y|), which matters when the spread
+    of ln y is tiny beside its size (a large offset). A transform whose bound or rounding
+    exceeds the tolerance in any group is scanned exactly instead.
+    """
+
+    def __init__(self, n: np.ndarray, centre: np.ndarray, s: np.ndarray, cross: np.ndarray, tsum: np.ndarray,
+                 tt: np.ndarray, ylo: np.ndarray, yhi: np.ndarray, t_ref: np.ndarray) -> None:
+        u, big_m = s.shape
+        j_, big_k = cross.shape[1], cross.shape[2]
+        self.M, self.K = big_m, big_k
+        self.n = n
+        m = np.ones((u, big_m + 1))
+        m[:, 1:] = s / n[:, None]
+        a = m[:, 1].copy()
+        mu = np.zeros_like(m)
+        for k in range(big_m + 1):
+            mu[:, k] = sum(math.comb(k, i) * m[:, i] * (-a) ** (k - i) for i in range(k + 1))
+        mu[:, 0], mu[:, 1] = 1.0, 0.0
+        self.mu = mu
+        raw = np.zeros((u, j_, max(big_k, 1) + 1))  # E[d^i t′]
+        raw[:, :, 0] = tsum / n[:, None]
+        raw[:, :, 1: big_k + 1] = cross / n[:, None, None]
+        ct = np.zeros((u, j_, max(big_k, 1) + 1))  # Cov(δ^k, t′)
+        for k in range(1, big_k + 1):
+            ek = sum(math.comb(k, i) * raw[:, :, i] * ((-a) ** (k - i))[:, None] for i in range(k + 1))
+            ct[:, :, k] = ek - mu[:, k][:, None] * raw[:, :, 0]
+        self.ct = ct
+        self.bmean = tsum / n[:, None] + t_ref[None, :]
+        self.bb = tt - tsum[:, :, None] * tsum[:, None, :] / n[:, None, None]
+        self.sig_t = np.sqrt(np.maximum(np.diagonal(self.bb, axis1=1, axis2=2), 0.0) / n[:, None])
+        self.base = centre + a
+        with np.errstate(divide="ignore"):
+            dev = np.maximum(np.log(yhi) - self.base, self.base - np.log(ylo))
+        self.D = np.maximum(dev, 0.0)
+        self.log_d = np.log(self.D, where=self.D > 0, out=np.full(u, -np.inf))
+        # the centre must lie within the group's own range, or rounding in Σd^k is amplified
+        self.centred = np.abs(a) <= self.D
+        self.ylo, self.yhi = ylo, yhi
+
+    def var_bound(self, lam: float) -> float:
+        """Largest relative truncation error of the variance over groups (for reports/tests)."""
+        return float(np.max(self._checks(lam, 0.0, details=True)[0]))
+
+    def _checks(self, lam: float, tol: float, details: bool = False):
+        r = abs(lam)
+        big_m, big_k = self.M, self.K
+        f = np.array([lam**k / math.factorial(k) for k in range(big_m + 1)])
+        mu = self.mu
+        var_e = np.zeros(mu.shape[0])
+        for k in range(1, big_m):
+            for j in range(1, big_m - k + 1):
+                var_e += f[k] * f[j] * (mu[:, k + j] - mu[:, k] * mu[:, j])
+        phi1 = mu[:, 2:] @ f[2:]
+        cov_e = np.einsum("ujk,k->uj", self.ct[:, :, 1: big_k + 1], f[1: big_k + 1])
+        mu_m = mu[:, big_m]
+        log_r = math.log(r)
+        tail_phi = mu_m * _tail(log_r, self.log_d, big_m + 1, big_m)
+        tail_var = 2.0 * mu_m * _tail(math.log(2 * r), self.log_d, big_m + 1, big_m)
+        # Cov tail: Σ_{k>K} r^k/k! sqrt(E δ^{2k}); E δ^{2k} = μ_2k while 2k ≤ M, else D^(2k−M) μ_M
+        tail_cov = np.zeros(mu.shape[0])
+        for k in range(big_k + 1, big_k + 61):
+            with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+                e2k = mu[:, 2 * k] if 2 * k <= big_m else np.exp((2 * k - big_m) * self.log_d) * mu_m
+                tail_cov += np.exp(k * log_r - math.lgamma(k + 1.0)) * np.sqrt(np.maximum(e2k, 0.0))
+        sd = np.sqrt(np.maximum(var_e, 0.0))
+        if details:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                rel = np.where(var_e > 0, tail_var / var_e, np.where(tail_var > 0, np.inf, 0.0))
+            return rel, phi1, var_e, cov_e
+        flat = self.D == 0
+        ok = flat | ((var_e > 0) & (tail_var <= tol * var_e) & (tail_phi <= tol * sd) & (2 * r * self.D <= 30.0))
+        if self.ct.shape[1]:
+            ok &= flat | (tail_cov <= tol * sd)
+        ok &= flat | self.centred
+        # each d carries the rounding of LN(y), about ε·|ln y|: relative to the spread of d
+        ok &= flat | (2.2e-16 * (np.abs(self.base) + self.D) <= tol * np.sqrt(np.maximum(mu[:, 2], 0.0)))
+        return bool(ok.all()), phi1, var_e, cov_e
+
+    def moments(self, t: Transform, tol: float) -> dict | None:
+        """Group moments of g(y) in the form of ``SqlStudy._scan``, or None when not exact enough."""
+        k = t.kind
+        lam: float
+        if k == "log" or (k == "boxcox" and float(t.param) == 0.0):  # type: ignore[arg-type]
+            mean = self.base.copy()
+            var = self.mu[:, 2].copy()
+            cov = self.ct[:, :, 1].copy()
+        else:
+            if k == "identity":
+                lam = 1.0
+            elif k == "sqrt":
+                lam = 0.5
+            elif k == "reciprocal":
+                lam = -1.0
+            elif k == "boxcox":
+                lam = float(t.param)  # type: ignore[arg-type]
+            else:
+                return None
+            ok, phi1, var_e, cov_e = self._checks(lam, tol)
+            if not ok:
+                return None
+            if k == "boxcox":
+                mean = np.expm1(lam * self.base + np.log1p(phi1)) / lam
+                scale = np.exp(lam * self.base) / lam
+            else:
+                scale = np.exp(lam * self.base)
+                mean = scale * (1.0 + phi1)
+            var = scale**2 * var_e
+            cov = scale[:, None] * cov_e
+        lo = np.asarray(t.forward(self.ylo), dtype=float)
+        hi = np.asarray(t.forward(self.yhi), dtype=float)
+        if k == "reciprocal":
+            lo, hi = hi, lo
+        return {"mean": mean, "ss": self.n * var, "zb": self.n[:, None] * cov, "lo": lo, "hi": hi,
+                "bmean": self.bmean, "bb": self.bb}
+
+
+def choose_orders(sd: float, spread: float, covariates: int = 1) -> tuple[int, int]:
+    """Series orders (M, K) for groups whose ln y has standard deviation ``sd`` and largest
+    deviation ``spread`` from the centre: the cheapest (fewest sums) whose bounds, as the exact
+    check computes them after the scan (normal-like moments, extremes at ``spread``), meet a tenth
+    of SERIES_TOL at |λ| = _LAMBDA_DESIGN. The check after the scan decides; this sizes the query."""
+    big_m_max, big_k_max = SERIES_ORDERS[-1], SERIES_ORDERS[-1] // 2 + 2
+    if not (sd > 0 and spread > 0):
+        return SERIES_ORDERS[0], SERIES_ORDERS[0] // 2
+    r = _LAMBDA_DESIGN
+    log_d = math.log(spread)
+
+    def log_moment(m: int) -> float:  # log E δ^m of a normal group with this sd (m even)
+        return sum(math.log(v) for v in range(m - 1, 0, -2)) + m * math.log(sd)
+
+    def var_ok(big_m: int) -> bool:
+        tail = 2 * math.exp(log_moment(big_m)) * float(_tail(math.log(2 * r), np.array([log_d]), big_m + 1, big_m)[0])
+        return tail <= 0.1 * SERIES_TOL * r * r * sd * sd
+
+    def cov_ok(big_m: int, big_k: int) -> bool:
+        tail = 0.0
+        for k in range(big_k + 1, big_k + 61):
+            log_e = log_moment(2 * k) if 2 * k <= big_m else (2 * k - big_m) * log_d + log_moment(big_m)
+            tail += math.exp(k * math.log(r) - math.lgamma(k + 1.0) + 0.5 * log_e)
+        return tail <= 0.1 * SERIES_TOL * r * sd
+
+    best: tuple[int, int, int] | None = None
+    for big_m in SERIES_ORDERS:
+        if not var_ok(big_m):
+            continue
+        for big_k in range(3, big_k_max + 1):
+            if covariates == 0 or cov_ok(big_m, big_k):
+                cost = big_m + covariates * (big_k if covariates else 0)
+                if best is None or cost < best[0]:
+                    best = (cost, big_m, big_k)
+                break
+    if best is None:
+        return big_m_max, big_k_max
+    return best[1], best[2]
+
+
+def series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t_ref: Sequence[float], big_m: int,
+               big_k: int, shift_table: str | None, fallback_centre: float, centre_expr: str | None = None) -> str:
+    """The one-scan GROUP BY query: per finest group, count, extremes of y, covariate sums and
+    cross-products, and power sums Σd^k (k ≤ M), Σd^k·t (k ≤ K) of d = ln y − centre.
+
+    ``source`` has columns y, the keys and the numeric covariates; ``shift_table`` has the keys
+    and a column ``bw_c`` (the group's centre; groups missing from it use ``fallback_centre``).
+    Instead of the table, ``centre_expr`` may give the centre as an expression in x.
+    A column ``bw_chk`` is 0 on rows whose y, x and covariates are all finite, NULL or NaN
+    otherwise; it is counted and added into Σd, so dirty data are recognised. Standard SQL only.
+    """
+    on = " AND ".join(f"r.{q(k)} = s.{q(k)}" for k in keys)
+    sel = ", ".join([*(f"r.{q(k)}" for k in keys), "r.y", *(f"r.{q(b)}" for b in nums)])
+    if centre_expr is not None:
+        joined = f"SELECT {sel}, {centre_expr} AS bw_c FROM {source} AS r"
+    else:
+        joined = (f"SELECT {sel}, COALESCE(s.bw_c, {fallback_centre!r}) AS bw_c "
+                  f"FROM {source} AS r LEFT JOIN {shift_table} AS s ON {on}")
+    chk = " + ".join(["y * 0", "x * 0", *(f"{q(b)} * 0" for b in nums)])
+    cols = [*(q(k) for k in keys), "y", "bw_c", *(f"({q(b)} - {ref!r}) AS {q(b)}" for b, ref in zip(nums, t_ref, strict=True)),
+            "CASE WHEN y > 0 THEN LN(y) - bw_c END AS bw_d1", f"({chk}) AS bw_chk"]
+    query = f"SELECT {', '.join(cols)} FROM ({joined}) AS bw_j"
+    have = 1
+    while have < big_m:  # powers by repeated squaring: each level adds d^(h+1) … d^(2h)
+        new = [f"bw_d{have} * bw_d{k - have} AS bw_d{k}" for k in range(have + 1, min(2 * have, big_m) + 1)]
+        query = f"SELECT *, {', '.join(new)} FROM ({query}) AS bw_p{have}"
+        have = min(2 * have, big_m)
+    aggs = ["COUNT(*) AS n", "COUNT(bw_chk) AS nchk", "MIN(y) AS ylo", "MAX(y) AS yhi", "MIN(bw_c) AS centre"]
+    for i, b in enumerate(nums):
+        aggs.append(f"SUM({q(b)}) AS t{i}")
+        aggs += [f"SUM({q(b)} * {q(nums[j])}) AS tt{i}_{j}" for j in range(i, len(nums))]
+    aggs += ["SUM(bw_d1 + bw_chk) AS s1", *(f"SUM(bw_d{k}) AS s{k}" for k in range(2, big_m + 1))]
+    for i, b in enumerate(nums):
+        aggs += [f"SUM(bw_d{k} * {q(b)}) AS c{i}_{k}" for k in range(1, big_k + 1)]
+    key_list = ", ".join(q(k) for k in keys)
+    return f"SELECT {key_list}, {', '.join(aggs)} FROM ({query}) AS bw_q GROUP BY {key_list} ORDER BY {key_list}"
+
+
+def _centre_polynomial(px: np.ndarray, lm: np.ndarray, w: np.ndarray, ls: np.ndarray) -> str | None:
+    """A cubic (or lower) in x through the first rows' group means of ln y, as SQL, when it
+    passes within a quarter of the smallest group spread of every one of them (a join on the
+    group keys costs more than the polynomial); None otherwise."""
+    spreads = ls[np.isfinite(ls) & (ls > 0)]
+    if px.size < 1 or spreads.size == 0 or not np.isfinite(lm).all():
+        return None
+    centre, scale = float(np.average(px, weights=w)), float(np.ptp(px)) or 1.0
+    u = (px - centre) / scale
+    deg = min(3, px.size - 1)
+    v = np.vander(u, deg + 1, increasing=True)
+    sw = np.sqrt(w)
+    coef = np.linalg.lstsq(v * sw[:, None], lm * sw, rcond=None)[0]
+    if float(np.max(np.abs(v @ coef - lm))) > 0.25 * float(spreads.min()):
+        return None
+    u_sql = f"((x - {centre!r}) / {scale!r})"
+    expr = repr(float(coef[-1]))
+    for c in coef[-2::-1]:
+        expr = f"({float(c)!r} + {u_sql} * {expr})"
+    return expr
+
+
+def _series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missing: set[str],
+                  progress: ProgressFn | None) -> dict | None:
+    """Everything the study needs from one scan, or None when the data need the exact path
+    (missing or non-finite cells, a response ≤ 0, nothing in the first rows)."""
+    keys = ["x", *cat_cols]
+    key_list = ", ".join(q(k) for k in keys)
+    ln = "CASE WHEN y > 0 THEN LN(y) END"
+    parts = ["COUNT(*) AS n", "MIN(y) AS ylo", "AVG(y) AS ym", f"AVG({ln}) AS lm", f"STDDEV_POP({ln}) AS ls",
+             f"MIN({ln}) AS llo", f"MAX({ln}) AS lhi"]
+    parts += [f"AVG({q(b)}) AS m{i}" for i, b in enumerate(num_cols)]
+    if progress:
+        progress("reading the first rows: group centres")
+    pre = con.execute(f"SELECT {key_list}, {', '.join(parts)} FROM (SELECT * FROM bw_clean LIMIT {PREFIX_ROWS}) "
+                      f"AS bw_pre GROUP BY {key_list}").fetchnumpy()
+    ylo_pre = _floats(pre["ylo"])
+    if ylo_pre.size == 0 or not (ylo_pre > 0).all():
+        return None
+    w = _floats(pre["n"])
+    lm = _floats(pre["lm"])
+    fallback = float((w * lm).sum() / w.sum())
+    y_ref = float((w * _floats(pre["ym"])).sum() / w.sum())
+    t_ref = np.array([float((w * _floats(pre[f"m{i}"])).sum() / w.sum()) for i in range(len(num_cols))])
+    ls = _floats(pre["ls"])
+    sd = float(np.nanmax(ls)) if np.isfinite(ls).any() else 0.0
+    spread = float(np.nanmax(np.maximum(_floats(pre["lhi"]) - lm, lm - _floats(pre["llo"]))))
+    # the whole file reaches further into the tails than its first rows: twice their extremes
+    big_m, big_k = choose_orders(sd, 2.0 * spread, len(num_cols))
+    big_k = big_k if num_cols else 0
+    centre_expr = None if cat_cols else _centre_polynomial(_floats(pre["x"]), lm, w, _floats(pre["ls"]))
+    if centre_expr is None:  # a table of centres, joined on the group keys
+        shift = {k: (_floats(pre[k]) if k == "x" else np.asarray(pre[k], dtype=object)) for k in keys}
+        con.register("bw_shift_src", shift | {"bw_c": lm})
+        con.execute("CREATE OR REPLACE TEMP TABLE bw_shift AS SELECT * FROM bw_shift_src")
+        con.unregister("bw_shift_src")
+    if progress:
+        progress("scanning rows: group sums (one pass)")
+    res = con.execute(series_sql("bw_all", keys, num_cols, [float(v) for v in t_ref], big_m, big_k, "bw_shift",
+                                 fallback, centre_expr)).fetchnumpy()
+    if progress:
+        progress("")
+    n_unit = _floats(res["n"])
+    nchk = _floats(res["nchk"])
+    xs = _floats(res["x"])
+    ylo, yhi = _floats(res["ylo"]), _floats(res["yhi"])
+    s1 = _floats(res["s1"])  # Σ(d + chk): NaN when any cell of the group is NaN or ±inf
+    clean = bool((nchk == n_unit).all() and np.isfinite(xs).all() and np.isfinite(s1).all()
+                 and (ylo > 0).all() and np.isfinite(yhi).all())
+    cat_vals: dict[str, np.ndarray] = {}
+    for c in cat_cols:
+        col = res[c]
+        if np.ma.is_masked(col):
+            clean = False
+            break
+        cat_vals[c] = np.asarray(col).astype(str)
+        clean = clean and not bool(np.isin(cat_vals[c], list(cat_missing)).any())
+    if not clean:
+        con.execute("DROP TABLE IF EXISTS bw_shift")
+        return None
+    n = int(n_unit.sum())
+    nb = len(num_cols)
+    tsum = np.column_stack([_floats(res[f"t{i}"]) for i in range(nb)]) if nb else np.zeros((n_unit.size, 0))
+    tt = np.zeros((n_unit.size, nb, nb))
+    for i in range(nb):
+        for j in range(i, nb):
+            tt[:, i, j] = tt[:, j, i] = _floats(res[f"tt{i}_{j}"])
+    s = np.column_stack([_floats(res[f"s{k}"]) for k in range(1, big_m + 1)])
+    cross = np.zeros((n_unit.size, nb, big_k))
+    for i in range(nb):
+        for k in range(1, big_k + 1):
+            cross[:, i, k - 1] = _floats(res[f"c{i}_{k}"])
+    centre = _floats(res["centre"])
+    series = _Series(n_unit, centre, s, cross, tsum, tt, ylo, yhi, t_ref)
+    slog = float((s[:, 0] + n_unit * centre).sum())
+    # a covariate is constant when its group means agree and it has no spread within groups
+    # (to 1e-12 of its size: t′ = t − t_ref is then rounding noise around 0)
+    num_constant: dict[str, float | None] = {}
+    for i, b in enumerate(num_cols):
+        size = 1e-12 * max(abs(float(t_ref[i])), 1e-300)
+        means = series.bmean[:, i] - t_ref[i]
+        within = float(series.bb[:, i, i].sum()) / n
+        flat = float(np.ptp(means)) <= size and within <= size * size
+        num_constant[b] = float(t_ref[i] + means.mean()) if flat else None
+    num_mean = {b: float(tsum[:, i].sum() / n + t_ref[i]) for i, b in enumerate(num_cols)}
+    units = {"x": xs, "n": n_unit, **cat_vals}
+    return {"n": n, "n_read": n, "drops": (), "y_min": float(ylo.min()), "y_max": float(yhi.max()),
+            "y_le0": 0, "y_eq0": 0, "y_lt0": 0, "slog": slog, "slogabs": slog, "num_constant": num_constant,
+            "num_mean": num_mean, "y_mean": y_ref, "units": units, "series": series}
+
+
+def _exact_setup(con: Any, src: str, case: str, checks: list[tuple[str, str, str]], cat_cols: list[str],
+                 num_cols: list[str], progress: ProgressFn | None) -> dict:
+    """Cleaning counts per column and reason, ranges and domains, and the groups: three scans."""
+    if progress:
+        progress("scanning rows: cleaning counts")
+    counts = dict(con.execute(f"SELECT {case} AS r, COUNT(*) FROM {src} GROUP BY r").fetchall())
+    n_read = int(sum(counts.values()))
+    drops = tuple(DropCount(checks[i][0], checks[i][1], int(cnt), ())
+                  for i, cnt in sorted(counts.items()) if i >= 0 and cnt)
+    if progress:
+        progress("scanning rows: ranges and domains")
+    parts = ["COUNT(*)", "MIN(y)", "MAX(y)",
+             "COUNT(*) FILTER (WHERE y <= 0)", "COUNT(*) FILTER (WHERE y = 0)", "COUNT(*) FILTER (WHERE y < 0)",
+             "SUM(CASE WHEN y > 0 THEN LN(y) ELSE 0 END)", "SUM(CASE WHEN y <> 0 THEN LN(ABS(y)) ELSE 0 END)",
+             "AVG(y)"]
+    for b in num_cols:
+        parts += [f"MIN({q(b)})", f"MAX({q(b)})", f"AVG({q(b)})"]
+    row = _one(con.execute(f"SELECT {', '.join(parts)} FROM bw_clean"))
+    n = int(row[0])
+    facts: dict[str, Any] = {"n": n, "n_read": n_read, "drops": drops}
+    if n < 3:
+        return facts
+    keys = ["x", *cat_cols]
+    key_list = ", ".join(q(k) for k in keys)
+    units = con.execute(f"SELECT {key_list}, COUNT(*) AS n FROM bw_clean GROUP BY {key_list} "
+                        f"ORDER BY {key_list}").fetchnumpy()
+    facts.update({
+        "y_min": float(row[1]), "y_max": float(row[2]),
+        "y_le0": int(row[3]), "y_eq0": int(row[4]), "y_lt0": int(row[5]),
+        "slog": float(row[6]), "slogabs": float(row[7]), "y_mean": float(row[8]),
+        "num_constant": {b: (float(row[9 + 3 * i]) if row[9 + 3 * i] == row[10 + 3 * i] else None)
+                         for i, b in enumerate(num_cols)},
+        "num_mean": {b: float(row[11 + 3 * i]) for i, b in enumerate(num_cols)},
+        "units": {k: units[k] for k in keys} | {"n": units["n"]},
+    })
+    return facts
+
+
+def _floats(col: Any) -> np.ndarray:
+    """A fetched numeric column as float64, NULL as NaN."""
+    return np.ma.filled(np.ma.asarray(col, dtype=float), np.nan) if np.ma.is_masked(col) else np.asarray(col, dtype=float)
 
 
 def _one(cursor: Any) -> tuple:
