@@ -8,6 +8,7 @@ Usage:
     python bench/bench_sql.py --keep                # keep (and reuse) the generated files
     python bench/bench_sql.py --profile             # also time every SQL scan of the tree
     python bench/bench_sql.py --md /tmp/sql_bench_section.md
+    python bench/bench_sql.py --accumulators 10,20,38   # what k plain SUMs cost on the same file
 
 Data (simulated, seeded, written with pyarrow one row group at a time so generation never holds
 more than one chunk): x at 50 levels; two numeric covariates varying within every level (t1, t2);
@@ -17,7 +18,10 @@ Files live in a temp folder (``$TMPDIR/bendwise-bench-sql``) and are deleted unl
 
 What is timed, each in its own Python subprocess (peak RSS from getrusage ru_maxrss):
   floor     one DuckDB query: SELECT x, COUNT(*), SUM(y), SUM(y*y) … GROUP BY x on the file
+            (median of three runs in one process)
   sql tree  engine.sql.make_sql_study(file, covariates t1,t2) + RemedyTree(study).grow(2)
+            (clean data with y > 0: one scan of power sums, see engine.sql._Series; the notes
+            column says whether that path was taken and how many exact scans it still needed)
   mem tree  pandas.read_parquet + engine.make_study + RemedyTree(study).grow(2)  (--memory-rows)
 Targets: sql tree ≤ 4 × floor in wall time; peak RSS of the sql tree < 2 GB.
 With --profile the sql tree child times every query DuckDB runs and lists the slowest.
@@ -87,11 +91,32 @@ def _child_floor(path: str) -> dict:
     import duckdb
 
     con = duckdb.connect()
-    t0 = time.perf_counter()
-    res = con.execute(
-        f"SELECT x, COUNT(*) AS n, SUM(y) AS s1, SUM(y * y) AS s2 FROM read_parquet('{path}') GROUP BY x"
-    ).fetchall()
-    return {"seconds": time.perf_counter() - t0, "groups": len(res)}
+    times = []
+    for _ in range(3):  # the median of three runs (the first also reads the file's metadata)
+        t0 = time.perf_counter()
+        res = con.execute(
+            f"SELECT x, COUNT(*) AS n, SUM(y) AS s1, SUM(y * y) AS s2 FROM read_parquet('{path}') GROUP BY x"
+        ).fetchall()
+        times.append(time.perf_counter() - t0)
+    return {"seconds": sorted(times)[1], "runs": times, "groups": len(res)}
+
+
+def _child_accumulators(path: str, counts: str) -> dict:
+    """The cost of k plain SUM accumulators (no other work), median of three runs each."""
+    import duckdb
+
+    con = duckdb.connect()
+    cols = ("y", "t1", "t2")
+    out = {}
+    for k in [int(v) for v in counts.split(",")]:
+        aggs = ", ".join(f"SUM({cols[i % 3]} + {i}.0)" for i in range(k))
+        times = []
+        for _ in range(3):
+            t0 = time.perf_counter()
+            con.execute(f"SELECT x, COUNT(*), {aggs} FROM read_parquet('{path}') GROUP BY x").fetchall()
+            times.append(time.perf_counter() - t0)
+        out[str(k)] = sorted(times)[1]
+    return {"accumulators": out}
 
 
 class _TimedConnection:
@@ -128,7 +153,8 @@ def _child_sql_tree(path: str, profile: bool) -> dict:
     tree.grow(2)
     t2 = time.perf_counter()
     out = {"study": t1 - t0, "grow": t2 - t1, "seconds": t2 - t0, "nodes": len(tree.nodes),
-           "suggested": tree.suggest().node, "levels": study.c, "n": study.n}
+           "suggested": tree.suggest().node, "levels": study.c, "n": study.n,
+           "exact_scans": study.exact_scans, "one_scan": study._info.get("series") is not None}
     if profile:
         out["queries"] = sorted(log, reverse=True)
         out["query_total"] = sum(s for s, _, _ in log)
@@ -156,6 +182,8 @@ def child_main(argv: list[str]) -> None:
     kind, path = argv[0], argv[1]
     if kind == "floor":
         out = _child_floor(path)
+    elif kind == "accumulators":
+        out = _child_accumulators(path, argv[2])
     elif kind == "sql":
         out = _child_sql_tree(path, profile="--profile" in argv)
     else:
@@ -168,8 +196,10 @@ def run_child(kind: str, path: Path, *extra: str) -> dict:
     """Run one measurement in a fresh interpreter; wall time and its peak RSS."""
     before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
     t0 = time.perf_counter()
+    # single-threaded BLAS for the small group-level solves, as the bendwise command sets it
+    env = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"} | dict(os.environ)
     proc = subprocess.run([sys.executable, __file__, "--child", kind, str(path), *extra],
-                          capture_output=True, text=True, cwd=ROOT)
+                          capture_output=True, text=True, cwd=ROOT, env=env)
     wall = time.perf_counter() - t0
     if proc.returncode != 0:
         raise SystemExit(f"{kind} child failed:\n{proc.stderr[-3000:]}")
@@ -187,12 +217,16 @@ def run_child(kind: str, path: Path, *extra: str) -> dict:
 
 
 def _kind(sql: str, avgs: int) -> str:
+    if "bw_chk" in sql:
+        return "one-scan group sums (series)"
+    if "bw_pre" in sql:
+        return "first rows (group centres)"
     if "MEDIAN(" in sql:
         return "spread (median + deviations)"
     if avgs > 20:
-        return "Box–Cox grid"
+        return "exact Box–Cox grid"
     if sql.startswith('SELECT "x", COUNT(*) AS n, AVG('):
-        return "response moments"
+        return "exact response moments"
     return "study set-up (cleaning, ranges, levels)"
 
 
@@ -214,6 +248,8 @@ def main() -> None:
     p.add_argument("--profile", action="store_true", help="time every SQL query of the tree")
     p.add_argument("--skip-memory", action="store_true", help="leave out the in-memory race")
     p.add_argument("--md", metavar="FILE", help="also write the table as Markdown")
+    p.add_argument("--accumulators", metavar="K,K,…",
+                   help="also time queries of K plain SUMs (the cost of accumulators alone), e.g. 10,20,38")
     args = p.parse_args()
     rows = int(1e6 if args.quick else args.rows)
     mem_rows = int(1e6 if args.quick else args.memory_rows)
@@ -235,9 +271,10 @@ def main() -> None:
         # in-process times: interpreter and import start-up are not part of either job
         ratio = sql["seconds"] / floor["seconds"]
         table = [
-            ("DuckDB GROUP BY count/sum/sum² (floor)", rows, floor["wall"], floor["seconds"], floor["rss_mb"], ""),
+            ("DuckDB GROUP BY count/sum/sum² (floor)", rows, floor["wall"], floor["seconds"], floor["rss_mb"], "runs " + ", ".join(f"{v:.2f}" for v in floor["runs"]) + " s"),
             ("DuckDB: make_sql_study + grow(2)", rows, sql["wall"], sql["seconds"], sql["rss_mb"],
-             f"{sql['nodes']} nodes; study {sql['study']:.1f} s, grow {sql['grow']:.1f} s"),
+             f"{sql['nodes']} nodes; study {sql['study']:.1f} s, grow {sql['grow']:.1f} s; "
+             f"{'one-scan series' if sql['one_scan'] else 'exact path'}, {sql['exact_scans']} extra scan(s)"),
         ]
         if not args.skip_memory:
             if mem_rows == rows:
@@ -257,7 +294,12 @@ def main() -> None:
         for name, n, wall, inside, rss, note in table:
             lines.append(f"| {name} | {_rows(n)} | {wall:.1f} s | {inside:.1f} s | {_gb(rss)} | {note} |")
         lines.append("")
-        lines.append(f"ratio sql tree / floor (in-process): {ratio:.0f}× (target ≤ 4×) — "
+        if args.accumulators:
+            acc = run_child("accumulators", path, args.accumulators)["accumulators"]
+            lines.append("plain SUM accumulators (median of 3): " + "; ".join(
+                f"{k}: {v:.2f} s = {v / floor['seconds']:.1f}× floor" for k, v in acc.items()))
+            lines.append("")
+        lines.append(f"ratio sql tree / floor (in-process): {ratio:.1f}× (target ≤ 4×) — "
                      f"{'met' if ratio <= 4 else 'missed'}; peak RSS {_gb(sql['rss_mb'])} (target < 2 GB) — "
                      f"{'met' if sql['rss_mb'] < 2048 else 'missed'}")
         if args.profile:

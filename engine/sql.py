@@ -662,7 +662,7 @@ def make_sql_study(
 
 # ----------------------------------------------------------------------------- set-up scans
 
-PREFIX_ROWS = 1 << 18
+PREFIX_ROWS = 1 << 16
 """Rows read from the start of the data to place each replicate group's series centre."""
 SERIES_TOL = 1e-10
 """Largest truncation error of the series, relative to the within-group spread (node statistics)."""
