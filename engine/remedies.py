@@ -267,6 +267,65 @@ def grid_group_stats(
     return out
 
 
+def grid_group_stats_series(
+    logy: np.ndarray,
+    codes: np.ndarray,
+    c: int,
+    lams: np.ndarray,
+    bases: np.ndarray | None,
+    order: np.ndarray,
+) -> list[GroupStats | None]:
+    """The Box–Cox grid's group statistics from one pass of power sums of ln y (unweighted).
+
+    Each group is centred on its own mean of ln y; :class:`engine.series.GroupSeries` gives every
+    λ from the sums Σd^k and Σd^k·b̃ (b̃: the bases centred within groups). An entry is None
+    where the series cannot promise GRID_TOL (the caller computes that λ row by row).
+    ``order`` sorts the rows by group (for each group's extremes).
+    """
+    from .series import GRID_TOL, GroupSeries, choose_orders
+
+    base = compute_group_stats(codes, c, logy, None, bases)
+    count = base.count.astype(float)
+    centre = base.mean
+    d = logy - centre[codes]
+    sorted_log = logy[order]
+    starts = np.concatenate(([0], np.cumsum(base.count)[:-1])).astype(np.intp)
+    lo = np.minimum.reduceat(sorted_log, starts)
+    hi = np.maximum.reduceat(sorted_log, starts)
+    q = 0 if bases is None else bases.shape[1]
+    sd = float(np.sqrt(np.max(base.ss / count)))
+    spread = float(np.max(np.maximum(hi - centre, centre - lo)))
+    big_m, big_k = choose_orders(sd, spread, q)
+    s = np.empty((c, big_m))
+    cross = np.zeros((c, q, big_k))
+    bc = None if not q else bases - base.base_mean[codes]  # type: ignore[operator]
+    power = np.ones_like(d)
+    for k in range(1, big_m + 1):
+        power *= d
+        s[:, k - 1] = np.bincount(codes, weights=power, minlength=c)
+        if k <= big_k:
+            for j in range(q):
+                cross[:, j, k - 1] = np.bincount(codes, weights=power * bc[:, j], minlength=c)  # type: ignore[index]
+    tsum = np.zeros((c, q))
+    tt = base.cross[:, :q, :q] if q else np.zeros((c, 0, 0))  # type: ignore[index]
+    series = GroupSeries(count, centre, s, cross, tsum, tt, np.exp(lo), np.exp(hi), np.zeros(q))
+    out: list[GroupStats | None] = []
+    for v in lams:
+        mom = series.moments(Transform("boxcox", float(v)) if v != 0 else LOG, GRID_TOL)
+        if mom is None:
+            out.append(None)
+            continue
+        cr = None
+        if q:
+            cr = np.empty((c, q + 1, q + 1))
+            cr[:, :q, :q] = base.cross[:, :q, :q]  # type: ignore[index]
+            cr[:, :q, q] = cr[:, q, :q] = mom["zb"]
+            cr[:, q, q] = mom["ss"]
+        out.append(GroupStats(base.n, base.count, base.wsum, mom["mean"], mom["ss"], base.sum_log_w,
+                              base.base_mean, cr))
+    return out
+
+
 def profile_boxcox(
     y: np.ndarray | None,
     codes: np.ndarray,

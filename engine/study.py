@@ -101,10 +101,14 @@ class Study:
         return float(self.x.max())
 
     def domain_problem(self, t: Any, role: str) -> str | None:
-        """Why transform ``t`` cannot apply to y (role 'y') or x (role 'x'); None if it can."""
-        if role == "y":
-            return t.domain_problem(self.y, self.y_name, "y")
-        return t.domain_problem(self.x, self.x_name, "x")
+        """Why transform ``t`` cannot apply to y (role 'y') or x (role 'x'); None if it can (cached)."""
+        key = ("domain", role, t.key())
+        if key not in self._cache:
+            if role == "y":
+                self._cache[key] = t.domain_problem(self.y, self.y_name, "y")
+            else:
+                self._cache[key] = t.domain_problem(self.x, self.x_name, "x")
+        return self._cache[key]
 
     def transformed(self, t: Any) -> tuple[np.ndarray | None, float]:
         """(g(y) per row, Σ log|g′(y)|), cached; raises UsageError outside the domain."""
@@ -161,10 +165,19 @@ class Study:
         key = ("bcgrid", by, bases_key, self.weights_name, tuple(lams))
         hit = self._cache.get(key)
         if hit is None:
-            from .remedies import grid_group_stats
+            from .remedies import EXACT_PROFILE_LIMIT, grid_group_stats, grid_group_stats_series
 
             codes, c = self.group_codes(by)
-            hit = self._cache[key] = grid_group_stats(np.log(self.y), codes, c, lams, self.weights, bases)
+            logy = np.log(self.y)
+            found: list = [None] * len(lams)
+            if self.weights is None and self.n > EXACT_PROFILE_LIMIT:  # power sums: one pass for every λ
+                found = grid_group_stats_series(logy, codes, c, lams, bases, self.group_order(by))
+            todo = [i for i, st in enumerate(found) if st is None]
+            if todo:
+                rest = grid_group_stats(logy, codes, c, lams[todo], self.weights, bases)
+                for i, st in zip(todo, rest, strict=True):
+                    found[i] = st
+            hit = self._cache[key] = found
         return hit
 
     # ----- grouping -------------------------------------------------------------------
@@ -297,10 +310,12 @@ class Study:
         key = ("distinct", name)
         hit = self._cache.get(key)
         if hit is None:
-            import pandas as pd
-
             cov = self.covariate(name)
-            hit = len(cov.levels) if cov.kind == "categorical" else int(pd.unique(cov.values).size)
+            if cov.kind == "categorical":
+                hit = len(cov.levels)
+            else:  # one sort: several times faster than hashing 10⁷ distinct doubles
+                ordered = np.sort(np.asarray(cov.values, dtype=float))
+                hit = int(np.count_nonzero(ordered[1:] != ordered[:-1])) + 1 if ordered.size else 0
             self._cache[key] = hit
         return hit
 

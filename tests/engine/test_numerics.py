@@ -45,3 +45,28 @@ def test_brentq_refuses_a_bad_bracket():
         _brentq(lambda v: v * v + 1.0, -1.0, 1.0)
     with pytest.raises(ValueError):
         _brentq(lambda v: math.nan, 0.0, 1.0)
+
+
+def test_boxcox_grid_from_power_sums_matches_row_sums():
+    # reference: the group statistics of each z = (y^λ − 1)/λ computed from the rows themselves
+    # (engine.groups.compute_group_stats, two passes), for every λ of the tree's grid
+    from engine.groups import compute_group_stats
+    from engine.remedies import GRID_STEP, grid_group_stats_series
+    from engine.series import GRID_TOL
+
+    rng = np.random.default_rng(9)
+    n = 60_000
+    codes = rng.integers(0, 8, n)
+    temp = rng.normal(20.0, 2.0, n)
+    y = np.exp(1.0 + 0.2 * codes + 0.01 * temp + rng.normal(0, 0.05, n))
+    bases = temp[:, None]
+    lams = np.round(np.arange(-3.0, 3.0 + 1e-9, GRID_STEP), 6)
+    got = grid_group_stats_series(np.log(y), codes, 8, lams, bases, np.argsort(codes, kind="stable"))
+    assert all(g is not None for g in got)  # a narrow response: the series covers the whole grid
+    for lam, g in zip(lams, got, strict=True):
+        z = np.log(y) if lam == 0 else np.expm1(lam * np.log(y)) / lam
+        ref = compute_group_stats(codes, 8, z, None, bases)
+        sd = np.sqrt(ref.ss / ref.count)
+        assert np.all(np.abs(g.mean - ref.mean) <= 10 * GRID_TOL * sd), lam
+        assert np.allclose(g.ss, ref.ss, rtol=10 * GRID_TOL, atol=0), lam
+        assert np.allclose(g.cross, ref.cross, rtol=10 * GRID_TOL, atol=10 * GRID_TOL * np.abs(ref.cross).max()), lam
