@@ -154,7 +154,8 @@ def _child_sql_tree(path: str, profile: bool) -> dict:
     t2 = time.perf_counter()
     out = {"study": t1 - t0, "grow": t2 - t1, "seconds": t2 - t0, "nodes": len(tree.nodes),
            "suggested": tree.suggest().node, "levels": study.c, "n": study.n,
-           "exact_scans": study.exact_scans, "one_scan": study._info.get("series") is not None}
+           "exact_scans": study.exact_scans, "one_scan": study._info.get("series") is not None,
+           "orders": None if study._info.get("series") is None else [study._info["series"].M, study._info["series"].K]}
     if profile:
         out["queries"] = sorted(log, reverse=True)
         out["query_total"] = sum(s for s, _, _ in log)
@@ -271,10 +272,12 @@ def main() -> None:
         # in-process times: interpreter and import start-up are not part of either job
         ratio = sql["seconds"] / floor["seconds"]
         table = [
-            ("DuckDB GROUP BY count/sum/sum² (floor)", rows, floor["wall"], floor["seconds"], floor["rss_mb"], "runs " + ", ".join(f"{v:.2f}" for v in floor["runs"]) + " s"),
+            ("DuckDB GROUP BY count/sum/sum² (floor)", rows, floor["wall"], floor["seconds"], floor["rss_mb"],
+             "runs " + ", ".join(f"{v:.2f}" for v in floor["runs"]) + " s"),
             ("DuckDB: make_sql_study + grow(2)", rows, sql["wall"], sql["seconds"], sql["rss_mb"],
              f"{sql['nodes']} nodes; study {sql['study']:.1f} s, grow {sql['grow']:.1f} s; "
-             f"{'one-scan series' if sql['one_scan'] else 'exact path'}, {sql['exact_scans']} extra scan(s)"),
+             + (f"one-scan series (M = {sql['orders'][0]}, K = {sql['orders'][1]})" if sql["one_scan"] else "exact path")
+             + f", {sql['exact_scans']} extra scan(s)"),
         ]
         if not args.skip_memory:
             if mem_rows == rows:
