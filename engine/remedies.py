@@ -772,6 +772,7 @@ class RemedyTree:
         if sp.weights is None and node.score is not None:
             pm = power_of_mean(st, sp.response)
             spread_p = node.score.spread.p if node.score.spread.testable else None
+            spread_name = node.score.spread.name.split("(")[-1].rstrip(")") if "(" in node.score.spread.name else "spread"
             if pm is None:
                 pruned.append(("weights", "needs at least 3 replicated levels with spread to fit a variance function"))
             else:
@@ -782,7 +783,7 @@ class RemedyTree:
                 # unweighted one by 2 AICc when it has as many parameters.
                 differ = (spread_p is not None and spread_p < 0.10) or (math.isfinite(p_theta) and p_theta < 0.10)
                 if not differ and abs(theta) < 0.25:
-                    pruned.append(("weights", f"spreads do not differ across levels (Brown–Forsythe p = "
+                    pruned.append(("weights", f"spreads do not differ across levels ({spread_name} p = "
                                    f"{_fp(spread_p)}, trend of SD with the mean θ̂ = {theta:.2g}, p = {_fp(p_theta)})"))
                 elif abs(theta) < 0.1:
                     pruned.append(("weights", f"the spread does not follow the mean (θ̂ = {theta:.2g})"))
