@@ -16,7 +16,7 @@ import numpy as np
 
 from .transforms import Transform
 
-__all__ = ["GroupSeries", "choose_orders", "SERIES_TOL", "GRID_TOL", "GRID_END"]
+__all__ = ["GroupSeries", "choose_orders", "series_helps", "SERIES_TOL", "GRID_TOL", "GRID_END"]
 
 GRID_END = 3.0
 """|λ| at the ends of the Box–Cox grid the tree profiles."""
@@ -164,6 +164,29 @@ class GroupSeries:
             lo, hi = hi, lo
         return {"mean": mean, "ss": self.n * var, "zb": self.n[:, None] * cov, "lo": lo, "hi": hi,
                 "bmean": self.bmean, "bb": self.bb}
+
+
+def series_helps(sd: float, spread: float, covariates: int = 1) -> bool:
+    """Whether the largest orders can hold y, √y and 1/y (|λ| = _LAMBDA_DESIGN) to SERIES_TOL for
+    groups of this spread; if not, a scan of power sums would be wasted on them."""
+    if not (sd > 0 and spread > 0):
+        return True
+    big_m, big_k = SERIES_ORDERS[-1], SERIES_K_MAX
+    r, log_d = _LAMBDA_DESIGN, math.log(spread)
+
+    def log_moment(m: int) -> float:
+        return sum(math.log(v) for v in range(m - 1, 0, -2)) + m * math.log(sd)
+
+    tail = 2 * math.exp(log_moment(big_m)) * float(_tail(math.log(2 * r), np.array([log_d]), big_m + 1, big_m)[0])
+    if tail > SERIES_TOL * r * r * sd * sd:
+        return False
+    if covariates:
+        cov = sum(math.exp(k * math.log(r) - math.lgamma(k + 1.0) + 0.5 * (
+            log_moment(2 * k) if 2 * k <= big_m else (2 * k - big_m) * log_d + log_moment(big_m)))
+            for k in range(big_k + 1, big_k + 61))
+        if cov > SERIES_TOL * r * sd:
+            return False
+    return True
 
 
 def choose_orders(sd: float, spread: float, covariates: int = 1) -> tuple[int, int]:

@@ -30,7 +30,7 @@ from .data import NA_TEXT, CleaningReport, DropCount, resolve_column
 from .errors import DataError, UsageError
 from .groups import GroupStats
 from .results import SideTest
-from .series import GRID_TOL, SERIES_TOL, GroupSeries, choose_orders
+from .series import GRID_TOL, SERIES_TOL, GroupSeries, choose_orders, series_helps
 from .study import MAX_CATEGORIES, Covariate, Study, cluster_sorted, level_labels, parse_tolerance
 from .transforms import Transform
 
@@ -751,6 +751,8 @@ def _series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missin
     sd = float(np.nanmax(ls)) if np.isfinite(ls).any() else 0.0
     spread = float(np.nanmax(np.maximum(_floats(pre["lhi"]) - lm, lm - _floats(pre["llo"]))))
     # the whole file reaches further into the tails than its first rows: twice their extremes
+    if not series_helps(sd, 2.0 * spread, len(num_cols)):
+        return None  # too wide a response for the series: scan each transform exactly
     big_m, big_k = choose_orders(sd, 2.0 * spread, len(num_cols))
     big_k = big_k if num_cols else 0
     centre_expr = None if cat_cols else _centre_polynomial(_floats(pre["x"]), lm, w, _floats(pre["ls"]))

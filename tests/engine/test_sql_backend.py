@@ -937,6 +937,16 @@ def test_one_scan_path_is_taken_on_clean_data_and_left_on_dirty(tmp_path):
     frame.loc[11, Y] = -1.0
     frame.to_parquet(nonpos)
     assert make_sql_study(str(nonpos), y=Y, x=X, covariates=[CAT, NUM])._info["series"] is None
+    # a response too wide for the series (ln y spread 0.5 within groups): straight to exact scans,
+    # with the same statistics as in memory
+    wide_frame = _tree_frame(5000, seed=21)
+    wide_frame[Y] = np.exp(np.log(wide_frame[Y]) + np.random.default_rng(2).normal(0, 0.5, len(wide_frame)))
+    wide = tmp_path / "wide.parquet"
+    wide_frame.to_parquet(wide)
+    mem, sql_w = _both(wide, covariates=(CAT, NUM))
+    assert sql_w._info["series"] is None
+    for spec in (ModelSpec(), ModelSpec(response=LOG), ModelSpec(response=SQRT, covariates=(NUM,))):
+        _same_score(mem, sql_w, spec)
 
 
 def test_series_sql_runs_unchanged_on_datafusion(tmp_path):
