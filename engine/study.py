@@ -92,13 +92,19 @@ class Study:
 
     @property
     def x_min(self) -> float:
-        """Smallest x used."""
-        return float(self.x.min())
+        """Smallest x used (cached: asked for by every node)."""
+        hit = self._cache.get("x_min")
+        if hit is None:
+            hit = self._cache["x_min"] = float(self.x.min())
+        return hit
 
     @property
     def x_max(self) -> float:
-        """Largest x used."""
-        return float(self.x.max())
+        """Largest x used (cached)."""
+        hit = self._cache.get("x_max")
+        if hit is None:
+            hit = self._cache["x_max"] = float(self.x.max())
+        return hit
 
     def domain_problem(self, t: Any, role: str) -> str | None:
         """Why transform ``t`` cannot apply to y (role 'y') or x (role 'x'); None if it can (cached)."""
