@@ -61,6 +61,19 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError("give both -y and -x, or neither (then choose them on the start screen)")
     if req.covariates and not req.y:
         raise UsageError("--covariates needs -y and -x; without them choose covariates on the start screen")
+    from engine.sql import choose_engine
+
+    from .common import load_study, parse_size
+
+    if choose_engine(args.data, args.engine, parse_size(args.memory_cap)) == "duckdb":
+        # the rows stay in the files: the study is built from SQL scans, shown here on stderr
+        if not req.y:
+            raise UsageError("with the DuckDB engine give -y and -x (the start screen needs the table in memory; "
+                             "or add --engine memory)")
+        _say(f"scanning {req.source}…")
+        study = load_study(args)
+        study.progress = None  # inside the app the workers report scans in the status row
+        return launch(req, study=study, frame=None, depth=args.depth, alpha=args.alpha, rule=args.rule)
     _say(f"reading {req.source}…")
     frame = read_frame(req)
     study = build_study(req, frame) if req.y else None

@@ -7,6 +7,8 @@ worker's cancel flag between nodes, and ends by posting a past-tense message.
 from __future__ import annotations
 
 import threading
+from collections.abc import Iterator
+from contextlib import contextmanager
 from typing import TYPE_CHECKING
 
 from textual import work
@@ -46,6 +48,26 @@ class TreeWork:
 
         def post_message(self, message: Message) -> bool: ...
 
+    @contextmanager
+    def _scans_reported(self) -> Iterator[None]:
+        """While a worker holds the tree, a study that scans files (the SQL engine) reports each
+        scan in the status row."""
+        study = self.study
+        if study is None or not hasattr(study, "progress"):
+            yield
+            return
+        before = study.progress
+
+        def say(text: str) -> None:
+            if text:
+                self.post_message(ScoringProgressed(None, None, text, 0))
+
+        study.progress = say
+        try:
+            yield
+        finally:
+            study.progress = before
+
     @work(thread=True, exclusive=True, exit_on_error=False, group="tree")
     def _grow(self) -> None:
         from engine import check
@@ -53,7 +75,7 @@ class TreeWork:
         from engine.remedies import RemedyTree
 
         worker = get_current_worker()
-        with self._lock:
+        with self._lock, self._scans_reported():
             try:
                 study = self.study
                 if study is None:
@@ -87,7 +109,7 @@ class TreeWork:
         board = self.board
         assert board is not None
         tree = board.tree
-        with self._lock:
+        with self._lock, self._scans_reported():
             count = [0]
 
             def progress(done: int, total: int, label: str) -> None:
