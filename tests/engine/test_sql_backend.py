@@ -721,6 +721,16 @@ def test_cli_file_not_found(capsys, tmp_path):
 # ----------------------------------------------------------------------------- portability
 
 
+def _same_columns(ours: dict, theirs: dict) -> None:
+    """Column by column, row by row: text equal, numbers to 1e-9 (DuckDB vs DataFusion)."""
+    for col in ours:
+        for i, (a, b) in enumerate(zip(ours[col], theirs[col], strict=True)):
+            if isinstance(a, str):
+                assert a == b, (col, i)
+            else:
+                _close(a, b, f"datafusion.{col}[{i}]", floor=1e-12)
+
+
 def test_aggregate_sql_runs_unchanged_on_datafusion(tmp_path):
     # reference: Apache DataFusion as a second engine (pip package `datafusion`, local mode)
     datafusion = pytest.importorskip("datafusion")
@@ -739,12 +749,7 @@ def test_aggregate_sql_runs_unchanged_on_datafusion(tmp_path):
     ours = sql.con.sql(text).to_arrow_table().to_pydict()
     assert list(theirs) == list(ours)
     assert len(ours["n"]) == frame.dropna().groupby([X, CAT]).ngroups
-    for col in ours:
-        for i, (a, b) in enumerate(zip(ours[col], theirs[col], strict=True)):
-            if isinstance(a, str):
-                assert a == b, (col, i)
-            else:
-                _close(a, b, f"datafusion.{col}[{i}]", floor=1e-12)
+    _same_columns(ours, theirs)
 
 
 # ----------------------------------------------------------------------------- the remedy tree
@@ -965,12 +970,7 @@ def test_series_sql_runs_unchanged_on_datafusion(tmp_path):
     theirs = ctx.sql(text).to_arrow_table().to_pydict()
     ours = sql.con.sql(text).to_arrow_table().to_pydict()
     assert list(theirs) == list(ours) and len(ours["n"]) == frame.groupby([X, CAT]).ngroups
-    for col in ours:
-        for i, (a, b) in enumerate(zip(ours[col], theirs[col], strict=True)):
-            if isinstance(a, str):
-                assert a == b, (col, i)
-            else:
-                _close(a, b, f"datafusion.{col}[{i}]", floor=1e-12)
+    _same_columns(ours, theirs)
 
 
 def test_bartlett_from_groups_matches_scipy():
