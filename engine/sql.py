@@ -468,8 +468,8 @@ def bartlett_from_groups(count: np.ndarray, ss: np.ndarray, name: str = "equal s
     pooled = float(ssk.sum()) / dof
     stat = (dof * math.log(pooled) - float(((nk - 1.0) * np.log(var)).sum()))
     stat /= 1.0 + (float((1.0 / (nk - 1.0)).sum()) - 1.0 / dof) / (3.0 * (k - 1))
-    note = ("one-pass test from level variances (Brown–Forsythe needs the rows: --engine memory); "
-            "it assumes normal errors within levels")
+    note = ("one pass over level variances, assumes normal errors within levels; Brown–Forsythe "
+            "needs the rows: --engine memory")
     return SideTest(name, True, stat, (k - 1,), chi2_sf(stat, k - 1), reason=note)
 
 def make_sql_study(

@@ -101,3 +101,12 @@ async def test_scans_during_work_go_to_the_status_row(tmp_path):
         labels = [m.label for m in posted if isinstance(m, ScoringProgressed)]
         assert any(lb.startswith("scanning 480 rows") for lb in labels), labels
         assert study.progress is None and study.exact_scans >= 1
+
+
+def test_check_over_files_names_its_spread_test(tmp_path, capsys):
+    folder = _files(tmp_path)
+    assert main(["check", str(folder), "-y", "signal", "-x", "conc"]) == 0
+    out = capsys.readouterr().out
+    line = next(ln for ln in out.splitlines() if ln.strip().startswith("equal spread"))
+    assert line.strip().startswith("equal spread (Bartlett): ")
+    assert "Brown–Forsythe needs the rows: --engine memory" in out

@@ -80,6 +80,8 @@ def render(r, design: str) -> list[str]:
             word = "flagged" if (t.p is not None and t.p < lvl) else "not flagged"
             approx = ", approximate" if t.approximate else ""
             out.append(f"  {t.name}: {fmt_num(t.statistic, 4)}{df}, p {fmt_p(t.p)} — {word} at {lvl:g}{approx}")
+            if t.reason:  # a note on how to read it (e.g. the SQL engine's one-pass spread test)
+                out.append(f"    ({t.reason})")
         else:
             out.append(f"  {t.name}: not run — {t.reason}")
     if r.replicate_free:
