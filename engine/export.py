@@ -63,6 +63,10 @@ def file_digest(path: str | Path) -> tuple[str, int]:
     return h.hexdigest(), size
 
 
+NEEDS_ROWS = ("export needs the rows in memory (the spec keeps a sample of row residuals for back-transformed "
+              "predictions and the digest of one data file); export from a file with --engine memory")
+
+
 def describe_reading(path: str | Path | None, *, delimiter: str | None = None, decimal: str | None = None,
                      sheet: str | None = None) -> dict[str, Any]:
     """How the table was read (format, delimiter, decimal mark, sheet), as ``load_table`` reads it."""
@@ -160,6 +164,8 @@ def build_spec(tree: RemedyTree, node_id: str, *, data_path: str | Path | None =
     from .scoring import residuals_by_level
 
     study = tree.study
+    if not study.has_rows:
+        raise UsageError(NEEDS_ROWS)
     node = _node(tree, node_id)
     score = node.score
     assert score is not None

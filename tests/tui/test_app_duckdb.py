@@ -110,3 +110,20 @@ def test_check_over_files_names_its_spread_test(tmp_path, capsys):
     line = next(ln for ln in out.splitlines() if ln.strip().startswith("equal spread"))
     assert line.strip().startswith("equal spread (Bartlett): ")
     assert "Brown–Forsythe needs the rows: --engine memory" in out
+
+
+def test_export_over_files_says_it_needs_the_rows(tmp_path, capsys):
+    from engine.remedies import RemedyTree
+    from engine.sql import make_sql_study
+    from tui.exporting import export_node
+
+    folder = _files(tmp_path)
+    out = tmp_path / "spec"
+    assert main(["export", str(folder), "-y", "signal", "-x", "conc", "--suggested", "-o", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "export needs the rows in memory" in err[0] and "--engine memory" in err[0]
+    assert not out.exists()
+    # the app's export action gets the same one-line reason (its dialog shows ValueError messages)
+    tree = RemedyTree(make_sql_study(str(folder), y="signal", x="conc"))
+    with pytest.raises(ValueError, match="export needs the rows in memory"):
+        export_node(tree, "root", out, data_path=str(folder))
