@@ -52,8 +52,43 @@ MAX_RESIDUALS = 100_000
 
 # ----- provenance -----------------------------------------------------------------------
 
+def data_files(path: str | Path) -> list[Path]:
+    """The files behind a data argument: the file itself, a folder's Parquet files (else its
+    CSV files, searched below it, sorted) or a glob's matches (sorted) — as the SQL engine reads them."""
+    import glob
+
+    text = str(path)
+    p = Path(text)
+    if p.is_dir():
+        found = sorted(glob.glob(str(p / "**" / "*.parquet"), recursive=True))
+        found = found or sorted(glob.glob(str(p / "**" / "*.csv"), recursive=True))
+    elif any(ch in text for ch in "*?[") and not p.exists():
+        found = sorted(glob.glob(text, recursive=True))
+    else:
+        return [p]
+    if not found:
+        raise DataError(f"no data file under {text}; check the path or pattern")
+    return [Path(f) for f in found]
+
+
 def file_digest(path: str | Path) -> tuple[str, int]:
-    """SHA-256 (hex) and size in bytes of a file, read in chunks."""
+    """SHA-256 (hex) and size in bytes of a file, read in chunks. For a folder or glob: the
+    SHA-256 of each file's relative name and digest in turn (sorted), and the total size."""
+    files = data_files(path)
+    if len(files) > 1 or Path(path).is_dir():
+        root = Path(path) if Path(path).is_dir() else Path(os.path.commonpath([str(f.parent) for f in files]))
+        outer = hashlib.sha256()
+        total = 0
+        for f in files:
+            sha, size = _one_file_digest(f)
+            outer.update(f"{f.relative_to(root).as_posix()}\0{sha}\0".encode())
+            total += size
+        return outer.hexdigest(), total
+    return _one_file_digest(files[0])
+
+
+def _one_file_digest(path: str | Path) -> tuple[str, int]:
+    """SHA-256 (hex) and size in bytes of one file."""
     h = hashlib.sha256()
     size = 0
     with open(path, "rb") as fh:
@@ -61,10 +96,6 @@ def file_digest(path: str | Path) -> tuple[str, int]:
             h.update(chunk)
             size += len(chunk)
     return h.hexdigest(), size
-
-
-NEEDS_ROWS = ("export needs the rows in memory (the spec keeps a sample of row residuals for back-transformed "
-              "predictions and the digest of one data file); export from a file with --engine memory")
 
 
 def describe_reading(path: str | Path | None, *, delimiter: str | None = None, decimal: str | None = None,
@@ -78,6 +109,7 @@ def describe_reading(path: str | Path | None, *, delimiter: str | None = None, d
     out: dict[str, Any] = {"format": "text", "delimiter": delimiter, "decimal": dec, "sheet": None}
     if path is None:
         return out
+    path = data_files(path)[0]  # a folder or glob is read as its first file is
     suffix = Path(path).suffix.lower()
     if suffix in _PARQUET_SUFFIXES:
         return {"format": "parquet", "delimiter": None, "decimal": dec, "sheet": None}
@@ -126,15 +158,34 @@ def _level_table(study, z: np.ndarray) -> list[dict[str, Any]]:
     ]
 
 
+def _group_level_table(study, spec) -> list[dict[str, Any]]:
+    """The level table from level totals (a study without rows)."""
+    from .transforms import IDENTITY
+
+    ys = study.group_stats(None, ("z", IDENTITY.key()))
+    zs = study.group_stats(None, ("z", spec.response.key()))
+    cnt = np.asarray(ys.count, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sd = np.sqrt(np.asarray(ys.ss, dtype=float) / (cnt - 1))
+    return [
+        {"x": float(study.x_level_values[g]), "label": study.x_level_labels[g], "n": int(cnt[g]),
+         "mean_y": float(ys.mean[g]), "sd_y": float(sd[g]) if cnt[g] > 1 else None, "mean_z": float(zs.mean[g])}
+        for g in range(study.c)
+    ]
+
+
 def _weights_block(study, spec) -> dict[str, Any]:
     rule = spec.weights
     out: dict[str, Any] = {"rule": "none", "theta": None, "normaliser": None,
                            "user_column": study.weights_name, "approximate": False}
     if rule is None:
         return out
-    z = np.asarray(spec.response.forward(study.y), dtype=float)
-    cnt = np.bincount(study.x_codes, minlength=study.c).astype(float)
-    m = np.abs(np.bincount(study.x_codes, weights=z, minlength=study.c) / cnt)
+    if study.has_rows:
+        z = np.asarray(spec.response.forward(study.y), dtype=float)
+        cnt = np.bincount(study.x_codes, minlength=study.c).astype(float)
+        m = np.abs(np.bincount(study.x_codes, weights=z, minlength=study.c) / cnt)
+    else:
+        m = np.abs(np.asarray(study.group_stats(None, ("z", spec.response.key())).mean, dtype=float))
     g = float(np.exp(np.mean(np.log(m ** (-2.0 * rule.theta)))))
     out.update(rule=rule.kind, theta=rule.theta, normaliser=g, approximate=True,
                description="w = |level mean of the transformed response|^(−2θ) / normaliser; "
@@ -151,7 +202,7 @@ def _covariates_block(study, spec) -> list[dict[str, Any]]:
                         "reference": cov.levels[0], "mean": None})
         else:
             out.append({"name": name, "kind": "numeric", "coding": "value", "levels": [], "reference": None,
-                        "mean": float(np.mean(cov.values))})
+                        "mean": study.covariate_mean(name)})
     return out
 
 
@@ -164,8 +215,6 @@ def build_spec(tree: RemedyTree, node_id: str, *, data_path: str | Path | None =
     from .scoring import residuals_by_level
 
     study = tree.study
-    if not study.has_rows:
-        raise UsageError(NEEDS_ROWS)
     node = _node(tree, node_id)
     score = node.score
     assert score is not None
@@ -177,9 +226,21 @@ def build_spec(tree: RemedyTree, node_id: str, *, data_path: str | Path | None =
         sha, size = file_digest(data_path)
     if max_residuals < 2:
         raise UsageError(f"max_residuals {max_residuals} must be at least 2")
-    lr = residuals_by_level(study, score, max_rows=max_residuals)
-    sampled = study.n > max_residuals
-    z = np.asarray(spec.response.forward(study.y), dtype=float)
+    if study.has_rows:
+        lr_residual = residuals_by_level(study, score, max_rows=max_residuals).residual
+        sampled = study.n > max_residuals
+        sample_note = (f"the table has {study.n:,} rows; {lr_residual.shape[0]:,} evenly spaced residuals are kept"
+                       if sampled else None)
+        z = np.asarray(spec.response.forward(study.y), dtype=float)
+        levels = _level_table(study, z)
+        y_range = (float(study.y.min()), float(study.y.max()))
+    else:  # rows read through the SQL engine: level totals, and a seeded sample for the residuals
+        lr_residual = residuals_by_level(study, score, max_rows=max_residuals).residual
+        sampled = study.n > max_residuals
+        sample_note = (f"the table has {study.n:,} rows; residuals of a seeded random sample of "
+                       f"{lr_residual.shape[0]:,} rows (DuckDB reservoir sample) are kept" if sampled else None)
+        levels = _group_level_table(study, spec)
+        y_range = study.y_range()
     line = check(study, alpha=tree.alpha)
     sug = tree.suggest(rule)
     fit = score.fit
@@ -235,18 +296,17 @@ def build_spec(tree: RemedyTree, node_id: str, *, data_path: str | Path | None =
             "r2_adj": fit.r2_adj,
         },
         "calibration": {
-            "x_min": float(study.x.min()), "x_max": float(study.x.max()),
-            "y_min": float(study.y.min()), "y_max": float(study.y.max()),
-            "levels": _level_table(study, z),
+            "x_min": float(study.x_min), "x_max": float(study.x_max),
+            "y_min": y_range[0], "y_max": y_range[1],
+            "levels": levels,
         },
         "training": {
-            "residuals": lr.residual,
+            "residuals": lr_residual,
             "kind": "√w·(z − ẑ) per row on the fitted scale (the smearing sample)",
-            "count": int(lr.residual.shape[0]),
+            "count": int(lr_residual.shape[0]),
             "rows": study.n,
             "sampled": sampled,
-            "note": (f"the table has {study.n:,} rows; {lr.residual.shape[0]:,} evenly spaced residuals are kept"
-                     if sampled else None),
+            "note": sample_note,
         },
         "tests": {
             "alpha": tree.alpha,
@@ -397,14 +457,16 @@ def export_node(tree: RemedyTree, node_id: str, out_dir: str | Path, *, data_pat
 
     out = Path(out_dir)
     if data_path is not None and not Path(data_path).is_file():
-        raise DataError(f"data file not found: {data_path}; give the table the model was grown from")
+        data_files(data_path)  # a folder or glob: its files must be there (else a one-line error)
+        if not Path(data_path).is_dir() and not any(ch in str(data_path) for ch in "*?["):
+            raise DataError(f"data file not found: {data_path}; give the table the model was grown from")
     doc = build_spec(tree, node_id, data_path=data_path, reading=reading, rule=rule,
                      max_residuals=max_residuals, now=now)
     validate_spec(doc)  # what we write must read back
     rel = None
     if data_path is not None:
         try:
-            rel = os.path.relpath(Path(data_path).resolve(), out.resolve())
+            rel = os.path.relpath(Path(data_path).absolute(), out.resolve())  # absolute: keeps a glob's pattern
         except ValueError:  # another drive: keep the absolute path
             rel = str(Path(data_path).resolve())
     files = {

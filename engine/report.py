@@ -188,6 +188,9 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     lr = residuals_by_level(study, score)
     fitted_lv = np.asarray(score.level_fitted_y)
     out += ["## Residuals by level", ""]
+    if not study.has_rows and study.n > lr.residual.size:
+        out += [f"Residual means and SDs from a seeded random sample of {lr.residual.size:,} of the "
+                f"{study.n:,} rows (the table was read through the SQL engine).", ""]
     if spec.covariates:
         out += ["Fitted values at the reference category and the mean of numeric covariates; residuals are the "
                 "model's own (fitted scale).", ""]
@@ -231,11 +234,16 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     out.append("")
 
     # charts
-    xs, ys = study.x, study.y
-    idx = np.arange(study.n)
-    if study.n > CHART_ROWS:
-        idx = np.linspace(0, study.n - 1, CHART_ROWS).astype(np.intp)
-    grid_x = np.linspace(float(xs.min()), float(xs.max()), 200)
+    if study.has_rows:
+        xs, ys = study.x, study.y
+        idx = np.arange(study.n)
+        if study.n > CHART_ROWS:
+            idx = np.linspace(0, study.n - 1, CHART_ROWS).astype(np.intp)
+    else:  # read through the SQL engine: the seeded sample of rows the residuals come from
+        rows = study.sample_rows(CHART_ROWS)
+        xs, ys = rows["x"], rows["y"]
+        idx = np.arange(xs.size)
+    grid_x = np.linspace(float(study.x_min), float(study.x_max), 200)
     covs_ref: dict[str, np.ndarray] = {}
     for c in m["covariates"]:
         covs_ref[c["name"]] = (np.full(grid_x.size, c["reference"], dtype=object) if c["kind"] == "categorical"

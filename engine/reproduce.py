@@ -51,7 +51,50 @@ def fail(message, status):
     sys.exit(status)
 
 
-def read_table(path):
+def data_files(path):
+    """The file itself, a folder's Parquet files (else its CSV files, searched below it) or a
+    glob's matches, sorted: the files the table was read from."""
+    import glob
+
+    text = str(path)
+    if path.is_dir():
+        found = sorted(glob.glob(str(path / "**" / "*.parquet"), recursive=True))
+        found = found or sorted(glob.glob(str(path / "**" / "*.csv"), recursive=True))
+    elif any(ch in text for ch in "*?[") and not path.exists():
+        found = sorted(glob.glob(text, recursive=True))
+    elif path.is_file():
+        return [path]
+    else:
+        found = []
+    return [Path(f) for f in found]
+
+
+def file_sha256(path):
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+def data_sha256(path, files):
+    """As bendwise export computes it: one file's SHA-256, or for a folder or glob the SHA-256
+    of each file's relative name and SHA-256 in turn."""
+    if len(files) == 1 and not path.is_dir():
+        return file_sha256(files[0])
+    import os
+
+    root = path if path.is_dir() else Path(os.path.commonpath([str(f.parent) for f in files]))
+    outer = hashlib.sha256()
+    for f in files:
+        outer.update(f"{f.relative_to(root).as_posix()}\0{file_sha256(f)}\0".encode())
+    return outer.hexdigest()
+
+
+def read_table(files):
+    if len(files) > 1:
+        return pd.concat([read_table([f]) for f in files], ignore_index=True)
+    path = files[0]
     fmt = READING["format"]
     if fmt == "parquet":
         frame = pd.read_parquet(path)
@@ -131,16 +174,14 @@ def main():
         data_path = (HERE / DATA_FILE).resolve()
     else:
         fail("the data came from standard input at export time; give the data file as an argument", 2)
-    if not data_path.is_file():
+    files = data_files(data_path)
+    if not files:
         fail(f"data file not found: {data_path}; give its path as an argument", 2)
 
-    digest = hashlib.sha256()
-    with open(data_path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            digest.update(chunk)
-    if DATA_SHA256 is not None and digest.hexdigest() != DATA_SHA256:
+    found_sha = data_sha256(data_path, files)
+    if DATA_SHA256 is not None and found_sha != DATA_SHA256:
         print(f"reproduce: WARNING: {data_path.name} is not the file that was exported "
-              f"(SHA-256 {digest.hexdigest()[:12]}… expected {DATA_SHA256[:12]}…); comparing anyway",
+              f"(SHA-256 {found_sha[:12]}… expected {DATA_SHA256[:12]}…); comparing anyway",
               file=sys.stderr)
 
     global np, pd, smf
@@ -148,7 +189,7 @@ def main():
     import pandas as pd
     import statsmodels.formula.api as smf
 
-    frame = read_table(data_path)
+    frame = read_table(files)
     needed = [RESPONSE, PREDICTOR, *ADMITTED_COVARIATES]
     if USER_WEIGHTS is not None:
         needed.append(USER_WEIGHTS)

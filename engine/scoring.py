@@ -503,9 +503,13 @@ class LevelResiduals:
 
 
 def residuals_by_level(study: Study, score: NodeScore, max_rows: int = 100_000) -> LevelResiduals:
-    """Row residuals of a scored node (a sample of ``max_rows`` evenly spaced rows when larger)."""
+    """Row residuals of a scored node (a sample of ``max_rows`` evenly spaced rows when larger).
+
+    A study without rows (the SQL engine) gives the residuals of a seeded random sample of
+    ``max_rows`` rows, predicted from the raw terms as ``bendwise apply`` predicts.
+    """
     if not study.has_rows:
-        raise UsageError("row residuals need the rows in memory; this table is read through the SQL engine")
+        return _sampled_residuals(study, score, max_rows)
     spec = score.spec
     fr = _frame(study, spec)
     stats = _stats(study, spec, fr)
@@ -534,3 +538,25 @@ def residuals_by_level(study: Study, score: NodeScore, max_rows: int = 100_000) 
         sd = np.sqrt(np.bincount(xc, weights=dev * dev, minlength=study.c) / (cnt - 1))
     _ = stats
     return LevelResiduals(study.x[idx], e, study.x_level_values.copy(), mean, np.where(cnt > 1, sd, np.nan))
+
+
+def _sampled_residuals(study: Study, score: NodeScore, k: int) -> LevelResiduals:
+    """√w·(z − ẑ) on a seeded random sample of rows read through the SQL engine, by x level."""
+    spec = score.spec
+    rows = study.sample_rows(k)  # type: ignore[attr-defined]
+    beta = np.array([0.0 if c.name in score.fit.aliased else c.estimate for c in score.fit.coefficients])
+    t = np.asarray(spec.predictor.forward(rows["x"]), dtype=float)
+    zhat = predict_terms(score.terms, beta, t, {c.name: rows[c.name] for c in study.covariates})
+    z = np.asarray(spec.response.forward(rows["y"]), dtype=float)
+    xc = study.x_codes_for_values(rows["x"])  # type: ignore[attr-defined]
+    w = np.ones(z.size)
+    fr = _frame(study, spec)
+    if fr.w_level is not None:
+        w = np.asarray(fr.w_level, dtype=float)[xc]
+    e = np.sqrt(w) * (z - zhat)
+    cnt = np.bincount(xc, minlength=study.c).astype(float)
+    with np.errstate(all="ignore"):
+        mean = np.bincount(xc, weights=e, minlength=study.c) / cnt
+        dev = e - mean[xc]
+        sd = np.sqrt(np.bincount(xc, weights=dev * dev, minlength=study.c) / (cnt - 1))
+    return LevelResiduals(rows["x"], e, study.x_level_values.copy(), mean, np.where(cnt > 1, sd, np.nan))

@@ -256,6 +256,28 @@ class SqlStudy(Study):
     def exact_replicates(self) -> bool:
         return int(self._info["x_values"].size) < self.n
 
+    def y_range(self) -> tuple[float, float]:
+        """Smallest and largest response used."""
+        return float(self._info["y_min"]), float(self._info["y_max"])
+
+    def sample_rows(self, k: int, seed: int = 20261202) -> dict[str, np.ndarray]:
+        """A seeded random sample of ``k`` used rows (all of them when there are at most ``k``):
+        y, x and each covariate (categories as text), in one more scan."""
+        hit = self._cache.get(("sample", k, seed))
+        if hit is not None:
+            return hit
+        cols = ["y", "x", *(q(c.name) for c in self.covariates)]
+        sample = "" if self.n <= k else f" USING SAMPLE reservoir({int(k)} ROWS) REPEATABLE ({int(seed)})"
+        self._say(f"scanning {self.n:,} rows for a sample of {min(k, self.n):,}")
+        res = self.con.execute(f"SELECT {', '.join(cols)} FROM bw_clean{sample}").fetchnumpy()
+        self._say("")
+        out = {"y": _floats(res["y"]), "x": _floats(res["x"])}
+        for c in self.covariates:
+            col = res[c.name]
+            out[c.name] = np.asarray(col).astype(str) if c.kind == "categorical" else _floats(col)
+        self._cache[("sample", k, seed)] = out
+        return out
+
     def covariate_mean(self, name: str) -> float:
         return float(self._info["num_mean"][name])
 
@@ -633,6 +655,7 @@ def make_sql_study(
         "x_values": x_values, "unit_x": unit_x, "unit_n": unit_n,
         "cat_cols": cat_cols, "num_cols": num_cols,
         "series": facts.get("series"),
+        "y_min": ymin, "y_max": ymax,
     }
     study = SqlStudy(
         con,

@@ -151,6 +151,10 @@ class Study:
         """Mean of a numeric covariate over the rows used (reference value for curves)."""
         return float(np.mean(self.covariate(name).values))
 
+    def y_range(self) -> tuple[float, float]:
+        """Smallest and largest response used."""
+        return float(self.y.min()), float(self.y.max())
+
     def exact_replicates(self) -> bool:
         """True when some exact x value occurs more than once."""
         return int(self._cache["n_exact_x"]) < self.n

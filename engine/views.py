@@ -226,9 +226,14 @@ def residual_chart(study: Study, score: NodeScore, max_points: int = MAX_CHART_P
 
 def curve_chart(study: Study, score: NodeScore, max_points: int = MAX_CHART_POINTS) -> CurveChart:
     """Data points and the fitted curve per level, both on the original y scale."""
-    idx = thin_indices(study.n, max_points)
     note = None
     if score.spec.covariates:
         note = "covariates held at reference values (first category, mean of numeric)"
-    return CurveChart(study.x[idx], study.y[idx], np.asarray(score.level_x, dtype=float),
+    if study.has_rows:
+        idx = thin_indices(study.n, max_points)
+        px, py = study.x[idx], study.y[idx]
+    else:  # rows read through the SQL engine: a seeded random sample of them
+        rows = study.sample_rows(max_points)  # type: ignore[attr-defined]
+        px, py = rows["x"], rows["y"]
+    return CurveChart(px, py, np.asarray(score.level_x, dtype=float),
                       np.asarray(score.level_fitted_y, dtype=float), study.n, note)

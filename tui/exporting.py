@@ -31,13 +31,11 @@ def export_node(tree: RemedyTree, node_id: str, path: str | Path, force: bool = 
     when the engine refuses the node (e.g. collinear terms), with its one-line reason.
     """
     from engine.errors import BendwiseError
-    from engine.export import NEEDS_ROWS, ExportExists, describe_reading
+    from engine.export import ExportExists, describe_reading
     from engine.export import export_node as write_export
 
     if node_id not in tree.nodes:
         raise KeyError(node_id)
-    if not tree.study.has_rows:  # read through the SQL engine: no rows for the residual sample
-        raise ValueError(NEEDS_ROWS)
     target = Path(path).expanduser()
     if not target.parent.is_dir():
         raise FileNotFoundError(f"folder {target.parent} does not exist; create it first or choose another path")

@@ -112,18 +112,72 @@ def test_check_over_files_names_its_spread_test(tmp_path, capsys):
     assert "Brown–Forsythe needs the rows: --engine memory" in out
 
 
-def test_export_over_files_says_it_needs_the_rows(tmp_path, capsys):
-    from engine.remedies import RemedyTree
-    from engine.sql import make_sql_study
-    from tui.exporting import export_node
+def test_export_over_files_hands_on_the_same_model(tmp_path, capsys):
+    # reference: the same rows read into memory and exported there; the spec validates against
+    # the published JSON Schema (jsonschema package); the reproduction script refits it with
+    # statsmodels on the files (all rows) and agrees
+    import json
+    import subprocess
+    import sys
+
+    import jsonschema
+
+    from engine.specfile import schema_path
 
     folder = _files(tmp_path)
-    out = tmp_path / "spec"
-    assert main(["export", str(folder), "-y", "signal", "-x", "conc", "--suggested", "-o", str(out)]) == 2
-    err = capsys.readouterr().err.strip().splitlines()
-    assert len(err) == 1 and "export needs the rows in memory" in err[0] and "--engine memory" in err[0]
-    assert not out.exists()
-    # the app's export action gets the same one-line reason (its dialog shows ValueError messages)
+    out_sql, out_mem = tmp_path / "spec_sql", tmp_path / "spec_mem"
+    args = ["-y", "signal", "-x", "conc", "--covariates", "temp", "--node", "root"]
+    assert main(["export", str(folder), *args, "-o", str(out_sql)]) == 0
+    whole = tmp_path / "whole.parquet"
+    pd.concat([pd.read_parquet(f) for f in sorted(folder.glob("*.parquet"))]).to_parquet(whole)
+    assert main(["export", str(whole), *args, "-o", str(out_mem), "--engine", "memory"]) == 0
+    capsys.readouterr()
+    a = json.loads((out_sql / "spec.json").read_text())
+    b = json.loads((out_mem / "spec.json").read_text())
+    jsonschema.Draft202012Validator(json.loads(schema_path().read_text())).validate(a)
+    for ca, cb in zip(a["fit"]["coefficients"], b["fit"]["coefficients"], strict=True):
+        assert ca["name"] == cb["name"] and ca["estimate"] == pytest.approx(cb["estimate"], rel=1e-9)
+    assert a["fit"]["sigma"] == pytest.approx(b["fit"]["sigma"], rel=1e-9)
+    for la, lb in zip(a["calibration"]["levels"], b["calibration"]["levels"], strict=True):
+        assert la["n"] == lb["n"] and la["mean_y"] == pytest.approx(lb["mean_y"], rel=1e-12)
+        assert la["sd_y"] == pytest.approx(lb["sd_y"], rel=1e-9)
+    assert (a["calibration"]["y_min"], a["calibration"]["y_max"]) == (b["calibration"]["y_min"], b["calibration"]["y_max"])
+    assert a["training"]["count"] == 480 and not a["training"]["sampled"]  # 480 rows: all of them
+    assert sorted(a["training"]["residuals"]) == pytest.approx(sorted(b["training"]["residuals"]), abs=1e-9)
+    assert a["provenance"]["data"]["reading"]["format"] == "parquet" and a["provenance"]["data"]["size_bytes"] > 0
+    run = subprocess.run([sys.executable, str(out_sql / "reproduce.py")], capture_output=True, text=True, timeout=120)
+    assert run.returncode == 0, run.stderr
+    assert "OK" in run.stdout and "WARNING" not in run.stderr
+    # a glob names the same files
+    out_glob = tmp_path / "spec_glob"
+    assert main(["export", str(folder / "*.parquet"), *args, "-o", str(out_glob)]) == 0
+    g = json.loads((out_glob / "spec.json").read_text())
+    assert g["provenance"]["data"]["sha256"] == a["provenance"]["data"]["sha256"]
+
+
+def test_charts_over_files_use_a_seeded_sample(tmp_path):
+    # reference: the same rows in memory; with a sample as large as the table every row is drawn,
+    # so the level means of the residuals must be the in-memory ones
+    import engine
+    from engine.sql import make_sql_study
+    from engine.views import curve_chart, residual_chart
+
+    folder = _files(tmp_path)
     tree = RemedyTree(make_sql_study(str(folder), y="signal", x="conc"))
-    with pytest.raises(ValueError, match="export needs the rows in memory"):
-        export_node(tree, "root", out, data_path=str(folder))
+    tree.grow(1)
+    frame = pd.concat([pd.read_parquet(f) for f in sorted(folder.glob("*.parquet"))])
+    mem = RemedyTree(engine.make_study(frame, y="signal", x="conc"))
+    mem.grow(1)
+    by_spec = {n.spec: n for n in mem.nodes.values()}  # a small table's Box–Cox λ may differ (grid vs exact)
+    compared = 0
+    for node in tree.nodes.values():
+        small = residual_chart(tree.study, node.score, max_points=100)
+        assert small.x.size == 100 and curve_chart(tree.study, node.score, max_points=100).x.size == 100
+        if node.spec not in by_spec:
+            continue
+        compared += 1
+        r = residual_chart(tree.study, node.score, max_points=1000)
+        ref = residual_chart(mem.study, by_spec[node.spec].score, max_points=1000)
+        assert r.x.size == 480 and np.allclose(r.level_mean, ref.level_mean, rtol=1e-9, atol=1e-12)
+        assert np.allclose(np.sort(r.residual), np.sort(ref.residual), rtol=1e-9, atol=1e-12)
+    assert compared >= 4

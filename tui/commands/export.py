@@ -33,14 +33,10 @@ def register(sub: argparse._SubParsersAction) -> None:
 def run(args: argparse.Namespace) -> int:
     """Grow, pick the node, export."""
     from engine.errors import UsageError
-    from engine.export import NEEDS_ROWS, describe_reading, export_node
-    from engine.sql import choose_engine
+    from engine.export import describe_reading, export_node
 
-    from .common import parse_size
     from .grow import build_tree
 
-    if choose_engine(args.data, args.engine, parse_size(args.memory_cap)) == "duckdb":
-        raise UsageError(NEEDS_ROWS)  # before any scan: the spec needs rows the SQL engine never reads
     study, tree = build_tree(args)
     if args.suggested:
         sug = tree.suggest(args.rule)
