@@ -246,3 +246,27 @@ def first_rows(mask: np.ndarray) -> tuple[int, ...]:
     """First few 1-based data-row numbers where ``mask`` is true."""
     idx = np.flatnonzero(mask)[:_SHOW_ROWS]
     return tuple(int(i) + 1 for i in idx)
+
+
+def data_files(path: str | Path) -> list[Path]:
+    """The files behind a data argument: the file itself, a folder's Parquet files (else its CSV
+    files, searched below it, sorted) or a glob's matches (sorted). One-line DataError when a
+    folder holds none, a glob matches none or a file is missing."""
+    import glob
+
+    text = str(path)
+    p = Path(text)
+    if p.is_dir():
+        found = sorted(glob.glob(str(p / "**" / "*.parquet"), recursive=True))
+        found = found or sorted(glob.glob(str(p / "**" / "*.csv"), recursive=True))
+        if not found:
+            raise DataError(f"folder {text} holds no .parquet or .csv files; point at the data files")
+        return [Path(f) for f in found]
+    if any(ch in text for ch in "*?[") and not p.exists():
+        found = sorted(glob.glob(text, recursive=True))
+        if not found:
+            raise DataError(f"no file matches {text}; check the pattern")
+        return [Path(f) for f in found]
+    if not p.exists():
+        raise DataError(f"file not found: {text}; check the path")
+    return [p]

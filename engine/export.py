@@ -23,6 +23,7 @@ from typing import Any
 import numpy as np
 
 from .cautions import CAUTION, POST_SEARCH_CAUTION
+from .data import data_files
 from .errors import DataError, UsageError
 from .remedies import RemedyTree
 from .specfile import SCHEMA_VERSION, validate_spec
@@ -51,25 +52,6 @@ MAX_RESIDUALS = 100_000
 
 
 # ----- provenance -----------------------------------------------------------------------
-
-def data_files(path: str | Path) -> list[Path]:
-    """The files behind a data argument: the file itself, a folder's Parquet files (else its
-    CSV files, searched below it, sorted) or a glob's matches (sorted) — as the SQL engine reads them."""
-    import glob
-
-    text = str(path)
-    p = Path(text)
-    if p.is_dir():
-        found = sorted(glob.glob(str(p / "**" / "*.parquet"), recursive=True))
-        found = found or sorted(glob.glob(str(p / "**" / "*.csv"), recursive=True))
-    elif any(ch in text for ch in "*?[") and not p.exists():
-        found = sorted(glob.glob(text, recursive=True))
-    else:
-        return [p]
-    if not found:
-        raise DataError(f"no data file under {text}; check the path or pattern")
-    return [Path(f) for f in found]
-
 
 def file_digest(path: str | Path) -> tuple[str, int]:
     """SHA-256 (hex) and size in bytes of a file, read in chunks. For a folder or glob: the
@@ -456,10 +438,8 @@ def export_node(tree: RemedyTree, node_id: str, out_dir: str | Path, *, data_pat
     from .reproduce import script_text
 
     out = Path(out_dir)
-    if data_path is not None and not Path(data_path).is_file():
-        data_files(data_path)  # a folder or glob: its files must be there (else a one-line error)
-        if not Path(data_path).is_dir() and not any(ch in str(data_path) for ch in "*?["):
-            raise DataError(f"data file not found: {data_path}; give the table the model was grown from")
+    if data_path is not None:
+        data_files(data_path)  # the file, or a folder's or glob's files, must be there (one-line error)
     doc = build_spec(tree, node_id, data_path=data_path, reading=reading, rule=rule,
                      max_residuals=max_residuals, now=now)
     validate_spec(doc)  # what we write must read back

@@ -166,27 +166,38 @@ class GroupSeries:
                 "bmean": self.bmean, "bb": self.bb}
 
 
+class _NormalBounds:
+    """The truncation bounds GroupSeries checks, for a normal-like group of log-scale standard
+    deviation ``sd`` whose largest deviation is ``spread`` (used to size the query before a scan)."""
+
+    def __init__(self, sd: float, spread: float) -> None:
+        self.sd, self.log_d = sd, math.log(spread)
+
+    def log_moment(self, m: int) -> float:  # log E δ^m (m even)
+        return sum(math.log(v) for v in range(m - 1, 0, -2)) + m * math.log(self.sd)
+
+    def var_ok(self, big_m: int, r: float, tol: float) -> bool:
+        tail = 2 * math.exp(self.log_moment(big_m)) * float(
+            _tail(math.log(2 * r), np.array([self.log_d]), big_m + 1, big_m)[0])
+        return tail <= tol * r * r * self.sd * self.sd
+
+    def cov_ok(self, big_m: int, big_k: int, r: float, tol: float) -> bool:
+        tail = 0.0
+        for k in range(big_k + 1, big_k + 61):
+            log_e = (self.log_moment(2 * k) if 2 * k <= big_m
+                     else (2 * k - big_m) * self.log_d + self.log_moment(big_m))
+            tail += math.exp(k * math.log(r) - math.lgamma(k + 1.0) + 0.5 * log_e)
+        return tail <= tol * r * self.sd
+
+
 def series_helps(sd: float, spread: float, covariates: int = 1) -> bool:
     """Whether the largest orders can hold y, √y and 1/y (|λ| = _LAMBDA_DESIGN) to SERIES_TOL for
     groups of this spread; if not, a scan of power sums would be wasted on them."""
     if not (sd > 0 and spread > 0):
         return True
+    b, r = _NormalBounds(sd, spread), _LAMBDA_DESIGN
     big_m, big_k = SERIES_ORDERS[-1], SERIES_K_MAX
-    r, log_d = _LAMBDA_DESIGN, math.log(spread)
-
-    def log_moment(m: int) -> float:
-        return sum(math.log(v) for v in range(m - 1, 0, -2)) + m * math.log(sd)
-
-    tail = 2 * math.exp(log_moment(big_m)) * float(_tail(math.log(2 * r), np.array([log_d]), big_m + 1, big_m)[0])
-    if tail > SERIES_TOL * r * r * sd * sd:
-        return False
-    if covariates:
-        cov = sum(math.exp(k * math.log(r) - math.lgamma(k + 1.0) + 0.5 * (
-            log_moment(2 * k) if 2 * k <= big_m else (2 * k - big_m) * log_d + log_moment(big_m)))
-            for k in range(big_k + 1, big_k + 61))
-        if cov > SERIES_TOL * r * sd:
-            return False
-    return True
+    return b.var_ok(big_m, r, SERIES_TOL) and (not covariates or b.cov_ok(big_m, big_k, r, SERIES_TOL))
 
 
 def choose_orders(sd: float, spread: float, covariates: int = 1) -> tuple[int, int]:
@@ -195,42 +206,25 @@ def choose_orders(sd: float, spread: float, covariates: int = 1) -> tuple[int, i
     check computes them after the scan (normal-like moments, extremes at ``spread``), meet a tenth
     of SERIES_TOL at |λ| = _LAMBDA_DESIGN and of GRID_TOL at the Box–Cox grid's ends (±3). The
     check after the scan decides; this sizes the query."""
-    big_m_max, big_k_max = SERIES_ORDERS[-1], SERIES_K_MAX
     if not (sd > 0 and spread > 0):
         return SERIES_ORDERS[0], SERIES_ORDERS[0] // 2
-    r = _LAMBDA_DESIGN
-    log_d = math.log(spread)
+    b = _NormalBounds(sd, spread)
+    targets = ((_LAMBDA_DESIGN, 0.1 * SERIES_TOL), (GRID_END, 0.1 * GRID_TOL))  # design power, grid ends
 
-    def log_moment(m: int) -> float:  # log E δ^m of a normal group with this sd (m even)
-        return sum(math.log(v) for v in range(m - 1, 0, -2)) + m * math.log(sd)
-
-    def var_ok(big_m: int, r: float, tol: float) -> bool:
-        tail = 2 * math.exp(log_moment(big_m)) * float(_tail(math.log(2 * r), np.array([log_d]), big_m + 1, big_m)[0])
-        return tail <= 0.1 * tol * r * r * sd * sd
-
-    def cov_ok(big_m: int, big_k: int, r: float, tol: float) -> bool:
-        tail = 0.0
-        for k in range(big_k + 1, big_k + 61):
-            log_e = log_moment(2 * k) if 2 * k <= big_m else (2 * k - big_m) * log_d + log_moment(big_m)
-            tail += math.exp(k * math.log(r) - math.lgamma(k + 1.0) + 0.5 * log_e)
-        return tail <= 0.1 * tol * r * sd
-
-    def ok(big_m: int, big_k: int | None) -> bool:  # the design power exactly, the grid's ends loosely
-        for r_, tol in ((r, SERIES_TOL), (GRID_END, GRID_TOL)):
-            if not var_ok(big_m, r_, tol) or (big_k is not None and not cov_ok(big_m, big_k, r_, tol)):
-                return False
-        return True
+    def ok(big_m: int, big_k: int | None) -> bool:
+        return all(b.var_ok(big_m, r, tol) and (big_k is None or b.cov_ok(big_m, big_k, r, tol))
+                   for r, tol in targets)
 
     best: tuple[int, int, int] | None = None
     for big_m in SERIES_ORDERS:
         if not ok(big_m, None):
             continue
-        for big_k in range(3, big_k_max + 1):
+        for big_k in range(3, SERIES_K_MAX + 1):
             if covariates == 0 or ok(big_m, big_k):
-                cost = big_m + covariates * (big_k if covariates else 0)
+                cost = big_m + covariates * big_k
                 if best is None or cost < best[0]:
                     best = (cost, big_m, big_k)
                 break
     if best is None:
-        return big_m_max, big_k_max
+        return SERIES_ORDERS[-1], SERIES_K_MAX
     return best[1], best[2]

@@ -16,7 +16,6 @@ replaced by group-level ones or reported as unavailable, with the reason.
 
 from __future__ import annotations
 
-import glob as _glob
 import math
 import os
 from collections.abc import Callable, Sequence
@@ -26,7 +25,7 @@ from typing import Any
 
 import numpy as np
 
-from .data import NA_TEXT, CleaningReport, DropCount, resolve_column
+from .data import NA_TEXT, CleaningReport, DropCount, data_files, resolve_column
 from .errors import DataError, UsageError
 from .groups import GroupStats
 from .results import SideTest
@@ -110,24 +109,10 @@ def choose_engine(path: str, engine: str, memory_cap: int) -> str:
 
 def _source_sql(path: str, decimal: str, delimiter: str | None) -> tuple[str, bool]:
     """FROM clause for the files and whether columns arrive as text."""
+    files = data_files(path)  # one-line errors for an empty folder, an unmatched glob, a missing file
     p = Path(path)
-    if p.is_dir():
-        files = sorted(_glob.glob(str(p / "**" / "*.parquet"), recursive=True))
-        if files:
-            return f"read_parquet({lit(str(p / '**' / '*.parquet'))}, union_by_name = true)", False
-        files = sorted(_glob.glob(str(p / "**" / "*.csv"), recursive=True))
-        if not files:
-            raise DataError(f"folder {path} holds no .parquet or .csv files; point at the data files")
-        pattern, is_parquet = str(p / "**" / "*.csv"), False
-    else:
-        if any(ch in path for ch in "*?["):
-            files = sorted(_glob.glob(path, recursive=True))
-            if not files:
-                raise DataError(f"no file matches {path}; check the pattern")
-        elif not p.exists():
-            raise DataError(f"file not found: {path}; check the path")
-        pattern = path
-        is_parquet = path.lower().endswith((".parquet", ".pq"))
+    is_parquet = files[0].suffix.lower() in (".parquet", ".pq")
+    pattern = str(p / "**" / ("*.parquet" if is_parquet else "*.csv")) if p.is_dir() else path
     if is_parquet:
         return f"read_parquet({lit(pattern)}, union_by_name = true)", False
     opts = ["header = true", "all_varchar = true"]
