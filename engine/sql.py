@@ -1,19 +1,20 @@
 """Group statistics from an embedded SQL engine (DuckDB), for tables larger than memory.
 
 The engine only needs per-group totals, so the O(n) work is a GROUP BY that DuckDB runs over
-Parquet or CSV files without loading the rows into Python. One scan collects, for every
-finest group (exact x value × categorical covariates), the count, the mean of each response
-transform and of each numeric covariate, their within-group co-moments (count × covar_pop)
-and extremes; another scan does the same for the whole Box–Cox grid. Coarser groups (x levels
-merged by a tolerance, fewer categorical covariates) are pooled from these in Python with the
-parallel-axis rule. The SQL uses standard aggregates only (COUNT, AVG, VAR_POP, COVAR_POP,
-MIN, MAX, SUM, LN, EXP, SQRT, CASE), so it also runs on cluster SQL engines: see
-``aggregate_sql``.
+Parquet or CSV files without loading the rows into Python. On clean data with y > 0 one scan
+does it all (``series_sql``): per finest group (exact x value × categorical covariates) the
+count, extremes of y, covariate sums and cross-products, and power sums of ln y about the
+group's centre, from which :class:`engine.series.GroupSeries` gives every response transform.
+Other data take the exact path: a cleaning scan, then per batch of response transforms the
+count, mean, within-group co-moments (count × covar_pop) and extremes (``aggregate_sql``).
+Coarser groups (x levels merged by a tolerance, fewer categorical covariates) are pooled from
+these in Python with the parallel-axis rule. Both queries are standard SQL (COUNT, SUM, AVG,
+VAR_POP, COVAR_POP, MIN, MAX, LN, EXP, SQRT, CASE, COALESCE, LEFT JOIN), so they also run on
+cluster SQL engines.
 
-A study built here holds no rows: ``has_rows`` is False and row-level diagnostics are
-replaced by group-level ones or reported as unavailable, with the reason.
+A study built here holds no rows: ``has_rows`` is False; row-level diagnostics are replaced by
+group-level ones, drawn from a seeded sample of rows, or reported as unavailable with the reason.
 """
-
 from __future__ import annotations
 
 import math
@@ -33,10 +34,10 @@ from .series import GRID_TOL, SERIES_TOL, GroupSeries, choose_orders, series_hel
 from .study import MAX_CATEGORIES, Covariate, Study, cluster_sorted, level_labels, parse_tolerance
 from .transforms import Transform
 
-__all__ = ["SqlStudy", "make_sql_study", "aggregate_sql", "transform_sql", "choose_engine", "BOXCOX_GRID"]
+__all__ = ["SqlStudy", "make_sql_study", "aggregate_sql", "series_sql", "transform_sql", "choose_engine",
+           "bartlett_from_groups"]
 
 _NA_TEXT = NA_TEXT  # the same missing-value texts as the in-memory reader
-BOXCOX_GRID = np.round(np.arange(-3.0, 3.0 + 1e-9, 0.2), 6)  # the grid the tree uses (remedies.GRID_STEP)
 ProgressFn = Callable[[str], None]
 
 
