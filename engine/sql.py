@@ -15,6 +15,7 @@ cluster SQL engines.
 A study built here holds no rows: ``has_rows`` is False; row-level diagnostics are replaced by
 group-level ones, drawn from a seeded sample of rows, or reported as unavailable with the reason.
 """
+
 from __future__ import annotations
 
 import math
