@@ -20,7 +20,7 @@ from .errors import BendwiseError, UsageError
 from .groups import GroupStats, compute_group_stats
 from .linalg import Column, Design, design_rss, fit_design
 from .linearity import nested_f
-from .results import LackOfFit
+from .results import LackOfFit, test_method
 from .scoring import NodeScore, _frame, build_design, score_spec
 from .spec import ModelSpec, WeightRule
 from .study import Study
@@ -772,7 +772,7 @@ class RemedyTree:
         if sp.weights is None and node.score is not None:
             pm = power_of_mean(st, sp.response)
             spread_p = node.score.spread.p if node.score.spread.testable else None
-            spread_name = node.score.spread.name.split("(")[-1].rstrip(")") if "(" in node.score.spread.name else "spread"
+            spread_name = test_method(node.score.spread.name, "spread")
             if pm is None:
                 pruned.append(("weights", "needs at least 3 replicated levels with spread to fit a variance function"))
             else:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-__all__ = ["Coefficient", "Fit", "LackOfFit", "Criteria", "AnovaRow", "LevelRow", "SideTest"]
+__all__ = ["Coefficient", "Fit", "LackOfFit", "Criteria", "AnovaRow", "LevelRow", "SideTest", "test_method"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -209,3 +209,10 @@ class SideTest:
         if self.reason:
             out["reason" if not self.testable else "note"] = self.reason
         return out
+
+
+def test_method(name: str, default: str = "test") -> str:
+    """The method in a side test's name: 'Bartlett' from 'equal spread (Bartlett)'."""
+    if "(" in name and name.endswith(")"):
+        return name[name.rindex("(") + 1:-1]
+    return default

@@ -3,7 +3,6 @@ criteria, the path of moves with each nested test, warnings and pruned moves."""
 
 from __future__ import annotations
 
-import re
 from typing import Any, ClassVar
 
 from rich.text import Text
@@ -151,8 +150,10 @@ def render_node(board: TreeSummary, nid: str, width: int = 100) -> Text:
              f"largest |studentized residual| {num(j['max_studentized_residual'], 3)}"]
     spread = j["spread"]
     if spread.get("testable"):
-        test = re.search(r"\(([^)]*)\)", spread.get("name") or "")  # the test the engine ran
-        lines.append(f"equal spread across levels ({test.group(1) if test else 'test'}): p = {fmt_p(spread.get('p'))}")
+        from engine.results import test_method  # the test the engine ran
+
+        lines.append(f"equal spread across levels ({test_method(spread.get('name') or '')}): p = "
+                     f"{fmt_p(spread.get('p'))}")
     else:
         lines.append(f"equal spread: not testable — {spread.get('reason')}")
     dev = j.get("max_deviation_from_line")
