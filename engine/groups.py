@@ -7,11 +7,14 @@ vary inside a group ("bases") enter through per-group centred cross-products.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["GroupStats", "compute_group_stats", "compute_base_parts"]
+__all__ = ["GroupStats", "compute_group_stats", "compute_base_parts", "normalised_boxcox_stats", "drop_rounding"]
+
+_EPS = float(np.finfo(float).eps)
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -38,6 +41,9 @@ class GroupStats:
     """Smallest response per group (for the largest residual); None unless asked for."""
     zmax: np.ndarray | None = None
     """Largest response per group."""
+    mean_lo: np.ndarray | None = None
+    """What ``mean`` lost to rounding: mean + mean_lo is the group mean to about the precision of
+    the deviations from it (a response 1e8 + a few units keeps its digits in the fit)."""
 
     @property
     def c(self) -> int:
@@ -75,18 +81,24 @@ def compute_group_stats(
     """
     n = int(z.shape[0])
     count = np.bincount(codes, minlength=c).astype(np.int64)
+    # corrected two-pass sums (Chan, Golub & LeVeque 1983): the deviations from the rounded mean
+    # also give what the mean lost, and remove its effect from the sum of squares
     if w is None:
         wsum = count.astype(float)
         mean = np.bincount(codes, weights=z, minlength=c) / wsum
         d = z - mean[codes]
+        sd = np.bincount(codes, weights=d, minlength=c)
         ss = np.bincount(codes, weights=d * d, minlength=c)
         slw = 0.0
     else:
         wsum = np.bincount(codes, weights=w, minlength=c)
         mean = np.bincount(codes, weights=w * z, minlength=c) / wsum
         d = z - mean[codes]
+        sd = np.bincount(codes, weights=w * d, minlength=c)
         ss = np.bincount(codes, weights=w * d * d, minlength=c)
         slw = float(np.log(w).sum())
+    mean_lo = sd / wsum
+    ss = drop_rounding(np.maximum(ss - sd * mean_lo, 0.0), wsum, mean)
     if bases is None or bases.shape[1] == 0:
         base_mean = np.zeros((c, 0))
         cross = None
@@ -111,7 +123,14 @@ def compute_group_stats(
         starts = np.concatenate(([0], np.cumsum(count)[:-1]))
         zmin = np.minimum.reduceat(zs, starts)
         zmax = np.maximum.reduceat(zs, starts)
-    return GroupStats(n, count, wsum, mean, ss, slw, base_mean, cross, zmin, zmax)
+    return GroupStats(n, count, wsum, mean, ss, slw, base_mean, cross, zmin, zmax, mean_lo)
+
+
+def drop_rounding(ss: np.ndarray, wsum: np.ndarray, mean: np.ndarray) -> np.ndarray:
+    """Within-level sums of squares with rounding noise set to 0: replicates that agree exactly
+    leave only rounding (three copies of 0.1 give 1e-33), so a level whose sum of squares is
+    within rounding of its mean's size has none."""
+    return np.where(ss > wsum * (64.0 * _EPS * np.abs(mean)) ** 2, ss, 0.0)
 
 
 def compute_base_parts(
@@ -136,3 +155,22 @@ def compute_base_parts(
             cross[:, k, m] = col
             cross[:, m, k] = col
     return base_mean, centred, cross
+
+
+def normalised_boxcox_stats(st: GroupStats, lam: float, log_g: float) -> GroupStats:
+    """Statistics of ((y/ġ)^λ − 1)/λ from those of (y^λ − 1)/λ (log ġ = ``log_g``).
+
+    The two differ by an affine map z′ = a·z + b with a = ġ^(−λ) > 0 and b = (a − 1)/λ (b = −log ġ
+    at λ = 0): means map, sums of squares and products with z scale by a² and a.
+    """
+    a = math.exp(-lam * log_g)
+    b = -log_g if lam == 0 else math.expm1(-lam * log_g) / lam
+    cross = None
+    if st.cross is not None:
+        cross = st.cross.copy()
+        q = cross.shape[1] - 1
+        cross[:, :q, q] *= a
+        cross[:, q, :q] *= a
+        cross[:, q, q] *= a * a
+    return GroupStats(st.n, st.count, st.wsum, a * st.mean + b, a * a * st.ss, st.sum_log_w, st.base_mean, cross,
+                      None if st.zmin is None else a * st.zmin + b, None if st.zmax is None else a * st.zmax + b)

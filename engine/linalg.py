@@ -22,7 +22,8 @@ from .dist import t_ppf
 from .groups import GroupStats
 from .results import Coefficient, Fit
 
-__all__ = ["Column", "Design", "fit_design", "fit_rss_rank", "RssRank", "design_rss", "poly_map", "solve_stacked"]
+__all__ = ["Column", "Design", "fit_design", "fit_rss_rank", "RssRank", "design_rss", "poly_map", "solve_stacked",
+           "rounding_floor"]
 
 _EPS = np.finfo(float).eps
 
@@ -128,12 +129,20 @@ def _back_substitute(r: np.ndarray, b: np.ndarray) -> np.ndarray:
     return x
 
 
-def _stacked(stats: GroupStats, design: Design) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None]:
-    """(group-mean rows, stacked matrix, stacked target, within-factor rows or None)."""
+def _stacked(stats: GroupStats, design: Design, shift: float = 0.0
+             ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None]:
+    """(group-mean rows, stacked matrix, stacked target, within-factor rows or None).
+
+    ``shift`` is subtracted from every group mean first: with the constant in the column space
+    this changes no residual, and a response far from zero (1e8 + a few units) keeps its digits.
+    """
     xm = _mean_rows(stats, design)
     sw = np.sqrt(stats.wsum)
     a = xm * sw[:, None]
-    t = stats.mean * sw
+    t = stats.mean - shift
+    if shift and stats.mean_lo is not None:
+        t = t + stats.mean_lo  # exact digits of a mean far from zero, after the shift removed its bulk
+    t = t * sw
     within = _within_rows(stats, design)
     if within is not None:
         a = np.vstack([a, within[:, :-1]])
@@ -141,9 +150,26 @@ def _stacked(stats: GroupStats, design: Design) -> tuple[np.ndarray, np.ndarray,
     return xm, a, t, within
 
 
+def _centre(stats: GroupStats, design: Design) -> float:
+    """The weighted grand mean when the response sits far from zero relative to its spread (more
+    than 100 times) and the constant lies in the design's column space; else 0 (a shift would
+    only add rounding of its own)."""
+    if not design.intercept or stats.c == 0:
+        return 0.0
+    total = float(stats.wsum.sum())
+    mean = float((stats.wsum * stats.mean).sum() / total)
+    spread = math.sqrt(float((stats.wsum * (stats.mean - mean) ** 2).sum() + stats.ss.sum()) / total)
+    return mean if abs(mean) > 100.0 * spread else 0.0
+
+
+def _leads_with_constant(design: Design) -> bool:
+    first = design.columns[0] if design.columns else None
+    return first is not None and first.base is None and bool(np.all(first.group == 1.0))
+
+
 def design_rss(stats: GroupStats, design: Design) -> float:
     """Residual sum of squares only (no inference): for profiles that call it many times."""
-    _, a, t, within = _stacked(stats, design)
+    _, a, t, within = _stacked(stats, design, _centre(stats, design))
     norms = np.sqrt((a * a).sum(axis=0))
     norms[norms == 0] = 1.0
     beta, *_ = np.linalg.lstsq(a / norms, t, rcond=None)
@@ -202,10 +228,10 @@ class RssRank:
 def fit_rss_rank(stats: GroupStats, design: Design) -> RssRank:
     """The ``sse``, ``rank`` and ``df_resid`` that :func:`fit_design` would report, without the
     coefficients, covariance and intervals (for the x-as-factor comparison models)."""
-    _, a, t, within = _stacked(stats, design)
+    _, a, t, within = _stacked(stats, design, _centre(stats, design))
     sol = solve_stacked(a, t, with_cov=False)
     sse = sol.rss if within is not None else sol.rss + stats.ss_pure
-    return RssRank(max(sse, 0.0), sol.rank, stats.n - sol.rank)
+    return RssRank(sse if sse > rounding_floor(stats) else 0.0, sol.rank, stats.n - sol.rank)
 
 
 def _is_identity(m: np.ndarray) -> bool:
@@ -228,10 +254,15 @@ def _t_sf2_many(ts: list[float], df: float) -> list[float]:
 
 def fit_design(stats: GroupStats, design: Design, conf: float = 0.95) -> Fit:
     """Fit ``design`` to the grouped response; coefficients reported in the raw basis."""
-    xm, a, t, within = _stacked(stats, design)
+    shift = _centre(stats, design) if _leads_with_constant(design) else 0.0
+    xm, a, t, within = _stacked(stats, design, shift)
     sol = solve_stacked(a, t)
+    # the constant column's coefficient takes the shift back, in extended precision
+    beta_ld = sol.beta.astype(np.longdouble)
+    beta_ld[0] += np.longdouble(shift) if shift else 0
     sse = sol.rss if within is not None else sol.rss + stats.ss_pure
-    sse = max(sse, 0.0)
+    rounding = rounding_floor(stats)
+    sse = sse if sse > rounding else 0.0
     n = stats.n
     df = n - sol.rank
     sigma2 = sse / df if df > 0 else math.nan
@@ -239,10 +270,10 @@ def fit_design(stats: GroupStats, design: Design, conf: float = 0.95) -> Fit:
     cov_work = sol.cov_unscaled * sigma2 if df > 0 else np.full_like(sol.cov_unscaled, np.nan)
     if _is_identity(to_raw) and np.isfinite(sol.beta).all() and np.isfinite(cov_work).all():
         # the working basis is the raw basis: the extended-precision products are exact copies
-        beta_raw = sol.beta + 0.0
+        beta_raw = beta_ld.astype(float)
         cov_raw = cov_work + 0.0
     else:
-        beta_raw = (to_raw @ sol.beta.astype(np.longdouble)).astype(float)
+        beta_raw = (to_raw @ beta_ld).astype(float)
         tr = to_raw.astype(float)
         cov_raw = (to_raw @ cov_work.astype(np.longdouble) @ to_raw.T).astype(float) if df > 0 else tr @ cov_work @ tr.T
     tq = t_ppf(0.5 + conf / 2, df) if df > 0 else math.nan
@@ -278,7 +309,7 @@ def fit_design(stats: GroupStats, design: Design, conf: float = 0.95) -> Fit:
         loglik = -0.5 * n * (math.log(2 * math.pi) + math.log(sse / n) + 1.0) + 0.5 * stats.sum_log_w
     else:
         loglik = math.inf
-    fitted = xm @ sol.beta
+    fitted = xm @ sol.beta + shift
     lev = np.einsum("gi,ij,gj->g", xm, sol.cov_unscaled, xm) if design.p else np.zeros(stats.c)
     return Fit(
         coefficients=coefs,
@@ -296,4 +327,21 @@ def fit_design(stats: GroupStats, design: Design, conf: float = 0.95) -> Fit:
         conf_level=conf,
         group_fitted=tuple(fitted.tolist()),
         group_leverage=tuple(lev.tolist()),
+        rounding=rounding,
     )
+
+
+def rounding_floor(stats: GroupStats) -> float:
+    """The largest sum of squares that floating-point rounding of the response alone can produce.
+
+    Each value carries a relative error of about ε (2.2e-16); sums, means and the QR solve
+    multiply it by a modest factor. 64·ε·(largest |level mean| + largest level SD) per row,
+    squared and summed over the rows, bounds what a residual or pure-error sum of squares of
+    data that agree exactly can show (e.g. three copies of 0.1 give a pure error of 1e-33, not 0).
+    """
+    if stats.c == 0:
+        return 0.0
+    spread = np.sqrt(np.divide(stats.ss, stats.wsum, out=np.zeros(stats.c), where=stats.wsum > 0))
+    scale = float(np.max(np.abs(stats.mean)) + np.max(spread))
+    wmax = float(np.max(stats.wsum / np.maximum(stats.count, 1)))
+    return float(stats.n * wmax * (64.0 * _EPS * scale) ** 2)

@@ -80,20 +80,29 @@ def poly_design(
 
 
 def criteria_from(loglik: float, k: int, n: int) -> Criteria:
-    """AIC, AICc and BIC from a log-likelihood with k estimated parameters (Burnham & Anderson 2002)."""
+    """AIC, AICc and BIC from a log-likelihood with k estimated parameters (Burnham & Anderson 2002).
+
+    An exact fit has an unbounded likelihood: its criteria are None, never −∞.
+    """
+    if not math.isfinite(loglik):
+        return Criteria(loglik, k, n, None, None, None)
     aic = -2.0 * loglik + 2.0 * k
     aicc = aic + 2.0 * k * (k + 1) / (n - k - 1) if n - k - 1 > 0 else None
     bic = -2.0 * loglik + k * math.log(n)
     return Criteria(loglik, k, n, aic, aicc, bic)
 
 
-def nested_f(sse_r: float, df_r: int, sse_f: float, df_f: int, kind: str, approximate: bool = False) -> LackOfFit:
-    """F test of a reduced model against a fuller one that contains it."""
+def nested_f(sse_r: float, df_r: int, sse_f: float, df_f: int, kind: str, approximate: bool = False,
+             floor: float = 0.0) -> LackOfFit:
+    """F test of a reduced model against a fuller one that contains it.
+
+    ``floor``: a residual sum of squares at or below it is rounding noise (``Fit.rounding``).
+    """
     if df_r - df_f <= 0:
         return LackOfFit(False, "the richer model adds no degrees of freedom: nothing to test", kind)
     if df_f <= 0:
         return LackOfFit(False, "the richer model leaves no residual degrees of freedom", kind)
-    if sse_f <= 0 or not math.isfinite(sse_f):
+    if sse_f <= floor or not math.isfinite(sse_f):
         return LackOfFit(
             False,
             "the richer model fits exactly (residual sum of squares 0): the F ratio is undefined; "
@@ -122,10 +131,11 @@ def lack_of_fit(stats: GroupStats, fit: Fit, *, approximate: bool = False) -> La
             "every level mean and nothing is left to test; measure more levels",
         )
     ss_pure = stats.ss_pure
-    if not ss_pure > 0:
+    if not ss_pure > fit.rounding:
+        exact = "is 0" if not ss_pure > 0 else "is at the level of floating-point rounding"
         return LackOfFit(
             False,
-            "replicates agree exactly (pure error is 0): the F ratio is undefined; check for duplicated "
+            f"replicates agree exactly (pure error {exact}): the F ratio is undefined; check for duplicated "
             "rows or a response rounded to its resolution",
         )
     df_pure = n - c

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 __all__ = ["Coefficient", "Fit", "LackOfFit", "Criteria", "AnovaRow", "LevelRow", "SideTest", "test_method"]
@@ -61,6 +62,9 @@ class Fit:
     """Fitted mean of each replicate group (group order)."""
     group_leverage: tuple[float, ...] = field(default=(), repr=False)
     """x̄_g′(X′WX)⁻¹x̄_g per group (leverage of a unit-weight row there)."""
+    rounding: float = 0.0
+    """Sums of squares at or below this are floating-point rounding of the response's values (a
+    residual or pure-error sum of squares there is treated as exactly 0)."""
 
     def coef(self, name: str) -> Coefficient:
         """The coefficient called ``name``."""
@@ -123,21 +127,23 @@ class Criteria:
     """Information criteria on the original response scale."""
 
     loglik: float
-    """Log-likelihood of the original y (Jacobian included for transforms)."""
+    """Log-likelihood of the original y (Jacobian included for transforms); +inf for an exact fit."""
     k: int
-    """Estimated parameters: coefficients, σ, and λ/variance parameters when estimated."""
+    """Estimated parameters: coefficients, σ, and one for each transform or weight power chosen
+    from the data (``ModelSpec.extra_params``)."""
     n: int
     """Rows."""
-    aic: float
-    """−2ℓ + 2k."""
+    aic: float | None
+    """−2ℓ + 2k; None when the fit is exact (the likelihood is unbounded)."""
     aicc: float | None
-    """AIC + 2k(k+1)/(n−k−1); None when n − k − 1 ≤ 0."""
-    bic: float
-    """−2ℓ + k log n."""
+    """AIC + 2k(k+1)/(n−k−1); None when n − k − 1 ≤ 0 or the fit is exact."""
+    bic: float | None
+    """−2ℓ + k log n; None when the fit is exact."""
 
     def as_json(self) -> dict:
         """Stable JSON shape."""
-        return {"loglik": self.loglik, "k": self.k, "aic": self.aic, "aicc": self.aicc, "bic": self.bic}
+        return {"loglik": self.loglik if math.isfinite(self.loglik) else None, "k": self.k, "aic": self.aic,
+                "aicc": self.aicc, "bic": self.bic}
 
 
 @dataclass(frozen=True, slots=True)

@@ -29,10 +29,18 @@ import numpy as np
 
 from .data import NA_TEXT, CleaningReport, DropCount, data_files, resolve_column
 from .errors import DataError, UsageError
-from .groups import GroupStats
+from .groups import GroupStats, drop_rounding, normalised_boxcox_stats
 from .results import SideTest
 from .series import GRID_TOL, SERIES_TOL, GroupSeries, choose_orders, series_helps
-from .study import MAX_CATEGORIES, Covariate, Study, cluster_sorted, level_labels, parse_tolerance
+from .study import (
+    MAX_CATEGORIES,
+    Covariate,
+    Study,
+    check_magnitude,
+    cluster_sorted,
+    level_labels,
+    parse_tolerance,
+)
 from .transforms import Transform
 
 __all__ = ["SqlStudy", "make_sql_study", "aggregate_sql", "series_sql", "transform_sql", "choose_engine",
@@ -414,7 +422,7 @@ class SqlStudy(Study):
         if level_weights is not None:
             w_g = level_weights[self.group_parent(by)]
             slw = float((count * np.log(w_g)).sum())
-        ss = within[:, q_, q_] * w_g
+        ss = drop_rounding(within[:, q_, q_] * w_g, count * w_g, gmeans[:, q_])
         cross = within * w_g[:, None, None] if q_ else None
         zmin = zmax = None
         if extremes:
@@ -434,8 +442,11 @@ class SqlStudy(Study):
             # grid points only locate λ̂ and draw the profile: a looser series tolerance
             moms = [None if series is None else series.moments(t, GRID_TOL) for t in ts]
             self._scan([t for t, m in zip(ts, moms, strict=True) if m is None])
-            hit = [self._pool(m if m is not None else self._moments[t.key()], by, bases_key, None, False)
+            raw = [self._pool(m if m is not None else self._moments[t.key()], by, bases_key, None, False)
                    for t, m in zip(ts, moms, strict=True)]
+            # the profile works on the normalised transform ((y/ġ)^λ − 1)/λ, ġ the geometric mean
+            log_g = float(self._info["slog"]) / self.n
+            hit = [normalised_boxcox_stats(st, float(v), log_g) for st, v in zip(raw, lams, strict=True)]
             self._cache[key] = hit
         return hit
 
@@ -609,6 +620,8 @@ def make_sql_study(
                         "(3 or more to test its shape)")
     if ymin == ymax:
         raise DataError(f"response {y_col!r} is constant (all {ymin:g}); there is nothing to fit")
+    check_magnitude(ymin, ymax, y_col, "response")
+    check_magnitude(xmin, xmax, x_col, "predictor")
     for c in num_cols:
         value = facts["num_constant"][c]
         if value is not None:

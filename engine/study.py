@@ -16,9 +16,25 @@ from .groups import GroupStats, compute_base_parts, compute_group_stats
 if TYPE_CHECKING:
     import pandas as pd
 
-__all__ = ["Study", "Covariate", "make_study", "parse_tolerance", "MAX_CATEGORIES"]
+__all__ = ["Study", "Covariate", "make_study", "parse_tolerance", "check_magnitude", "MAX_CATEGORIES",
+           "MAGNITUDE_LIMIT"]
 
 MAX_CATEGORIES = 30
+MAGNITUDE_LIMIT = 1e100
+"""Values whose size exceeds this (or whose largest size is below its inverse) are refused: sums
+of squares of such values overflow or underflow double precision."""
+
+
+def check_magnitude(lo: float, hi: float, column: str, role: str) -> None:
+    """Refuse a column whose values are too large or too small in size for exact sums of squares."""
+    big = max(abs(float(lo)), abs(float(hi)))
+    if big > MAGNITUDE_LIMIT or 0 < big < 1 / MAGNITUDE_LIMIT:
+        size = "as large as" if big > 1 else "no larger than"
+        raise DataError(
+            f"{role} column {column!r} has values {size} {big:.3g} in size; bendwise needs sizes between "
+            f"{1 / MAGNITUDE_LIMIT:g} and {MAGNITUDE_LIMIT:g} so that its sums of squares stay exact: "
+            "rescale the column (e.g. change its units) and run again"
+        )
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -171,7 +187,9 @@ class Study:
 
     def boxcox_stats(self, lams: np.ndarray, by: tuple[str, ...], bases: np.ndarray | None,
                      bases_key: Any) -> list[GroupStats]:
-        """Group statistics of (y^λ − 1)/λ for a grid of λ (one batched pass, cached)."""
+        """Group statistics of the normalised Box–Cox transform ((y/ġ)^λ − 1)/λ, ġ the geometric
+        mean of y, for a grid of λ (one batched pass, cached). Dividing by ġ first keeps every
+        power of a large or small y finite and accurate; the profile is the same up to a constant."""
         key = ("bcgrid", by, bases_key, self.weights_name, tuple(lams))
         hit = self._cache.get(key)
         if hit is None:
@@ -179,12 +197,13 @@ class Study:
 
             codes, c = self.group_codes(by)
             logy = np.log(self.y)
+            ly = logy - float(logy.mean())
             found: list = [None] * len(lams)
             if self.weights is None and self.n > EXACT_PROFILE_LIMIT:  # power sums: one pass for every λ
-                found = grid_group_stats_series(logy, codes, c, lams, bases, self.group_order(by))
+                found = grid_group_stats_series(ly, codes, c, lams, bases, self.group_order(by))
             todo = [i for i, st in enumerate(found) if st is None]
             if todo:
-                rest = grid_group_stats(logy, codes, c, lams[todo], self.weights, bases)
+                rest = grid_group_stats(ly, codes, c, lams[todo], self.weights, bases)
                 for i, st in zip(todo, rest, strict=True):
                     found[i] = st
             hit = self._cache[key] = found
@@ -296,7 +315,7 @@ class Study:
             hit = GroupStats(base.n, base.count, base.wsum * w_g, base.mean, base.ss * w_g,
                              float((base.count * np.log(w_g)).sum()), base.base_mean,
                              None if base.cross is None else base.cross * w_g[:, None, None],
-                             base.zmin, base.zmax)
+                             base.zmin, base.zmax, base.mean_lo)
             self._cache[key] = hit
         if hit is None:
             codes, c = self.group_codes(by)
@@ -530,10 +549,16 @@ def make_study(
         )
     if np.ptp(yv) == 0:
         raise DataError(f"response {y_col!r} is constant (all {yv[0]:g}); there is nothing to fit")
+    check_magnitude(yv.min(), yv.max(), y_col, "response")
+    check_magnitude(xv.min(), xv.max(), x_col, "predictor")
+    if w_arr is not None:
+        wk = w_arr[keep]
+        check_magnitude(wk.min(), wk.max(), w_col, "weights")  # type: ignore[arg-type]
     covs: list[Covariate] = []
     for col, kind, raw in cov_raw:
         if kind == "numeric":
             vals = np.asarray(raw)[keep]
+            check_magnitude(vals.min(), vals.max(), col, "covariate")
             if np.ptp(vals) == 0:
                 raise DataError(
                     f"covariate {col!r} has one value ({vals[0]:g}) in the rows used; it cannot explain "
