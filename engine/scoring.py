@@ -115,12 +115,13 @@ def _weights(study: Study, spec: ModelSpec) -> tuple[np.ndarray | None, object, 
     key = ("w", spec.response.key(), rule.theta, study.weights_name)
     hit = study.cache_get(key)
     if hit is None:
+        from .variance import level_weights
+
         z, _ = _response(study, spec.response)
-        m = np.abs(level_means(study, z, ("z", spec.response.key())))
-        if (m <= 0).any():
-            raise UsageError("power-of-mean weights need every level mean ≠ 0 on the response scale")
-        w_level = m ** (-2.0 * rule.theta)
-        w_level = w_level / np.exp(np.mean(np.log(w_level)))  # geometric mean 1 (any scale is fine)
+        try:
+            w_level = level_weights(level_means(study, z, ("z", spec.response.key())), rule.theta)
+        except ValueError as exc:
+            raise UsageError(f"power-of-mean weights are not possible here: {exc}") from None
         hit = study.cache_put(key, (study.level_weight_rows(w_level), key, w_level))
     return hit
 
@@ -347,6 +348,9 @@ def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = 
     loglik_y = fit.loglik + fr.jac
     k = fit.rank + 1 + spec.extra_params
     crit = criteria_from(loglik_y, k, study.n)
+    if not math.isfinite(loglik_y):
+        warnings.append("fits every row exactly (residual sum of squares 0 up to rounding): the likelihood "
+                        "is unbounded, so AIC, AICc and BIC are undefined")
 
     # per-level fitted curve on the original scale (median back-transform)
     t_levels = np.asarray(spec.predictor.forward(study.x_level_values), dtype=float)
