@@ -15,15 +15,18 @@ from .remedies import POST_SEARCH_CAUTION, RULES, Node, RemedyTree, Suggestion, 
 from .scoring import NodeScore, residuals_by_level, score_spec
 from .spec import ModelSpec, WeightRule
 from .study import Study, make_study
+from .suggestion import SUGGESTION_POLICIES, Evidence, SuggestionPolicy
 from .transforms import Transform
 
 __all__ = [
     "CAUTION",
     "POST_SEARCH_CAUTION",
     "RULES",
+    "SUGGESTION_POLICIES",
     "BendwiseError",
     "CheckResult",
     "CleaningReport",
+    "Evidence",
     "DataError",
     "ModelSpec",
     "Node",
@@ -32,6 +35,7 @@ __all__ = [
     "SpecError",
     "Study",
     "Suggestion",
+    "SuggestionPolicy",
     "Transform",
     "UsageError",
     "WeightRule",

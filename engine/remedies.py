@@ -18,12 +18,14 @@ import numpy as np
 from .cautions import POST_SEARCH_CAUTION
 from .errors import BendwiseError, UsageError
 from .groups import GroupStats, compute_group_stats
-from .linalg import Column, Design, design_rss, fit_design
+from .linalg import Column, Design, design_rss, fit_design, rounding_floor
 from .linearity import nested_f
-from .results import LackOfFit, test_method
+from .results import LackOfFit
 from .scoring import NodeScore, _frame, build_design, score_spec
 from .spec import ModelSpec, WeightRule
 from .study import Study
+from .suggestion import RULES, Suggestion, SuggestionPolicy
+from .suggestion import suggest as _suggest
 from .transforms import (
     CONVENTIONAL_LAMBDAS,
     IDENTITY,
@@ -34,6 +36,7 @@ from .transforms import (
     boxcox,
     power,
 )
+from .variance import VarianceTrend, variance_trend
 
 __all__ = [
     "Node",
@@ -47,7 +50,6 @@ __all__ = [
     "POST_SEARCH_CAUTION",
 ]
 
-RULES = ("aicc", "bic", "simplest", "press")
 MAX_DEGREE = 3
 HALF_CHI2_95 = 1.9207294103470  # ½ χ²₁(0.95), Box & Cox (1964) interval
 CHI2_95 = 2 * HALF_CHI2_95
@@ -344,14 +346,20 @@ def profile_boxcox(
     """λ̂ and its 95% interval for (y^λ − 1)/λ regressed on ``design`` (groups ``codes``).
 
     ℓ(λ) = −(n/2) log(RSS_λ/n) + (λ − 1) Σ log y; interval ℓ(λ̂) − ℓ(λ) ≤ ½χ²₁(0.95)
-    (Box & Cox 1964). Small tables: exact maximisation, one pass per λ. Large tables: one
-    batched pass for a 0.2-step grid (shared by every node through ``grid_cache``), then a
-    cubic spline through the profile.
+    (Box & Cox 1964). The work is done on y divided by its geometric mean ġ (the same profile
+    up to a constant: ℓ(λ) = −(n/2) log(RSS of ((y/ġ)^λ − 1)/λ / n) − Σ log y), so no power of a
+    large or small y can overflow or cancel; λ is searched only where |λ·log(y/ġ)| stays below 300.
+    Small tables: exact maximisation, one pass per λ. Large tables (and the SQL engine): a
+    0.2-step grid of group statistics of the normalised transform (``grid_provider``, shared by
+    every node through ``grid_cache``), then a cubic spline through the profile.
+
+    Raises UsageError (a reason, not a crash) when the profile cannot say anything: the fit is
+    exact at every λ (or at too many of them).
     """
     if y is None:
         if grid_provider is None or n is None or sum_log_y is None:
             raise ValueError("without rows, give grid_provider, n and sum_log_y")
-        logy = None
+        ly = None
         slog = float(sum_log_y)
     else:
         if (y <= 0).any():
@@ -359,23 +367,31 @@ def profile_boxcox(
         n = y.shape[0]
         logy = np.log(y)
         slog = float(logy.sum())
+        ly = logy - slog / n
+    if ly is not None:
+        reach = float(np.max(np.abs(ly)))
+        if reach > 0:
+            lo, hi = max(lo, -300.0 / reach), min(hi, 300.0 / reach)
     grid_l = np.round(np.arange(lo, hi + 1e-9, GRID_STEP), 6)
 
-    def from_rss(rss: float, lam: float) -> float:
-        return -0.5 * n * math.log(rss / n) + (lam - 1.0) * slog if rss > 0 else math.inf
+    def from_stats(st: GroupStats, lam: float) -> float:
+        rss = design_rss(st, design)
+        # the profile in the raw form, ℓ = −(n/2)log(RSS/n) + (λ − 1)Σ log y, from the normalised RSS
+        return -0.5 * n * math.log(rss / n) - slog if rss > rounding_floor(st) else math.nan
 
-    if n > EXACT_PROFILE_LIMIT or logy is None:
+    if n > EXACT_PROFILE_LIMIT or ly is None:
         stats_list = None if grid_cache is None else grid_cache.get("bc")
         if stats_list is None:
             if grid_provider is not None:
                 stats_list = grid_provider(grid_l)
             else:
-                stats_list = grid_group_stats(logy, codes, c, grid_l, weights, bases)  # type: ignore[arg-type]
+                stats_list = grid_group_stats(ly, codes, c, grid_l, weights, bases)  # type: ignore[arg-type]
             if grid_cache is not None:
                 grid_cache["bc"] = stats_list
-        vals = np.array([from_rss(design_rss(st, design), float(v)) for st, v in zip(stats_list, grid_l, strict=True)])
+        vals = np.array([from_stats(st, float(v)) for st, v in zip(stats_list, grid_l, strict=True)])
+        grid_l, vals = _finite_run(grid_l, vals)
         spline = _Spline(grid_l, vals)
-        fine = np.arange(lo, hi + 1e-9, 0.0005)
+        fine = np.arange(grid_l[0], grid_l[-1] + 1e-9, 0.0005)
         fv = spline(fine)
         i = int(np.argmax(fv))
         lam_hat, top = float(fine[i]), float(fv[i])
@@ -385,38 +401,22 @@ def profile_boxcox(
         low = float(_brentq(lambda v: spline(v) - top + HALF_CHI2_95, fine[left[-1]], fine[left[-1] + 1])) if left.size else None
         high = float(_brentq(lambda v: spline(v) - top + HALF_CHI2_95, fine[i + right[0] - 1], fine[i + right[0]])) if right.size else None
     else:
-        from scipy.optimize import brentq, minimize_scalar
-
         def ll(lam: float) -> float:
-            st = compute_group_stats(codes, c, _bc(logy, lam), weights, bases)  # type: ignore[arg-type]
-            return from_rss(design_rss(st, design), lam)
+            st = compute_group_stats(codes, c, _bc(ly, lam), weights, bases)  # type: ignore[arg-type]
+            return from_stats(st, lam)
 
         coarse = grid_l[::2]
-        vals = np.array([ll(float(v)) for v in coarse])
-        i = int(np.argmax(vals))
-        a, b = coarse[max(i - 1, 0)], coarse[min(i + 1, len(coarse) - 1)]
-        res = minimize_scalar(lambda v: -ll(v), bounds=(a, b), method="bounded", options={"xatol": 1e-8})
-        lam_hat = float(res.x)
-        top = ll(lam_hat)
-        if vals[i] > top:
-            lam_hat, top = float(coarse[i]), float(vals[i])
+        grid_l, vals = _finite_run(coarse, np.array([ll(float(v)) for v in coarse]))
+        lam_hat, top = _maximise(ll, grid_l, vals)
 
         def gap(v: float) -> float:
-            return top - ll(v) - HALF_CHI2_95
+            g = top - ll(v) - HALF_CHI2_95
+            return g if math.isfinite(g) else math.inf
 
-        low = high = None
-        edge = lam_hat - 0.05
-        while edge > lo - 3 and gap(edge) < 0:
-            edge -= 0.5
-        if gap(edge) > 0:
-            low = float(brentq(gap, edge, lam_hat, xtol=1e-10))
-        edge = lam_hat + 0.05
-        while edge < hi + 3 and gap(edge) < 0:
-            edge += 0.5
-        if gap(edge) > 0:
-            high = float(brentq(gap, lam_hat, edge, xtol=1e-10))
-        grid_l, vals = coarse, vals
-    inside = [v for v in CONVENTIONAL_LAMBDAS if (low is None or v >= low) and (high is None or v <= high)]
+        low = _interval_end(gap, lam_hat, float(grid_l[0]), -1)
+        high = _interval_end(gap, lam_hat, float(grid_l[-1]), +1)
+    inside = [v for v in CONVENTIONAL_LAMBDAS if (low is None or v >= low) and (high is None or v <= high)
+              and grid_l[0] - 1e-9 <= v <= grid_l[-1] + 1e-9]
     if inside:
         chosen = min(inside, key=lambda v: abs(v - lam_hat))
         estimated = False
@@ -424,6 +424,73 @@ def profile_boxcox(
         chosen, estimated = round(lam_hat, 2), True
     grid = tuple((float(g), float(v)) for g, v in zip(grid_l, vals, strict=True))
     return BoxCoxProfile(lam_hat, low, high, grid, chosen, estimated)
+
+
+def _finite_run(lams: np.ndarray, vals: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The longest run of grid points whose profile is defined (finite), preferring the run
+    that holds λ = 1; raises UsageError when fewer than 4 points remain."""
+    ok = np.isfinite(vals)
+    runs: list[tuple[int, int]] = []
+    start = None
+    for i, good in enumerate(ok):
+        if good and start is None:
+            start = i
+        if not good and start is not None:
+            runs.append((start, i))
+            start = None
+    if start is not None:
+        runs.append((start, ok.size))
+    if not runs:
+        raise UsageError("the model fits every level exactly at every λ: a transform of y cannot be judged")
+    one = [r for r in runs if lams[r[0]] <= 1.0 <= lams[r[1] - 1]]
+    a, b = one[0] if one else max(runs, key=lambda r: r[1] - r[0])
+    if b - a < 4:
+        raise UsageError("the Box–Cox profile is defined at too few powers here (the fit is exact or the "
+                         "values cancel): a transform of y cannot be judged")
+    return lams[a:b], vals[a:b]
+
+
+def _maximise(ll: Callable[[float], float], grid: np.ndarray, vals: np.ndarray) -> tuple[float, float]:
+    """Refine the best grid point by golden-section search between its neighbours."""
+    i = int(np.argmax(vals))
+    a, b = float(grid[max(i - 1, 0)]), float(grid[min(i + 1, grid.size - 1)])
+    g = (math.sqrt(5.0) - 1.0) / 2.0
+    c, d = b - g * (b - a), a + g * (b - a)
+    fc, fd = ll(c), ll(d)
+    while b - a > 1e-8:
+        if not (fc < fd):  # NaN-safe: keep the left part unless d is clearly better
+            b, d, fd = d, c, fc
+            c = b - g * (b - a)
+            fc = ll(c)
+        else:
+            a, c, fc = c, d, fd
+            d = a + g * (b - a)
+            fd = ll(d)
+    lam = 0.5 * (a + b)
+    top = ll(lam)
+    if not math.isfinite(top) or vals[i] > top:
+        return float(grid[i]), float(vals[i])
+    return lam, top
+
+
+def _interval_end(gap: Callable[[float], float], centre: float, limit: float, sign: int) -> float | None:
+    """Where ``gap`` (negative inside the interval) crosses 0 going from ``centre`` towards
+    ``limit``; None when it stays inside up to the limit."""
+    step = 0.25
+    inner = centre
+    edge = centre + sign * step
+    while sign * (edge - limit) < 0 and gap(edge) < 0:
+        inner, edge = edge, edge + sign * step
+        step *= 1.5
+    if sign * (edge - limit) >= 0:
+        edge = limit
+        if gap(edge) < 0:
+            return None
+    a, b = (inner, edge) if sign > 0 else (edge, inner)
+    try:
+        return float(_brentq(gap, a, b, xtol=1e-10))
+    except (ValueError, RuntimeError):
+        return None
 
 
 # ----- Box–Tidwell power of x -----------------------------------------------------------
@@ -483,6 +550,8 @@ def box_tidwell(study: Study, spec: ModelSpec, max_iter: int = 50) -> PowerSearc
         # γ on the unscaled x^α·log x column; b1 on x^α (raw basis)
         return b1, g.estimate / scale, g.p
 
+    if fit_design(stats, design_for(1.0, False)).sse == 0:
+        raise UsageError("the straight line fits every level exactly: there is no power of x to estimate")
     first = slope_gamma(1.0)
     p1 = first[2]
     alpha, it = 1.0, 0
@@ -542,35 +611,6 @@ def box_tidwell(study: Study, spec: ModelSpec, max_iter: int = 50) -> PowerSearc
     return PowerSearch(alpha, p1, low, high, chosen, estimated, it)
 
 
-# ----- weights ------------------------------------------------------------------------
-
-CONVENTIONAL_THETAS = (1.0, 0.5, 1.5, 2.0)
-
-
-def power_of_mean(study: Study, response: Transform) -> tuple[float, float, int, float] | None:
-    """θ̂ = slope of log s_j on log |mean_j| over replicated levels; returns (θ̂, p, levels, se)."""
-    from .dist import t_sf2
-
-    z, _ = study.transformed(response)
-    st = study.group_stats(z, ("z", response.key()))
-    ok = (st.count >= 2) & (st.ss > 0) & (np.abs(st.mean) > 0)
-    if ok.sum() < 3:
-        return None
-    s = np.sqrt(st.ss[ok] / (st.count[ok] - 1))
-    lx, ly = np.log(np.abs(st.mean[ok])), np.log(s)
-    if np.ptp(lx) == 0:
-        return None
-    xc = lx - lx.mean()
-    theta = float((xc * (ly - ly.mean())).sum() / (xc * xc).sum())
-    resid = ly - ly.mean() - theta * xc
-    dfr = int(ok.sum()) - 2
-    if dfr <= 0:
-        return theta, math.nan, int(ok.sum()), math.nan
-    se = math.sqrt(float((resid**2).sum()) / dfr / float((xc * xc).sum()))
-    p = t_sf2(theta / se, dfr) if se > 0 else 0.0
-    return theta, p, int(ok.sum()), se
-
-
 # ----- the tree -------------------------------------------------------------------------
 
 @dataclass(slots=True)
@@ -605,18 +645,6 @@ class Node:
     """Move details (Box–Cox profile, Box–Tidwell search, variance fit)."""
 
 
-@dataclass(frozen=True, slots=True)
-class Suggestion:
-    """The suggested node and why."""
-
-    node: str | None
-    """Node id, or None when no node qualifies."""
-    rule: str
-    """Rule used."""
-    reason: str
-    """The reason in words."""
-
-
 def _nested(parent: Node, child: Node) -> LackOfFit:
     kind = "nested F"
     ps, cs = parent.spec, child.spec
@@ -646,7 +674,10 @@ class RemedyTree:
         self.allowable_deviation = allowable_deviation
         self.nodes: dict[str, Node] = {}
         self._by_spec: dict[ModelSpec, str] = {}
+        self._aside: dict[ModelSpec, NodeScore | None] = {}
+        self._variances: dict[Transform, VarianceTrend] = {}
         self._counter = 0
+        self._root_line: np.ndarray | None = None
         root = Node("root", None, "start: straight line", ModelSpec(), 0)
         self._add(root)
         self._score(root)
@@ -659,7 +690,7 @@ class RemedyTree:
 
     def _score(self, node: Node) -> None:
         try:
-            node.score = score_spec(self.study, node.spec, root_line=getattr(self, "_root_line", None))
+            node.score = score_spec(self.study, node.spec, root_line=self._root_line)
         except BendwiseError as exc:
             node.error = str(exc)
         if node.parent is not None:
@@ -702,8 +733,9 @@ class RemedyTree:
                     else:
                         prof = profile_boxcox(None, codes, c, design, grid_provider=provider, n=st.n,
                                               sum_log_y=st.sum_log_y())
-                except BendwiseError as exc:
-                    pruned.append(("Box–Cox y", str(exc)))
+                except (BendwiseError, ValueError, RuntimeError, FloatingPointError, np.linalg.LinAlgError) as exc:
+                    pruned.append(("Box–Cox y", f"the profile cannot be computed here ({exc})"
+                                   if not isinstance(exc, BendwiseError) else str(exc)))
                 else:
                     interval = f"λ̂ = {prof.lam_hat:.3g}, 95% interval {_iv(prof.low, prof.high)}"
                     t = boxcox(prof.chosen)
@@ -735,7 +767,8 @@ class RemedyTree:
             else:
                 try:
                     ps = box_tidwell(st, sp)
-                except (BendwiseError, ValueError, ZeroDivisionError, FloatingPointError) as exc:
+                except (BendwiseError, ValueError, ZeroDivisionError, FloatingPointError, RuntimeError,
+                        np.linalg.LinAlgError) as exc:
                     pruned.append(("power of x (Box–Tidwell)", f"did not converge ({exc})"))
                 else:
                     t = power(ps.chosen)
@@ -770,36 +803,7 @@ class RemedyTree:
                 ok.append((f"+ x:{name}", sp.with_(interactions=sp.interactions + (name,)), {}))
         # weights
         if sp.weights is None and node.score is not None:
-            pm = power_of_mean(st, sp.response)
-            spread_p = node.score.spread.p if node.score.spread.testable else None
-            spread_name = test_method(node.score.spread.name, "spread")
-            if pm is None:
-                pruned.append(("weights", "needs at least 3 replicated levels with spread to fit a variance function"))
-            else:
-                theta, p_theta, n_lv, se_theta = pm
-                # With few replicates per level the tests of equal spread have little power, so the
-                # move is offered whenever the spread trends with the mean (θ̂ ≥ ¼) or a test flags
-                # unequal spread; the criteria then decide, and a weighted node must beat the
-                # unweighted one by 2 AICc when it has as many parameters.
-                differ = (spread_p is not None and spread_p < 0.10) or (math.isfinite(p_theta) and p_theta < 0.10)
-                if not differ and abs(theta) < 0.25:
-                    pruned.append(("weights", f"spreads do not differ across levels ({spread_name} p = "
-                                   f"{_fp(spread_p)}, trend of SD with the mean θ̂ = {theta:.2g}, p = {_fp(p_theta)})"))
-                elif abs(theta) < 0.1:
-                    pruned.append(("weights", f"the spread does not follow the mean (θ̂ = {theta:.2g})"))
-                else:
-                    from .dist import t_ppf
-
-                    half = t_ppf(0.975, n_lv - 2) * se_theta if math.isfinite(se_theta) else math.inf
-                    inside = [v for v in CONVENTIONAL_THETAS if abs(v - theta) <= half]
-                    if inside:
-                        th, est = min(inside, key=lambda v: abs(v - theta)), False
-                    else:
-                        th, est = round(theta, 2), True
-                    how = "estimated" if est else f"θ̂ = {theta:.3g} ± {half:.2g}"
-                    ok.append((f"weights ∝ mean^(−2θ), θ = {th:.3g} ({how}; approximate)",
-                               sp.with_(weights=WeightRule("power-of-mean", th, est)),
-                               {"theta": theta, "theta_se": se_theta, "p": p_theta}))
+            self._weights_move(sp, ok, pruned)
         elif sp.weights is not None:
             pruned.append(("weights", "already weighted"))
         return ok, pruned
@@ -884,67 +888,90 @@ class RemedyTree:
             if rule == "aicc":
                 return (aicc, s.k, _order(n.id))
             if rule == "bic":
-                return (s.criteria.bic, s.k, _order(n.id))
+                return (s.criteria.bic if s.criteria.bic is not None else inf, s.k, _order(n.id))
             if rule == "simplest":
                 return (s.k, aicc, _order(n.id))
             return (s.press if s.press is not None else inf, s.k, _order(n.id))
 
         return key
 
-    def suggest(self, rule: str = "aicc", alpha: float | None = None) -> Suggestion:
-        """Pick a node by ``rule`` among those that pass lack of fit (see README)."""
-        a = self.alpha if alpha is None else alpha
-        cands = [n for n in self.scored() if self.passes(n, a)]
-        key = self.sort_key(rule)
-        if not cands:
-            fails = sorted(self.scored(), key=key)
-            near = fails[0].spec.label(self.study.y_name, self.study.x_name) if fails else "—"
-            return Suggestion(None, rule, f"no candidate passes lack of fit at α = {a:g}; the best by {rule} is "
-                              f"{near}, which still fails. Look for a missing variable, or grow further.")
-        if rule == "aicc":
-            best = min(cands, key=key)
-            ba = best.score.criteria.aicc  # type: ignore[union-attr]
-            if ba is None:
-                chosen = min(cands, key=self.sort_key("bic"))
-            else:
-                close = [n for n in cands if n.score.criteria.aicc is not None and n.score.criteria.aicc <= ba + 2.0]  # type: ignore[union-attr]
-                # fewer parameters first, then fewer moves from the straight line, then AICc
-                chosen = min(close, key=lambda n: (n.score.k, n.depth, n.score.criteria.aicc, _order(n.id)))  # type: ignore[union-attr]
-        elif rule == "press":
-            with_press = [n for n in cands if n.score.press is not None]  # type: ignore[union-attr]
-            if not with_press:
-                return Suggestion(None, rule, "PRESS is unavailable for these candidates (large table); use another rule")
-            chosen = min(with_press, key=key)
-        else:
-            chosen = min(cands, key=key)
-        return Suggestion(chosen.id, rule, self._reason(chosen, rule, a))
+    def suggest(self, rule: str = "aicc", alpha: float | None = None,
+                policy: SuggestionPolicy | str = "default") -> Suggestion:
+        """Pick a node by ``rule`` among the candidates the evidence allows (engine.suggestion)."""
+        return _suggest(self, rule, alpha, policy)
 
-    def _reason(self, node: Node, rule: str, alpha: float) -> str:
-        s = node.score
-        assert s is not None
-        lab = node.spec.label(self.study.y_name, self.study.x_name)
-        lof = s.lack_of_fit
-        part = (f"passes lack of fit (p = {_fp(lof.p)})" if lof.testable else f"lack of fit untestable ({lof.reason})")
+    # ---- evidence on the straight line (engine.suggestion weighs it) -----------------
+    def _scored_spec(self, spec: ModelSpec) -> NodeScore | None:
+        """The score of ``spec`` (a node of the tree, or scored aside and cached); None on error."""
+        hit = self._by_spec.get(spec)
+        if hit is not None:
+            return self.nodes[hit].score
+        if spec not in self._aside:
+            try:
+                self._aside[spec] = score_spec(self.study, spec, root_line=self._root_line)
+            except BendwiseError:
+                self._aside[spec] = None
+        return self._aside[spec]
+
+    def curvature_test(self) -> LackOfFit:
+        """The straight line against line + x² (nested F; Mandel's test without the 99% level)."""
+        kind = "curvature (line + x²)"
         root = self.root.score
-        rs = f"{lab}: {part}"
-        if root is not None and node.id != "root" and s.criteria.aicc is not None and root.criteria.aicc is not None:
-            d = root.criteria.aicc - s.criteria.aicc
-            rs += f", AICc {abs(d):.1f} {'below' if d >= 0 else 'above'} the straight line"
-        if rule == "aicc":
-            rs += "; the simplest passing model (fewest parameters, then fewest moves) within 2 AICc of the best"
-        elif rule == "bic":
-            rs += f"; lowest BIC ({s.criteria.bic:.1f}) among passing candidates"
-        elif rule == "simplest":
-            rs += f"; fewest parameters (k = {s.k}) among passing candidates"
-        else:
-            rs += f"; lowest PRESS ({s.press:.4g}) among passing candidates"
-        if node.id == "root":
-            rs = f"the straight line {part}; no remedy improves AICc enough to justify it"
-        dev = self.allowable_deviation
-        if dev is not None and node.id != "root" and s.max_deviation is not None:
-            rs += (f"; its largest departure from the line is {s.max_deviation:.4g} (allowable {dev:g}: "
-                   f"{'within' if s.max_deviation <= dev else 'beyond'} it)")
-        return rs
+        if root is None:
+            return LackOfFit(False, self.root.error or "the straight line could not be scored", kind)
+        if self.study.c < 3:
+            return LackOfFit(False, f"needs at least 3 levels of x ({self.study.c} here)", kind)
+        quad = self._scored_spec(ModelSpec(degree=2))
+        if quad is None:
+            return LackOfFit(False, "the quadratic could not be fitted", kind)
+        return nested_f(root.fit.sse, root.fit.df_resid, quad.fit.sse, quad.fit.df_resid, kind,
+                        floor=quad.fit.rounding)
+
+    def covariate_test(self, name: str) -> LackOfFit:
+        """Line + covariate against the line (nested F)."""
+        kind = "nested F"
+        root = self.root.score
+        other = self._scored_spec(ModelSpec(covariates=(name,)))
+        if root is None or other is None:
+            return LackOfFit(False, "a model could not be scored", kind)
+        return nested_f(root.fit.sse, root.fit.df_resid, other.fit.sse, other.fit.df_resid, kind,
+                        floor=other.fit.rounding)
+
+    def variance(self, response: Transform) -> VarianceTrend:
+        """The power-of-mean variance function of the replicates on one response scale (cached)."""
+        hit = self._variances.get(response)
+        if hit is None:
+            if self.study.weights is not None:
+                hit = VarianceTrend(False, f"weights were given (column {self.study.weights_name!r}); "
+                                    "bendwise does not estimate others on top")
+            else:
+                try:
+                    z, _ = self.study.transformed(response)
+                    st = self.study.group_stats(z, ("z", response.key()))
+                except BendwiseError as exc:
+                    hit = VarianceTrend(False, str(exc))
+                else:
+                    hit = variance_trend(st.count, st.mean, st.ss)
+            self._variances[response] = hit
+        return hit
+
+    def spread_evidence(self) -> VarianceTrend:
+        """The trend of spread with the mean on the straight line's scale (y itself)."""
+        return self.variance(IDENTITY)
+
+    def _weights_move(self, sp: ModelSpec, ok: list, pruned: list) -> None:
+        """Offer power-of-mean weights when the replicates show the spread following the mean."""
+        vt = self.variance(sp.response)
+        if not vt.available:
+            pruned.append(("weights", vt.reason))
+            return
+        iv = f"θ̂ = {vt.theta_hat:.3g}, 95% interval {_iv(vt.low, vt.high)}, test of θ = 0 p = {_fp(vt.p)}"
+        if vt.p >= self.alpha or vt.chosen == 0:
+            pruned.append(("weights", f"no evidence that the spread follows the mean ({iv})"))
+            return
+        how = "a round value inside the interval" if vt.snapped else "estimated"
+        ok.append((f"weights ∝ mean^(−2θ), θ = {vt.chosen:.3g} ({how}; {iv}; θ counts as a parameter)",
+                   sp.with_(weights=WeightRule("power-of-mean", vt.chosen, not vt.snapped)), {"variance": vt}))
 
     def path(self, node_id: str) -> list[Node]:
         """Nodes from the root to ``node_id``."""
@@ -996,6 +1023,8 @@ class RemedyTree:
         )
         if "boxcox" in node.detail:
             out["boxcox"] = node.detail["boxcox"].as_json()
+        if "variance" in node.detail:
+            out["variance_function"] = node.detail["variance"].as_json()
         if "box_tidwell" in node.detail:
             ps = node.detail["box_tidwell"]
             out["box_tidwell"] = {"alpha_hat": ps.alpha_hat, "low": ps.low, "high": ps.high, "chosen": ps.chosen,
@@ -1010,6 +1039,7 @@ class RemedyTree:
             "reason": sug.reason,
             "rule": rule,
             "alpha": self.alpha,
+            "evidence": [e.as_json() for e in sug.evidence],
             "caution": POST_SEARCH_CAUTION,
             "nodes": [self.node_json(n) for n in self.nodes.values()],
         }

@@ -21,7 +21,8 @@ class WeightRule:
     theta: float
     """θ in Var(y) = σ² · mean^(2θ); weights are mean^(−2θ) per level."""
     estimated: bool = True
-    """False when a conventional θ (½, 1, 1½, 2) inside the interval of θ̂ is used instead of θ̂."""
+    """False when a round θ (½, 1, 1½, 2, …) inside the interval of θ̂ is used instead of θ̂ (θ
+    counts as an estimated parameter either way)."""
 
     def describe(self) -> str:
         """Human description."""
@@ -54,9 +55,11 @@ class ModelSpec:
     weights: WeightRule | None = None
     """Weighting rule estimated by bendwise (user weights belong to the study)."""
     response_estimated: bool = False
-    """True when a Box–Cox λ was estimated (counts as a parameter)."""
+    """True when the Box–Cox λ̂ itself is used rather than a round value inside its interval
+    (either way the transform counts as one parameter: see ``extra_params``)."""
     predictor_estimated: bool = False
-    """True when a power α was estimated (counts as a parameter)."""
+    """True when the Box–Tidwell α̂ itself is used rather than a round value (either way the
+    transform counts as one parameter)."""
 
     def with_(self, **changes) -> ModelSpec:
         """Copy with changes, kept canonical."""
@@ -69,9 +72,11 @@ class ModelSpec:
 
     @property
     def extra_params(self) -> int:
-        """Estimated parameters beyond the coefficients and σ."""
-        return (int(self.response_estimated) + int(self.predictor_estimated)
-                + int(self.weights is not None and self.weights.estimated))
+        """Parameters chosen from the data beyond the coefficients and σ: one for a transform of y
+        (log, √, 1/y or a Box–Cox λ — chosen among alternatives, so it counts whether λ was snapped
+        to a round value or not), one for a transform of x (log, √, 1/x or a Box–Tidwell α), and
+        one for the power θ of estimated weights."""
+        return int(self.response != IDENTITY) + int(self.predictor != IDENTITY) + int(self.weights is not None)
 
     def label(self, y: str = "y", x: str = "x") -> str:
         """Short label, e.g. 'log y ~ x + x²  + day'."""
