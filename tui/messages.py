@@ -7,7 +7,7 @@ best-first growth of one node; ChartsComputed after a selection. Payloads are en
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 from textual.message import Message
@@ -54,6 +54,8 @@ class TreeSummary:
     """``engine.check`` of the straight line at this α (a CheckResult), or None."""
     complete: bool = True
     """False when growth was cancelled part-way."""
+    errors: dict[str, str] = field(default_factory=dict)
+    """Node id → why growing it stopped (shown in its detail)."""
 
     @classmethod
     def take(cls, tree: RemedyTree, rule: str, check: Any = None, complete: bool = True) -> TreeSummary:
@@ -133,11 +135,23 @@ class TreeGrown(Message):
 
 
 class GrowthFailed(Message):
-    """The engine refused to grow or score (message in words)."""
+    """Growing, scoring or judging stopped on an error (one line in words)."""
 
-    def __init__(self, error: str) -> None:
+    def __init__(self, error: str, node_id: str | None = None) -> None:
         super().__init__()
         self.error = error
+        self.node_id = node_id
+        """The node being grown when it failed (None: the first growth or a judgement)."""
+
+
+def failure_line(exc: BaseException) -> str:
+    """One line for an error in a worker: the engine's own words, or the kind of failure."""
+    from engine.errors import BendwiseError
+
+    text = " ".join(str(exc).split()) or type(exc).__name__
+    if isinstance(exc, BendwiseError):
+        return text
+    return f"internal error ({type(exc).__name__}: {text[:200]}); the tree so far is kept"
 
 
 class ChartsComputed(Message):

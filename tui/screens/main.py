@@ -249,6 +249,11 @@ class MainScreen(ChartPanes, TreeWork, Screen):
             self._flush_timer.stop()
             self._flush_timer = None
         self._pending = []
+        old = self.board
+        if old is not None and old.tree is event.summary.tree:
+            for nid, err in old.errors.items():  # errors stay with their node until it grows
+                if not (nid == event.focus and event.summary.complete):
+                    event.summary.errors.setdefault(nid, err)
         self.board = event.summary
         self.alpha, self.rule = event.summary.alpha, event.summary.rule
         self._set_idle()
@@ -270,8 +275,25 @@ class MainScreen(ChartPanes, TreeWork, Screen):
     @on(GrowthFailed)
     def _growth_failed(self, event: GrowthFailed) -> None:
         self._set_idle()
-        self.query_one(NodeDetail).show_message(Text(f"Could not grow the tree: {event.error}", style="bold"))
-        self.query_one(StatusPanel).set_suggestion(f"Suggested: none — {event.error}")
+        what = f"Could not grow {event.node_id}" if event.node_id else "Could not grow the tree"
+        board = self.board
+        if event.node_id is not None and board is not None:
+            # keep what was scored before the failure, and say what stopped under the node
+            board.errors[event.node_id] = event.error
+            self.query_one(RemedyTreeView).rebuild(board, sort=self.sort, only_passing=self.only_passing,
+                                                   marked=self.marked)
+            self.query_one(RemedyTreeView).select_id(event.node_id)
+            self._show(event.node_id)
+        else:
+            self.query_one(NodeDetail).show_message(Text(f"{what}: {event.error}", style="bold"))
+        self.query_one(StatusPanel).set_suggestion(Text.assemble((what, "bold"), f" — {event.error}"))
+
+    def on_worker_state_changed(self, event) -> None:
+        """A worker that stopped on an error the workers did not catch still frees the keys."""
+        from textual.worker import WorkerState
+
+        if event.state == WorkerState.ERROR and event.worker.group == "tree":
+            self.post_message(GrowthFailed(f"internal error ({event.worker.error!r:.200}); the tree so far is kept"))
 
     # ---- showing a node -------------------------------------------------------------
     @on(Tree.NodeExpanded, "#tree")

@@ -22,6 +22,7 @@ from ..messages import (
     StudyBuilt,
     TreeGrown,
     TreeSummary,
+    failure_line,
 )
 from .data import DataRequest, build_study
 
@@ -71,7 +72,6 @@ class TreeWork:
     @work(thread=True, exclusive=True, exit_on_error=False, group="tree")
     def _grow(self) -> None:
         from engine import check
-        from engine.errors import BendwiseError
         from engine.remedies import RemedyTree
 
         worker = get_current_worker()
@@ -98,8 +98,8 @@ class TreeWork:
                 self.post_message(ScoringProgressed(None, None, "checking the straight line", count[0]))
                 chk = check(study, alpha=self.alpha)
                 summary = TreeSummary.take(tree, self.rule, chk, complete=not worker.is_cancelled)
-            except BendwiseError as exc:
-                self.post_message(GrowthFailed(str(exc)))
+            except Exception as exc:  # noqa: BLE001 - any failure becomes one line; the keys keep working
+                self.post_message(GrowthFailed(failure_line(exc)))
                 return
         self.post_message(TreeGrown(summary))
 
@@ -117,8 +117,18 @@ class TreeWork:
                 self.post_message(ScoringProgressed(done, total, f"{nid}: {count[0]} new · {label}", count[0]))
 
             self.post_message(ScoringProgressed(None, None, f"finding the moves from {nid}", 0))
-            new = tree.expand(nid, progress, lambda: worker.is_cancelled)
-            summary = TreeSummary.take(tree, self.rule, board.check, complete=not worker.is_cancelled)
+            try:
+                new = tree.expand(nid, progress, lambda: worker.is_cancelled)
+                summary = TreeSummary.take(tree, self.rule, board.check, complete=not worker.is_cancelled)
+            except Exception as exc:  # noqa: BLE001 - one line in the status row and the node
+                try:  # keep the models scored before the failure
+                    summary = TreeSummary.take(tree, self.rule, board.check, complete=True)
+                    summary.errors.update(board.errors)
+                    self.post_message(TreeGrown(summary, (), focus=None))
+                except Exception:  # noqa: BLE001, S110 - the failure itself is reported next
+                    pass
+                self.post_message(GrowthFailed(failure_line(exc), nid))
+                return
         self.post_message(TreeGrown(summary, tuple(new), focus=nid))
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="tree")
@@ -129,11 +139,17 @@ class TreeWork:
         assert board is not None
         tree = board.tree
         with self._lock:
-            chk = board.check
-            if alpha != tree.alpha or chk is None:
-                tree.alpha = alpha
-                chk = check(tree.study, alpha=alpha)
-            summary = TreeSummary.take(tree, rule, chk, complete=board.complete)
+            before = tree.alpha
+            try:
+                chk = board.check
+                if alpha != tree.alpha or chk is None:
+                    tree.alpha = alpha
+                    chk = check(tree.study, alpha=alpha)
+                summary = TreeSummary.take(tree, rule, chk, complete=board.complete)
+            except Exception as exc:  # noqa: BLE001
+                tree.alpha = before
+                self.post_message(GrowthFailed(failure_line(exc)))
+                return
         self.post_message(TreeGrown(summary))
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="charts")

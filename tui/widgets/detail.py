@@ -57,11 +57,19 @@ def _heading(text: str) -> Text:
 
 
 def render_node(board: TreeSummary, nid: str, width: int = 100) -> Text:
-    """Everything the detail pane shows for one node (formatting of engine values only).
+    """Everything the detail pane shows for one node (formatting of engine values only), after
+    the reason its growth stopped, if it did.
 
     Below 60 columns the tables drop their least important columns (MS, intervals) instead of
     cutting numbers short.
     """
+    body = _render_node(board, nid, width)
+    if nid in board.errors:
+        return Text.assemble((f"Growing {nid} stopped: {board.errors[nid]}\n", "bold"), body)
+    return body
+
+
+def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
     from engine.views import node_anova
 
     tree = board.tree
