@@ -1011,6 +1011,7 @@ class RemedyTree:
             lack_of_fit_pure=s.lack_of_fit_pure.as_json(),
             passes=self.passes(node),
             nested=(_nested_json(node.nested) if node.nested is not None else {"reason": "the root has no parent"}),
+            chosen_from_data=list(node.spec.data_choices(st.y_name, st.x_name)),
             criteria={**s.criteria.as_json(),
                       "delta_aicc": (s.criteria.aicc - best) if (best is not None and s.criteria.aicc is not None) else None},
             press=s.press,

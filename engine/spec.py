@@ -78,6 +78,17 @@ class ModelSpec:
         one for the power θ of estimated weights."""
         return int(self.response != IDENTITY) + int(self.predictor != IDENTITY) + int(self.weights is not None)
 
+    def data_choices(self, y: str = "y", x: str = "x") -> tuple[str, ...]:
+        """The choices made from the data that ``extra_params`` counts, in words."""
+        out = []
+        if self.response != IDENTITY:
+            out.append(f"the transform of y ({self.response.short(y)})")
+        if self.predictor != IDENTITY:
+            out.append(f"the transform of x ({self.predictor.short(x)})")
+        if self.weights is not None:
+            out.append(f"the weights' power (θ = {self.weights.theta:.3g})")
+        return tuple(out)
+
     def label(self, y: str = "y", x: str = "x") -> str:
         """Short label, e.g. 'log y ~ x + x²  + day'."""
         t = self.predictor.short(x)

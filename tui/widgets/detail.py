@@ -154,6 +154,10 @@ def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
                   num(crit["delta_aicc"], 3), num(crit["bic"], 6))
         parts.append(t.text())
     parts.append(Text("ΔAICc is the distance to the lowest AICc in the tree", style="dim"))
+    chosen = j.get("chosen_from_data") or []
+    if chosen:
+        parts.append(Text(f"k counts {len(chosen)} choice(s) made from the data as parameters: "
+                          + "; ".join(chosen), style="dim"))
     lines = [f"PRESS {num(j['press'], 5)}" + (f" ({j['press_note']})" if j.get("press_note") else ""),
              f"largest |studentized residual| {num(j['max_studentized_residual'], 3)}"]
     spread = j["spread"]
