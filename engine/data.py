@@ -233,7 +233,7 @@ def _refuse_duplicate_names(name: str, header: list[str]) -> None:
             seen.setdefault(key, []).append(i + 1)
     for col, where in seen.items():
         if len(where) > 1:
-            places = ", ".join(str(i) for i in where)
+            places = ", ".join(str(i) for i in where[:-1]) + f" and {where[-1]}"
             raise DataError(f"{name}: the header names column {col!r} {len(where)} times (columns {places}); "
                             "rename them so every column has its own name")
 

@@ -98,7 +98,9 @@ def describe_reading(path: str | Path | None, *, delimiter: str | None = None, d
     if suffix in _EXCEL_SUFFIXES:
         return {"format": "excel", "delimiter": None, "decimal": dec, "sheet": sheet}
     if suffix in _JSONL_SUFFIXES:
-        return {"format": "jsonl", "delimiter": None, "decimal": dec, "sheet": None}
+        with open(path, "rb") as fh:
+            first = fh.read(4096).lstrip(b"\xef\xbb\xbf \t\r\n")[:1]
+        return {"format": "json" if first == b"[" else "jsonl", "delimiter": None, "decimal": dec, "sheet": None}
     if delimiter is None:
         with open(path, "rb") as fh:
             head = fh.read(65536)

@@ -159,6 +159,8 @@ def read_table(files):
         frame = pd.read_excel(path, sheet_name=READING["sheet"] if READING["sheet"] is not None else 0)
     elif fmt == "jsonl":
         frame = pd.read_json(path, lines=True)
+    elif fmt == "json":  # one JSON array of objects
+        frame = pd.read_json(path, orient="records")
     else:
         options = dict(sep=READING["delimiter"] or ",", decimal=READING["decimal"], skipinitialspace=True)
         try:
