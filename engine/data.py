@@ -439,6 +439,14 @@ def numeric_column(values, column: str) -> tuple[np.ndarray, np.ndarray, np.ndar
     return arr, missing, non_numeric, non_finite
 
 
+def bad_values_text(missing: np.ndarray, non_numeric: np.ndarray, non_finite: np.ndarray) -> str:
+    """'2 missing and 1 non-finite value(s)': each kind of unusable cell named as it is (an inf
+    is not finite, not missing)."""
+    parts = [f"{int(m.sum())} {word}" for m, word in ((missing, "missing"), (non_numeric, "non-numeric"),
+                                                      (non_finite, "non-finite")) if m.any()]
+    return (", ".join(parts[:-1]) + " and " + parts[-1] if len(parts) > 1 else parts[0]) + " value(s)"
+
+
 def first_rows(mask: np.ndarray) -> tuple[int, ...]:
     """First few 1-based data-row numbers where ``mask`` is true."""
     idx = np.flatnonzero(mask)[:_SHOW_ROWS]

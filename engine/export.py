@@ -326,6 +326,10 @@ def _node(tree: RemedyTree, node_id: str):
         raise UsageError(f"node {node_id!r} could not be scored ({node.error}); choose another node")
     fit = node.score.fit
     if fit.aliased:
+        if node.spec.weights is not None or tree.study.weights_name is not None:
+            raise UsageError(f"node {node_id!r}: with these weights {', '.join(fit.aliased)} is collinear with the "
+                             "other terms (the weights leave it no spread of its own), so it cannot be handed on; "
+                             "check the weights or choose another node")
         raise UsageError(f"node {node_id!r} has collinear terms ({', '.join(fit.aliased)}) and cannot be handed on; "
                          "choose another node")
     if fit.df_resid < 1 or not math.isfinite(fit.sigma) or fit.sigma <= 0:
