@@ -115,8 +115,8 @@ def _sniff_delimiter(sample: str, decimal: str) -> str:
                     if any(c.strip() for c in r)][:50]
         except csv.Error:
             continue
-        counts = {len(r) for r in rows}
-        if len(counts) == 1 and rows and len(rows[0]) > best_fields:
+        widths = {len(r) for r in rows}
+        if len(widths) == 1 and rows and len(rows[0]) > best_fields:
             best, best_fields = d, len(rows[0])
     if best is not None:
         return best

@@ -93,7 +93,7 @@ def _p(p: float | None) -> str:
 
 def _test_line(t: dict[str, Any], alpha: float | None = None) -> str:
     if not t.get("testable"):
-        return f"not testable — {_free(t.get('reason'))}"
+        return f"not testable — {_free(str(t.get('reason')))}"
     if "f" in t:
         out = f"F = {_n(t['f'])} on {t['df_lack']} and {t['df_pure']} df, p = {_p(t['p'])}"
         if alpha is not None:
