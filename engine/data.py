@@ -92,11 +92,34 @@ class CleaningReport:
         }
 
 
+def _complete_lines(sample: str) -> str:
+    """The sample without a last line cut off by the sample size."""
+    if sample.endswith(("\n", "\r")):
+        return sample
+    cut = max(sample.rfind("\n"), sample.rfind("\r"))
+    return sample[:cut] if cut > 0 else sample
+
+
 def _sniff_delimiter(sample: str, decimal: str) -> str:
     candidates = ";\t|" if decimal == "," else ",;\t|"
-    lines = [ln for ln in sample.splitlines()[:50] if ln.strip()]
+    text = _complete_lines(sample)
+    lines = [ln for ln in text.splitlines()[:50] if ln.strip()]
     if not lines:
         return ","
+    # quote-aware first: the separator that splits every record into the same number (> 1) of
+    # fields, so a quoted name holding ';' or '|' does not mislead
+    best, best_fields = None, 1
+    for d in candidates:
+        try:
+            rows = [r for r in csv.reader(io.StringIO(text), delimiter=d, skipinitialspace=True)
+                    if any(c.strip() for c in r)][:50]
+        except csv.Error:
+            continue
+        widths = {len(r) for r in rows}
+        if len(widths) == 1 and rows and len(rows[0]) > best_fields:
+            best, best_fields = d, len(rows[0])
+    if best is not None:
+        return best
     try:
         return csv.Sniffer().sniff("\n".join(lines), delimiters=candidates).delimiter
     except csv.Error:
@@ -112,6 +135,64 @@ def _sniff_delimiter(sample: str, decimal: str) -> str:
     return best
 
 
+_EXCEL_ZIP = b"PK\x03\x04"
+_EXCEL_OLE = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"
+_BOMS = ((b"\xff\xfe\x00\x00", "UTF-32"), (b"\x00\x00\xfe\xff", "UTF-32"), (b"\xff\xfe", "UTF-16"),
+         (b"\xfe\xff", "UTF-16"))
+
+
+def _sniff_bytes(head: bytes) -> str:
+    """What the first bytes of a table are: 'parquet', 'excel', 'xls', 'utf-16', 'utf-32',
+    'binary' or 'text'."""
+    if head[:4] == b"PAR1":
+        return "parquet"
+    if head[:4] == _EXCEL_ZIP:
+        return "excel"
+    if head[:8] == _EXCEL_OLE:
+        return "xls"
+    for bom, enc in _BOMS:
+        if head.startswith(bom):
+            return enc.lower()
+    if b"\x00" in head:
+        # UTF-16 without a byte-order mark: every other byte of ASCII text is NUL
+        if len(head) >= 4 and (head[1::2].count(0) > 0.4 * len(head[1::2])
+                               or head[0::2].count(0) > 0.4 * len(head[0::2])):
+            return "utf-16"
+        return "binary"
+    return "text"
+
+
+def _decode(head: bytes) -> str:
+    """Text as ``load_table`` reads it: UTF-8 (a BOM is dropped), else Latin-1."""
+    try:
+        return head.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        return head.decode("latin-1")
+
+
+def _refuse_kind(kind: str, name: str, where: str) -> None:
+    """One line for bytes that are not a text table bendwise reads from ``where``."""
+    if kind in ("utf-16", "utf-32"):
+        raise DataError(f"{name} is {kind.upper()} text; save it as UTF-8 (e.g. 'CSV UTF-8' in a spreadsheet) "
+                        f"or convert it: iconv -f {kind.upper()} -t UTF-8")
+    if kind == "xls":
+        raise DataError(f"{name} is an old Excel (.xls) workbook; save it as .xlsx or CSV")
+    if kind in ("parquet", "excel"):
+        label = "Parquet" if kind == "parquet" else "an Excel workbook"
+        fix = ".parquet" if kind == "parquet" else ".xlsx"
+        raise DataError(f"{name} holds {label}, not text; {where}give it the {fix} suffix")
+    raise DataError(f"{name} looks binary, not a text table; save it as CSV, or use a .parquet/.xlsx suffix")
+
+
+def _stdin_bytes() -> bytes:
+    """Standard input as bytes (a text stream without a buffer is encoded back as UTF-8)."""
+    stream = sys.stdin
+    buf = getattr(stream, "buffer", None)
+    if buf is not None:
+        return buf.read()
+    return stream.read().encode("utf-8", "surrogateescape")
+
+
 def load_table(
     source: str | Path,
     *,
@@ -122,71 +203,175 @@ def load_table(
     """Read a table from a file (or ``-`` for stdin) into a DataFrame.
 
     Text files get their delimiter detected (comma, semicolon, tab, pipe); ``decimal=','``
-    reads numbers written as 1,25. Errors are :class:`DataError` with one line naming the
-    file and what to do.
+    reads numbers written as 1,25. Standard input is recognised by its bytes (Parquet, Excel,
+    JSON lines or a JSON array, else text). Errors are :class:`DataError` with one line naming
+    the file and what to do; a header that names one column twice is refused.
     """
-    import pandas as pd
-
     dec = decimal or "."
     if dec not in {".", ","}:
         raise UsageError(f"decimal mark {decimal!r} is not supported; use '.' or ','")
     name = str(source)
     if name == "-":
-        text = sys.stdin.read()
-        if not text.strip():
-            raise DataError("standard input is empty; pipe a table into bendwise or give a file")
-        return _read_text(io.StringIO(text), "<stdin>", dec, delimiter or _sniff_delimiter(text[:65536], dec))
+        frame, header = _read_stdin(sheet, dec, delimiter)
+        name = "standard input"
+    else:
+        frame, header = _read_path(name, sheet, dec, delimiter)
+    if frame.shape[0] == 0:
+        raise DataError(f"{name} has no data rows; check the file")
+    _refuse_duplicate_names(name, header if header is not None and len(header) == frame.shape[1]
+                            else [str(c) for c in frame.columns])
+    frame.columns = [str(c).strip() for c in frame.columns]
+    return frame
+
+
+def _refuse_duplicate_names(name: str, header: list[str]) -> None:
+    """A header that names one column twice cannot be read by name: say which, and where."""
+    seen: dict[str, list[int]] = {}
+    for i, col in enumerate(header):
+        key = str(col).strip()
+        if key:
+            seen.setdefault(key, []).append(i + 1)
+    for col, where in seen.items():
+        if len(where) > 1:
+            places = ", ".join(str(i) for i in where[:-1]) + f" and {where[-1]}"
+            raise DataError(f"{name}: the header names column {col!r} {len(where)} times (columns {places}); "
+                            "rename them so every column has its own name")
+
+
+def _read_stdin(sheet: str | None, dec: str, delimiter: str | None) -> tuple[pd.DataFrame, list[str] | None]:
+    import pandas as pd
+
+    name = "standard input"
+    raw = _stdin_bytes()
+    if not raw.strip():
+        raise DataError("standard input is empty; pipe a table into bendwise or give a file")
+    kind = _sniff_bytes(raw[:65536])
+    if sheet is not None and kind != "excel":
+        raise UsageError(f"--sheet applies to Excel workbooks; {name} is not one: drop --sheet")
+    try:
+        if kind == "parquet":
+            try:
+                return pd.read_parquet(io.BytesIO(raw)), None
+            except ImportError:
+                raise DataError("reading Parquet needs pyarrow; install it with: pip install 'bendwise[parquet]'") from None
+        if kind == "excel":
+            return _read_excel(io.BytesIO(raw), name, sheet)
+        if kind != "text":
+            _refuse_kind(kind, name, "save it to a file and ")
+        text = _decode(raw)
+        first = text.lstrip()[:1]
+        if first in ("{", "["):
+            return _read_json(text, name), None
+        sep = delimiter or _sniff_delimiter(text[:65536], dec)
+        return _read_text(io.StringIO(text), name, dec, sep), _text_header(text[:65536], sep)
+    except DataError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - readers raise many types; the user needs one line
+        raise _unreadable(name, exc) from None
+
+
+def _read_path(name: str, sheet: str | None, dec: str, delimiter: str | None
+               ) -> tuple[pd.DataFrame, list[str] | None]:
+    import pandas as pd
+
     path = Path(name)
     if not path.exists():
         raise DataError(f"file not found: {name}; check the path")
     if path.is_dir():
         raise DataError(f"{name} is a folder; give a table file (CSV, TSV, Parquet, Excel or JSON lines)")
     suffix = path.suffix.lower()
+    if sheet is not None and suffix not in _EXCEL_SUFFIXES:
+        raise UsageError(f"--sheet applies to Excel workbooks (.xlsx, .xlsm, .xls); {name} is not one: drop --sheet")
     try:
         if suffix in _PARQUET_SUFFIXES:
             try:
-                frame = pd.read_parquet(path)
+                return pd.read_parquet(path), None
             except ImportError:
                 raise DataError(
                     "reading Parquet needs pyarrow; install it with: pip install 'bendwise[parquet]'"
                 ) from None
-        elif suffix in _EXCEL_SUFFIXES:
-            try:
-                frame = pd.read_excel(path, sheet_name=sheet if sheet is not None else 0)
-            except ImportError:
-                raise DataError(
-                    "reading Excel needs openpyxl; install it with: pip install 'bendwise[excel]'"
-                ) from None
-            except ValueError as exc:
-                if sheet is not None and "not found" in str(exc).lower():
-                    raise DataError(f"{name}: no sheet named {sheet!r}; check --sheet") from None
-                raise
-        elif suffix in _JSONL_SUFFIXES:
-            frame = pd.read_json(path, lines=True)
-        else:
-            with open(path, "rb") as fh:
-                head = fh.read(65536)
-            if b"\x00" in head:
-                raise DataError(
-                    f"{name} looks binary, not a text table; save it as CSV, or use a .parquet/.xlsx suffix"
-                )
-            try:
-                sample = head.decode("utf-8-sig")
-            except UnicodeDecodeError:
-                sample = head.decode("latin-1")
-            sep = delimiter or _sniff_delimiter(sample, dec)
-            frame = _read_text(path, name, dec, sep)
+        if suffix in _EXCEL_SUFFIXES:
+            return _read_excel(path, name, sheet)
+        if suffix in _JSONL_SUFFIXES:
+            return _read_json(_decode(path.read_bytes()), name), None
+        with open(path, "rb") as fh:
+            head = fh.read(65536)
+        kind = _sniff_bytes(head)
+        if kind != "text":
+            _refuse_kind(kind, name, "")
+        sample = _decode(head)
+        sep = delimiter or _sniff_delimiter(sample, dec)
+        return _read_text(path, name, dec, sep), _text_header(sample, sep)
     except DataError:
         raise
     except Exception as exc:  # noqa: BLE001 - readers raise many types; the user needs one line
-        text = str(exc).strip()
-        first = text.splitlines()[0] if text else ""
-        kind = type(exc).__name__
-        raise DataError(f"cannot read {name} ({kind}{': ' + first if first else ''}); check the file format") from None
-    if frame.shape[0] == 0:
-        raise DataError(f"{name} has no data rows; check the file")
-    frame.columns = [str(c).strip() for c in frame.columns]
-    return frame
+        raise _unreadable(name, exc) from None
+
+
+def _unreadable(name: str, exc: Exception) -> DataError:
+    text = str(exc).strip()
+    first = text.splitlines()[0] if text else ""
+    kind = type(exc).__name__
+    return DataError(f"cannot read {name} ({kind}{': ' + first if first else ''}); check the file format")
+
+
+def _read_excel(src, name: str, sheet: str | None) -> tuple[pd.DataFrame, list[str] | None]:
+    import pandas as pd
+
+    try:
+        frame = pd.read_excel(src, sheet_name=sheet if sheet is not None else 0)
+        if hasattr(src, "seek"):
+            src.seek(0)
+        head = pd.read_excel(src, sheet_name=sheet if sheet is not None else 0, header=None, nrows=1)
+    except ImportError:
+        raise DataError("reading Excel needs openpyxl; install it with: pip install 'bendwise[excel]'") from None
+    except ValueError as exc:
+        if sheet is not None and "not found" in str(exc).lower():
+            raise DataError(f"{name}: no sheet named {sheet!r}; check --sheet") from None
+        raise
+    header = None if head.shape[0] == 0 else ["" if pd.isna(v) else str(v) for v in head.iloc[0].tolist()]
+    return frame, header
+
+
+def _text_header(sample: str, sep: str) -> list[str] | None:
+    """The first record of a text table as written (pandas renames a repeated name 'y.1')."""
+    try:
+        row = next(csv.reader(io.StringIO(sample), delimiter=sep, skipinitialspace=True), None)
+    except csv.Error:
+        return None
+    return None if row is None else [c.strip() for c in row]
+
+
+def _read_json(text: str, name: str) -> pd.DataFrame:
+    """JSON lines (one object per line) or one JSON array of objects."""
+    import json
+
+    import pandas as pd
+
+    if text.lstrip().startswith("["):
+        try:
+            doc = json.loads(text)
+        except json.JSONDecodeError as exc:
+            raise DataError(f"{name} is not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg}); "
+                            "fix the file, or write one JSON object per line (JSON lines)") from None
+        bad = next((i for i, r in enumerate(doc) if not isinstance(r, dict)), None) if isinstance(doc, list) else 0
+        if bad is not None:
+            raise DataError(f"{name} is a JSON array whose item {bad + 1} is not an object; give an array of "
+                            "objects, one per row, or JSON lines (one object per line)")
+        return pd.read_json(io.StringIO(text), orient="records")
+    lines = text.splitlines()
+    for i, line in enumerate(lines, start=1):
+        if not line.strip():
+            continue
+        try:
+            obj = json.loads(line)
+        except json.JSONDecodeError as exc:
+            raise DataError(f"{name} line {i} is not valid JSON ({exc.msg} at column {exc.colno}); each line "
+                            "must hold one JSON object") from None
+        if not isinstance(obj, dict):
+            raise DataError(f"{name} line {i} holds a JSON {type(obj).__name__}, not an object; each line must "
+                            "hold one JSON object (or give one JSON array of objects)")
+    return pd.read_json(io.StringIO(text), lines=True)
 
 
 def _read_text(buf, name: str, dec: str, sep: str) -> pd.DataFrame:
@@ -199,8 +384,20 @@ def _read_text(buf, name: str, dec: str, sep: str) -> pd.DataFrame:
     except pd.errors.EmptyDataError:
         raise DataError(f"{name} is empty; check the file") from None
     except pd.errors.ParserError as exc:
-        first = str(exc).strip().splitlines()[0]
-        raise DataError(f"cannot parse {name} as a table ({first}); check the delimiter with --delimiter") from None
+        raise DataError(ragged_message(name, str(exc))) from None
+
+
+def ragged_message(name: str, detail: str) -> str:
+    """The one line for a text table whose rows do not split into the header's fields."""
+    import re
+
+    m = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", detail)
+    if m:
+        want, line, saw = m.groups()
+        return (f"cannot parse {name} as a table: line {line} has {saw} fields, the header {want}; "
+                "check the delimiter with --delimiter, or that line")
+    first = detail.strip().splitlines()[0] if detail.strip() else ""
+    return f"cannot parse {name} as a table ({first}); check the delimiter with --delimiter"
 
 
 def resolve_column(frame: pd.DataFrame, name: str, role: str = "column") -> str:
@@ -240,6 +437,14 @@ def numeric_column(values, column: str) -> tuple[np.ndarray, np.ndarray, np.ndar
         non_numeric = np.isnan(arr) & ~missing
     non_finite = ~np.isfinite(arr) & ~missing & ~non_numeric
     return arr, missing, non_numeric, non_finite
+
+
+def bad_values_text(missing: np.ndarray, non_numeric: np.ndarray, non_finite: np.ndarray) -> str:
+    """'2 missing and 1 non-finite value(s)': each kind of unusable cell named as it is (an inf
+    is not finite, not missing)."""
+    parts = [f"{int(m.sum())} {word}" for m, word in ((missing, "missing"), (non_numeric, "non-numeric"),
+                                                      (non_finite, "non-finite")) if m.any()]
+    return (", ".join(parts[:-1]) + " and " + parts[-1] if len(parts) > 1 else parts[0]) + " value(s)"
 
 
 def first_rows(mask: np.ndarray) -> tuple[int, ...]:

@@ -3,7 +3,9 @@
 ``export_node`` is the one entry point (the command line and the app both call it). It writes
 ``spec.json``, ``reproduce.py`` and ``report.md`` into a temporary folder next to the target and
 renames it into place, so a reader never sees half an export; an existing folder is replaced
-only with ``force`` and only when it holds nothing but an earlier export.
+only with ``force`` and only when it holds nothing but an earlier export's three files (a folder
+or a link in place of one of them is refused). Temporary folders are removed on every way out,
+an interrupt included.
 """
 
 from __future__ import annotations
@@ -98,7 +100,9 @@ def describe_reading(path: str | Path | None, *, delimiter: str | None = None, d
     if suffix in _EXCEL_SUFFIXES:
         return {"format": "excel", "delimiter": None, "decimal": dec, "sheet": sheet}
     if suffix in _JSONL_SUFFIXES:
-        return {"format": "jsonl", "delimiter": None, "decimal": dec, "sheet": None}
+        with open(path, "rb") as fh:
+            first = fh.read(4096).lstrip(b"\xef\xbb\xbf \t\r\n")[:1]
+        return {"format": "json" if first == b"[" else "jsonl", "delimiter": None, "decimal": dec, "sheet": None}
     if delimiter is None:
         with open(path, "rb") as fh:
             head = fh.read(65536)
@@ -322,6 +326,10 @@ def _node(tree: RemedyTree, node_id: str):
         raise UsageError(f"node {node_id!r} could not be scored ({node.error}); choose another node")
     fit = node.score.fit
     if fit.aliased:
+        if node.spec.weights is not None or tree.study.weights_name is not None:
+            raise UsageError(f"node {node_id!r}: with these weights {', '.join(fit.aliased)} is collinear with the "
+                             "other terms (the weights leave it no spread of its own), so it cannot be handed on; "
+                             "check the weights or choose another node")
         raise UsageError(f"node {node_id!r} has collinear terms ({', '.join(fit.aliased)}) and cannot be handed on; "
                          "choose another node")
     if fit.df_resid < 1 or not math.isfinite(fit.sigma) or fit.sigma <= 0:
@@ -345,14 +353,18 @@ def write_text_atomic(path: str | Path, text: str, *, force: bool = False) -> Pa
         raise UsageError(f"{p} is a folder; give a file name")
     if not p.parent.is_dir():
         raise DataError(f"folder {p.parent} does not exist; create it first")
-    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=p.parent)
+    tmp: str | None = None
     try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=p.parent)
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
             fh.write(text)
         os.replace(tmp, p)
+        tmp = None
     except OSError as exc:
-        Path(tmp).unlink(missing_ok=True)
         raise DataError(f"cannot write {p}: {exc.strerror or exc}; check the folder's permissions") from None
+    finally:  # also on an interrupt: no temporary file is left behind
+        if tmp is not None:
+            Path(tmp).unlink(missing_ok=True)
     return p
 
 
@@ -384,42 +396,77 @@ def _flatten(v) -> list:
     return out
 
 
+def _check_replaceable(out_dir: Path) -> Path:
+    """The folder ``--force`` may write into (a link to a folder is followed), after checking it
+    holds nothing but an earlier export: the three files, each a plain file."""
+    if not out_dir.exists():  # a link to nothing
+        raise UsageError(f"{out_dir} is a link to {os.readlink(out_dir)}, which does not exist; choose another folder")
+    if not out_dir.is_dir():
+        raise UsageError(f"{out_dir} exists and is not a folder; choose a folder name")
+    target = out_dir.resolve() if out_dir.is_symlink() else out_dir
+    extra = sorted(p.name for p in target.iterdir() if p.name not in EXPORT_FILES)
+    if extra:
+        raise UsageError(f"{out_dir} holds files bendwise did not write ({', '.join(extra[:3])}); --force only "
+                         "replaces an earlier export: choose another folder")
+    for name in EXPORT_FILES:
+        f = target / name
+        if f.is_symlink():
+            raise UsageError(f"{out_dir / name} is a link to {os.readlink(f)}, not a file bendwise wrote; --force "
+                             "replaces only an export's own files: remove the link or choose another folder")
+        if f.exists() and not f.is_file():
+            raise UsageError(f"{out_dir / name} is a folder, not a file bendwise wrote; --force replaces only an "
+                             "export's own files: choose another folder")
+    return target
+
+
 def _write_folder(out_dir: Path, files: dict[str, str], force: bool) -> list[Path]:
-    if out_dir.exists():
+    target = out_dir
+    replacing = out_dir.exists() or out_dir.is_symlink()
+    if replacing:
         if not force:
             raise ExportExists(f"{out_dir} already exists; choose another folder or add --force to replace it")
-        if not out_dir.is_dir():
-            raise UsageError(f"{out_dir} exists and is not a folder; choose a folder name")
-        extra = sorted(p.name for p in out_dir.iterdir() if p.name not in EXPORT_FILES)
-        if extra:
-            raise UsageError(f"{out_dir} holds files bendwise did not write ({', '.join(extra[:3])}); --force only "
-                             "replaces an earlier export: choose another folder")
-    parent = out_dir.parent
+        target = _check_replaceable(out_dir)
+    parent = target.parent
+    tmp: Path | None = None
+    old: Path | None = None
     try:
-        parent.mkdir(parents=True, exist_ok=True)
-        tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".tmp", dir=parent))
-    except OSError as exc:
-        raise DataError(f"cannot create a folder in {parent}: {exc.strerror or exc}; check the path") from None
-    try:
+        try:
+            parent.mkdir(parents=True, exist_ok=True)
+            tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".tmp", dir=parent))
+        except OSError as exc:
+            raise DataError(f"cannot create a folder in {parent}: {exc.strerror or exc}; check the path") from None
         for name, text in files.items():
             with open(tmp / name, "w", encoding="utf-8", newline="\n") as fh:
                 fh.write(text)
         (tmp / "reproduce.py").chmod(0o755)
-        if out_dir.exists():
-            old = parent / f".{out_dir.name}.old-{uuid.uuid4().hex[:8]}"
-            os.rename(out_dir, old)
-            try:
-                os.rename(tmp, out_dir)
-            except OSError:
-                os.rename(old, out_dir)
-                raise
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.rename(tmp, out_dir)
+        if replacing:
+            old = parent / f".{target.name}.old-{uuid.uuid4().hex[:8]}"
+            os.rename(target, old)
+        os.rename(tmp, target)
     except OSError as exc:
-        shutil.rmtree(tmp, ignore_errors=True)
         raise DataError(f"cannot write the export to {out_dir}: {exc.strerror or exc}; check the folder") from None
+    finally:  # every way out, an interrupt included: the earlier export back or gone, no temporary folder left
+        if old is not None and old.is_dir():
+            if not target.exists():
+                os.rename(old, target)
+            else:
+                _remove_earlier_export(old)
+        if tmp is not None and tmp.is_dir():
+            shutil.rmtree(tmp, ignore_errors=True)
     return [out_dir / name for name in files]
+
+
+def _remove_earlier_export(folder: Path) -> None:
+    """Delete a replaced export: its own files only, then the folder if that leaves it empty."""
+    for name in EXPORT_FILES:
+        try:
+            (folder / name).unlink(missing_ok=True)
+        except OSError:
+            pass
+    try:
+        folder.rmdir()
+    except OSError:
+        pass  # something else appeared in it: never deleted
 
 
 def export_node(tree: RemedyTree, node_id: str, out_dir: str | Path, *, data_path: str | Path | None = None,

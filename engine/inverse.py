@@ -11,6 +11,9 @@ line, the whole line, or two pieces, and is reported as such.
 For any other model the same inequality is solved numerically on the fitted scale: a fine grid
 in the transformed predictor over the calibrated range extended by its width on each side,
 kept to the part where the fitted curve is monotone, with every crossing refined by root finding.
+
+A result is never a number that floating point lost: a set whose ends lie beyond about 1.8e308
+is reported as ``interval = 'overflow'`` with null ends and a note, not as a finite interval.
 """
 
 from __future__ import annotations
@@ -46,7 +49,8 @@ class InverseResult:
     x: float | None
     """Point estimate x̂ (None when the curve does not reach y, or reaches it more than once)."""
     interval: str
-    """'finite', 'unbounded' (a side is open), 'split' (two or more pieces) or 'none' (empty)."""
+    """'finite', 'unbounded' (a side is open), 'split' (two or more pieces), 'none' (empty) or
+    'overflow' (the numbers lie beyond the floating-point range; no ends are given)."""
     low: float | None
     """Lower end for a finite interval (or the closed end of a half line); None when open."""
     high: float | None
@@ -65,6 +69,8 @@ class InverseResult:
     """What the set means when it is not a finite interval, and any approximation."""
     covariates: dict[str, Any] = field(default_factory=dict)
     """Covariate values of the row (as given)."""
+    flag: str | None = None
+    """None, or 'overflow' when a number of the result left the floating-point range."""
 
     def as_json(self) -> dict[str, Any]:
         """Plain JSON row."""
@@ -72,7 +78,7 @@ class InverseResult:
             "y": self.y, "replicates": self.replicates, **self.covariates,
             "x": self.x, "low": self.low, "high": self.high, "interval": self.interval,
             "pieces": [list(p) for p in self.pieces], "s_x0": self.s_x0, "g": self.g,
-            "outside_range": self.outside_range, "method": self.method, "note": self.note,
+            "outside_range": self.outside_range, "method": self.method, "note": self.note, "flag": self.flag,
         }
 
 
@@ -83,7 +89,14 @@ def fieller_line(d: float, b1: float, v00: float, v01: float, v11: float, s2_obs
     A x² + B x + C ≤ 0 with A = b₁² − t²v11, B = −2(d·b₁ + t²v01), C = d² − t²(s2_obs + v00).
     A > 0 gives a finite interval; A < 0 the outside of the roots (two pieces) or every x;
     A = 0 a half line. Returns (kind, pieces).
+
+    For a very large |d| (beyond 1e100) the inequality is solved for x/|d| and the roots scaled
+    back, so d² never overflows.
     """
+    if abs(d) > 1e100 and math.isfinite(d):
+        sc = abs(d)
+        kind, pieces = fieller_line(d / sc, b1, v00 / sc / sc, v01 / sc, v11, s2_obs / sc / sc, tq)
+        return kind, tuple((None if lo is None else lo * sc, None if hi is None else hi * sc) for lo, hi in pieces)
     q = tq * tq
     a = b1 * b1 - q * v11
     b = -2.0 * (d * b1 + q * v01)
@@ -131,9 +144,14 @@ def _closed_rows(model: HandedModel, ys: np.ndarray, m: int, tq: float, user_w: 
         kind, pieces = fieller_line(d, b1, v00, v01, v11, s2_obs, tq)
         x_hat = d / b1 if b1 != 0 else None
         s_x0 = None
-        if x_hat is not None:
+        if x_hat is not None and abs(x_hat) <= 1e100:
             var = s2_obs + v00 + 2.0 * v01 * x_hat + v11 * x_hat * x_hat
             s_x0 = math.sqrt(max(var, 0.0)) / abs(b1)
+        elif x_hat is not None and math.isfinite(x_hat):  # scaled, so that x̂² cannot overflow
+            sc = abs(x_hat)
+            u = x_hat / sc
+            var = (s2_obs / sc + v00 / sc) / sc + 2.0 * v01 * u / sc + v11 * u * u
+            s_x0 = sc * math.sqrt(max(var, 0.0)) / abs(b1)
         note = None
         if kind != "finite":
             note = (f"g = {g:.3g} ≥ 1: the slope is not clearly different from 0 at this level, so the "
@@ -327,11 +345,26 @@ def inverse_predict(model: HandedModel, y: np.ndarray, *, replicates: int = 1,
         if problem:
             raise DataError(problem.replace(" of those used", "") + "; the model's response transform needs them")
     tq = t_ppf(0.5 + level / 2, model.df_resid)
-    if method == "auto" and model.is_line:
-        return _closed_rows(model, ys, replicates, tq, user_w)
-    out = []
-    for k, y0 in enumerate(ys):
-        row_cov = {name: np.asarray(v)[k:k + 1] for name, v in covs.items()}
-        w = None if user_w is None else float(user_w[k])
-        out.append(_numeric_row(model, float(y0), replicates, tq, row_cov, w))
+    with np.errstate(all="ignore"):
+        if method == "auto" and model.is_line:
+            return [_checked(r) for r in _closed_rows(model, ys, replicates, tq, user_w)]
+        out = []
+        for k, y0 in enumerate(ys):
+            row_cov = {name: np.asarray(v)[k:k + 1] for name, v in covs.items()}
+            w = None if user_w is None else float(user_w[k])
+            out.append(_checked(_numeric_row(model, float(y0), replicates, tq, row_cov, w)))
     return out
+
+
+def _checked(r: InverseResult) -> InverseResult:
+    """The result, or an 'overflow' result when one of its numbers left the floating-point range
+    (a null end must only ever mean an open side)."""
+    import dataclasses
+
+    numbers = [r.x, r.s_x0, *(v for piece in r.pieces for v in piece)]
+    if all(v is None or math.isfinite(v) for v in numbers):
+        return r
+    note = ("the x that fits this response lies beyond the floating-point range (about 1.8e308): no number"
+            + (f"; {r.note}" if r.note else ""))
+    return dataclasses.replace(r, x=None, interval="overflow", low=None, high=None, pieces=(), s_x0=None,
+                               outside_range=None, note=note, flag="overflow")

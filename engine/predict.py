@@ -7,6 +7,11 @@ original scale the median is g⁻¹(ẑ₀); the mean is Duan's smearing estimat
 (Duan, JASA 78:605, 1983). Interval ends are mapped through g⁻¹ (monotone), so the
 prediction interval keeps its coverage and the confidence interval becomes one for the
 median. Rows are rebuilt from the spec's raw terms (``predict_terms``): no formula is evaluated.
+
+No number is given where the model gives none: where ẑ₀ lies outside the values g can take
+(past the pole of 1/y, below 0 for √y) the row's original-scale numbers are null and its
+``flag`` says why; where a back-transformed value over- or underflows floating point (e^ẑ far
+outside the data) likewise — never a 0 or an infinity passed off as a result.
 """
 
 from __future__ import annotations
@@ -30,8 +35,11 @@ if TYPE_CHECKING:
 __all__ = [
     "ForwardPrediction",
     "NewInputs",
+    "FLAGS",
     "back_interval",
     "check_level",
+    "in_image",
+    "lost_to_range",
     "new_inputs",
     "predict_forward",
     "term_matrix",
@@ -73,6 +81,34 @@ def weight_at(model: HandedModel, zhat: np.ndarray, user_w: np.ndarray | None) -
     if user_w is not None:
         w = w * user_w
     return w
+
+
+FLAGS = ("no back-transform", "overflow", "underflow", "no smearing mean")
+"""Values of a row's ``flag``: the first three leave every original-scale number of the row null."""
+
+
+def in_image(tr: Transform, z: np.ndarray, y_sign: int = 1) -> np.ndarray:
+    """True where g⁻¹(z) is defined: z inside the image of g over the data's y (an edge counts
+    when y is finite there, e.g. z = 0 for √y; never the pole of 1/y)."""
+    z = np.asarray(z, dtype=float)
+    z_lo, z_hi, y_lo, y_hi = _z_limits(tr, y_sign)
+    above = (z >= z_lo) if math.isfinite(y_lo) and math.isfinite(z_lo) else (z > z_lo)
+    below = (z <= z_hi) if math.isfinite(y_hi) and math.isfinite(z_hi) else (z < z_hi)
+    return np.isfinite(z) & above & below
+
+
+def lost_to_range(tr: Transform, z: np.ndarray, y: np.ndarray, y_sign: int = 1) -> tuple[np.ndarray, np.ndarray]:
+    """(overflow, underflow) where y = g⁻¹(z) left floating point: z is finite and strictly
+    inside the image of g, yet y is ±inf, or (under a transform) 0 or subnormal."""
+    z = np.asarray(z, dtype=float)
+    y = np.asarray(y, dtype=float)
+    if tr.kind == "identity":
+        return np.isfinite(z) & np.isinf(y), np.zeros(z.shape, dtype=bool)
+    z_lo, z_hi, _, _ = _z_limits(tr, y_sign)
+    strictly = np.isfinite(z) & (z > z_lo) & (z < z_hi)
+    over = strictly & np.isinf(y)
+    under = strictly & np.isfinite(y) & (np.abs(y) < np.finfo(float).tiny)
+    return over, under
 
 
 def _z_limits(tr: Transform, y_sign: int) -> tuple[float, float, float, float]:
@@ -214,6 +250,8 @@ class ForwardPrediction:
     """Per-row note (unbounded ends, back-transform problems), or None."""
     ci_of: str
     """'mean' or 'median' — what the confidence interval covers on the original scale."""
+    flags: tuple[str | None, ...] = ()
+    """Per row: None, or why a number is missing (one of :data:`FLAGS`)."""
 
     def rows(self, covs: dict[str, list] | None = None) -> list[dict[str, Any]]:
         """One dict per row with plain floats (non-finite values become None)."""
@@ -228,6 +266,7 @@ class ForwardPrediction:
                 pi_low=_f(self.pi_low[i]), pi_high=_f(self.pi_high[i]),
                 outside_range=bool(self.outside_range[i]),
                 z_fit=_f(self.z_fit[i]), z_se=_f(self.z_se[i]), note=self.notes[i],
+                flag=self.flags[i] if self.flags else None,
             )
             out.append(row)
         return out
@@ -253,7 +292,8 @@ def _t_values(model: HandedModel, x: np.ndarray, column: str) -> np.ndarray:
 
 
 def smear_mean(model: HandedModel, zhat: np.ndarray, w0: np.ndarray) -> np.ndarray:
-    """Duan's smearing mean per row; NaN where some smeared value leaves the range of g⁻¹."""
+    """Duan's smearing mean per row; NaN where some smeared value leaves the range of g⁻¹
+    (for 1/y: crosses its pole)."""
     r = model.residuals
     tr = model.response
     if zhat.shape[0] == 0:
@@ -267,7 +307,8 @@ def smear_mean(model: HandedModel, zhat: np.ndarray, w0: np.ndarray) -> np.ndarr
     with np.errstate(all="ignore"):
         for s in range(0, zhat.shape[0], step):
             z = zhat[s:s + step, None] + r[None, :] / np.sqrt(w0[s:s + step, None])
-            out[s:s + step] = np.mean(model.response.inverse(z), axis=1)  # NaN propagates
+            vals = np.where(in_image(tr, z, model.y_sign), model.response.inverse(z), np.nan)
+            out[s:s + step] = np.mean(vals, axis=1)  # NaN propagates
     return out
 
 
@@ -285,37 +326,84 @@ def predict_forward(model: HandedModel, x: np.ndarray, covs: dict[str, np.ndarra
         if cov.name not in covs:
             raise DataError(f"covariate {cov.name!r} is needed for predictions; add the column to the table")
     t = _t_values(model, x, model.predictor_name)
-    z = predict_terms(model.terms, model.beta, t, covs)
-    xm = term_matrix(model.terms, t, covs)
-    var_mean = np.einsum("ij,jk,ik->i", xm, model.cov, xm)
-    se = np.sqrt(np.clip(var_mean, 0.0, None))
-    w0 = weight_at(model, z, user_w)
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(all="ignore"):
+        z = predict_terms(model.terms, model.beta, t, covs)
+        xm = term_matrix(model.terms, t, covs)
+        var_mean = np.einsum("ij,jk,ik->i", xm, model.cov, xm)
+        se = np.sqrt(np.clip(var_mean, 0.0, None))
+        w0 = weight_at(model, z, user_w)
         se_obs = np.sqrt(model.sigma**2 / w0 + se**2)
     tq = t_ppf(0.5 + level / 2, model.df_resid)
     tr = model.response
-    ci_lo, ci_hi = back_interval(tr, z - tq * se, z + tq * se, model.y_sign)
-    pi_lo, pi_hi = back_interval(tr, z - tq * se_obs, z + tq * se_obs, model.y_sign)
     with np.errstate(all="ignore"):
-        median = np.asarray(tr.inverse(z), dtype=float)
+        ends = {"ci": (z - tq * se, z + tq * se), "pi": (z - tq * se_obs, z + tq * se_obs)}
+    ci_lo, ci_hi = back_interval(tr, *ends["ci"], model.y_sign)
+    pi_lo, pi_hi = back_interval(tr, *ends["pi"], model.y_sign)
+    defined = in_image(tr, z, model.y_sign)
+    with np.errstate(all="ignore"):
+        median = np.where(defined, np.asarray(tr.inverse(z), dtype=float), np.nan)
     mean = median.copy() if tr.kind == "identity" else smear_mean(model, z, w0)
+    # over- and underflow: the point, the smearing mean (its "z" is ẑ) and each interval end
+    over, under = lost_to_range(tr, z, median, model.y_sign)
+    checks = [(z, mean)]
+    with np.errstate(all="ignore"):
+        checks += [(e, np.asarray(tr.inverse(e), dtype=float)) for e in (*ends["ci"], *ends["pi"])]
+    for zs, ys in checks:
+        o, u = lost_to_range(tr, zs, ys, model.y_sign)
+        over |= o & defined
+        under |= u & defined
+    over |= ~np.isfinite(z) | ~np.isfinite(se)
     no_w_column = model.user_weights is not None and user_w is None
     notes: list[str | None] = []
+    flags: list[str | None] = []
+    blank = np.zeros(x.shape[0], dtype=bool)
     for i in range(x.shape[0]):
         parts = []
-        if not np.isfinite(median[i]):
-            parts.append(f"ẑ = {z[i]:.6g} lies outside the range of {tr.short('y')}: no back-transform")
+        flag = None
+        if over[i] or (not np.isfinite(z[i])):
+            flag = "overflow"
+            parts.append("a value here exceeds the floating-point range (about 1.8e308): no number"
+                         + (f" (ẑ = {z[i]:.6g})" if np.isfinite(z[i]) else ""))
+        elif not defined[i]:
+            flag = "no back-transform"
+            parts.append(f"ẑ = {z[i]:.6g} is {_beyond(tr, model.y_sign)}: the model gives no "
+                         f"{model.response_name!r} here")
+        elif under[i]:
+            flag = "underflow"
+            parts.append(f"ẑ = {z[i]:.6g} puts a value below the smallest normal float (about 2.2e-308): "
+                         "no number")
         elif not np.isfinite(mean[i]):
+            flag = "no smearing mean"
             parts.append("smearing undefined: some smeared values leave the range of the back-transform")
-        if np.isinf(pi_lo[i]) or np.isinf(pi_hi[i]) or np.isinf(ci_lo[i]) or np.isinf(ci_hi[i]):
+        if flag in ("overflow", "no back-transform", "underflow"):
+            blank[i] = True
+        elif np.isinf(pi_lo[i]) or np.isinf(pi_hi[i]) or np.isinf(ci_lo[i]) or np.isinf(ci_hi[i]):
             parts.append("an interval end is open (null): it runs to the edge of the response range")
         if no_w_column:
             parts.append(f"no {model.user_weights!r} column: a new observation is given weight 1")
-        if not np.isfinite(w0[i]) or w0[i] <= 0:
+        if not blank[i] and (not np.isfinite(w0[i]) or w0[i] <= 0):
             parts.append("the weight at this point is undefined (fitted mean 0): no prediction interval")
         notes.append("; ".join(parts) or None)
+        flags.append(flag)
+    if blank.any():
+        mean, median, ci_lo, ci_hi, pi_lo, pi_hi = (np.where(blank, np.nan, v)
+                                                    for v in (mean, median, ci_lo, ci_hi, pi_lo, pi_hi))
     return ForwardPrediction(
         x=x, z_fit=z, z_se=se, fit=mean, median=median, ci_low=ci_lo, ci_high=ci_hi,
         pi_low=pi_lo, pi_high=pi_hi, outside_range=outside(model, x), level=level,
-        notes=tuple(notes), ci_of="mean" if tr.kind == "identity" else "median",
+        notes=tuple(notes), ci_of="mean" if tr.kind == "identity" else "median", flags=tuple(flags),
     )
+
+
+def _beyond(tr: Transform, y_sign: int) -> str:
+    """Where an ẑ without a back-transform lies, in words."""
+    if tr.kind == "reciprocal":
+        return "past the pole of 1/y (1/y = 0, where y is infinite)"
+    if tr.kind == "sqrt":
+        return "below 0, which √y never is"
+    if tr.kind == "boxcox":
+        lam = float(tr.param)  # type: ignore[arg-type]
+        edge = -1.0 / lam
+        side = "below" if lam > 0 else "above"
+        return f"{side} {edge:.6g}, which {tr.short('y')} never is"
+    return f"outside the range of {tr.short('y')}"

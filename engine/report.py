@@ -3,11 +3,17 @@
 It lists slope, intercept, r², the residual sum of squares, the residuals by level, the
 lack-of-fit tests, the path of remedies with reasons, DL = 3.3σ/S and QL = 10σ/S for a
 straight line (ICH Q2(R2)), two plain ASCII charts and the cautions.
+
+Names and texts that come from the data (columns, categories, the file name, reasons that quote
+them) never become Markdown: names are code spans fenced longer than any backtick run inside
+them, with control characters escaped, and a text with a character Markdown or HTML would act on
+is shown as a code span too.
 """
 
 from __future__ import annotations
 
 import math
+import re
 from collections.abc import Sequence
 from typing import Any
 
@@ -87,7 +93,7 @@ def _p(p: float | None) -> str:
 
 def _test_line(t: dict[str, Any], alpha: float | None = None) -> str:
     if not t.get("testable"):
-        return f"not testable — {t.get('reason')}"
+        return f"not testable — {_free(str(t.get('reason')))}"
     if "f" in t:
         out = f"F = {_n(t['f'])} on {t['df_lack']} and {t['df_pure']} df, p = {_p(t['p'])}"
         if alpha is not None:
@@ -96,7 +102,34 @@ def _test_line(t: dict[str, Any], alpha: float | None = None) -> str:
             out += " (approximate)"
         return out
     df = f" on ({', '.join(_n(d, 4) for d in t.get('df', []))})" if t.get("df") else ""
-    return f"statistic {_n(t['statistic'])}{df}, p = {_p(t['p'])}" + (f"; {t['note']}" if t.get("note") else "")
+    return f"statistic {_n(t['statistic'])}{df}, p = {_p(t['p'])}" + (f"; {_free(t['note'])}" if t.get("note") else "")
+
+
+def _visible(text: str) -> str:
+    """One line: characters that are not printable (newline, NUL, line separators) escaped."""
+    return "".join(c if c.isprintable() else repr(c)[1:-1] for c in str(text))
+
+
+def _code(text: str, *, table: bool = False) -> str:
+    """``text`` as an inline code span that nothing inside it can end (for names from the data)."""
+    s = _visible(text)
+    fence = "`" * (max((len(m) for m in re.findall(r"`+", s)), default=0) + 1)
+    pad = " " if s.startswith("`") or s.endswith("`") or (s.startswith(" ") and s.endswith(" ")) or not s else ""
+    if table:
+        s = s.replace("|", "\\|")  # GitHub tables split cells at | even inside code spans
+    return f"{fence}{pad}{s}{pad}{fence}"
+
+
+_ACTIVE = re.compile(r"[\\`*_\[\]<|~&$]")
+
+
+def _free(text: str, *, table: bool = False) -> str:
+    """Engine text that may quote names: as it is when Markdown would not act on any of it,
+    else as a code span."""
+    s = str(text)
+    if _ACTIVE.search(s) or any(not c.isprintable() for c in s):
+        return _code(s, table=table)
+    return s
 
 
 def _md_table(header: list[str], rows: list[list[str]]) -> list[str]:
@@ -119,43 +152,45 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     prov = doc["provenance"]
     tests = doc["tests"]
     alpha = tests["alpha"]
-    out: list[str] = [f"# bendwise model hand-off: {doc['node']['label']}", ""]
+    out: list[str] = [f"# bendwise model hand-off: {_code(doc['node']['label'])}", ""]
     out += [f"> {doc['cautions']['use']}", ">", f"> {doc['cautions']['post_search']}", ""]
-    out += [f"Node `{node_id}` · written {doc['created_utc']} by bendwise {doc['tool']['version']} · "
+    out += [f"Node {_code(node_id)} · written {doc['created_utc']} by bendwise {doc['tool']['version']} · "
             f"spec schema {doc['schema_version']}", ""]
 
     # data
     d = prov["data"]
     rows = prov["rows"]
     out += ["## Data", ""]
-    out.append(f"- File: `{d['file']}`" + (f" (SHA-256 `{d['sha256']}`, {d['size_bytes']:,} bytes)" if d["sha256"] else
+    out.append(f"- File: {_code(d['file'])}" + (f" (SHA-256 `{d['sha256']}`, {d['size_bytes']:,} bytes)" if d["sha256"] else
                                             " (read from standard input: no checksum)"))
-    out.append(f"- Response `{y}`, predictor `{x}`"
-               + (f", covariates admitted: {', '.join(f'`{c}`' for c in prov['columns']['covariates'])}"
+    out.append(f"- Response {_code(y)}, predictor {_code(x)}"
+               + (f", covariates admitted: {', '.join(_code(c) for c in prov['columns']['covariates'])}"
                   if prov["columns"]["covariates"] else "")
-               + (f", weights column `{prov['columns']['weights']}`" if prov["columns"]["weights"] else ""))
+               + (f", weights column {_code(prov['columns']['weights'])}" if prov["columns"]["weights"] else ""))
     out.append(f"- Rows read {rows['read']}, used {rows['used']}, dropped {rows['dropped']}")
-    for line in study.report.lines():
-        out.append(f"  - {line}")
+    for drop in rows["drops"]:
+        shown = ", ".join(str(r) for r in drop["rows"]) + (", …" if drop["count"] > len(drop["rows"]) else "")
+        out.append(f"  - {drop['count']} row(s) with {_free(drop['reason'])} {_code(drop['column'])}"
+                   + (f" (rows {shown})" if drop["rows"] else ""))
     g = prov["grouping"]
-    out.append(f"- Levels of `{x}`: {g['levels']}" + (
-        f"; settings within {g['tolerance_text']} grouped together"
+    out.append(f"- Levels of {_code(x)}: {g['levels']}" + (
+        f"; settings within {_code(g['tolerance_text'])} grouped together"
         + (" — tests are approximate" if g["merged"] else " (no values merged)") if g["rule"] == "tolerance" else
         " (exact values)"))
     cal = doc["calibration"]
-    out.append(f"- Calibrated range of `{x}`: {_n(cal['x_min'])} to {_n(cal['x_max'])}")
+    out.append(f"- Calibrated range of {_code(x)}: {_n(cal['x_min'])} to {_n(cal['x_max'])}")
     out.append("")
 
     # model and fit
     m = doc["model"]
-    out += ["## Model", "", f"- {doc['node']['label']}", f"- Formula (for reading): `{m['formula_text']}`"]
+    out += ["## Model", "", f"- {_code(doc['node']['label'])}", f"- Formula (for reading): {_code(m['formula_text'])}"]
     w = m["weights"]
     if w["rule"] != "none":
         out.append(f"- Weights: {spec.weights.describe() if spec.weights else w['rule']}")
     out.append("")
-    coef_rows = [[f"`{c['name']}`", _n(c["estimate"], 8), _n(c["se"], 4), _p(c["p"])] for c in fit["coefficients"]]
+    coef_rows = [[_code(c["name"], table=True), _n(c["estimate"], 8), _n(c["se"], 4), _p(c["p"])] for c in fit["coefficients"]]
     out += _md_table(["term", "estimate", "standard error", "p"], coef_rows)
-    scale = "" if spec.response.kind == "identity" else f" (on the scale of {spec.response.short(y)})"
+    scale = "" if spec.response.kind == "identity" else f" (on the scale of {_code(spec.response.short(y))})"
     out += ["", f"- Residual SD σ̂ = {_n(fit['sigma'], 6)} on {fit['df_resid']} df{scale}; n = {fit['n']}",
             f"- r² = {fit['r2']:.6f}; adjusted r² = {fit['r2_adj']:.6f}",
             f"- Residual sum of squares = {_n(fit['sse'], 8)}{' (weighted)' if w['rule'] != 'none' or w['user_column'] else ''}"]
@@ -172,16 +207,17 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
 
     # tests
     out += ["## Lack of fit", ""]
-    out.append(f"- This model, {tests['lack_of_fit'].get('kind', 'lack of fit')}: {_test_line(tests['lack_of_fit'], alpha)}")
+    out.append(f"- This model, {_free(tests['lack_of_fit'].get('kind', 'lack of fit'))}: "
+               f"{_test_line(tests['lack_of_fit'], alpha)}")
     if tests["lack_of_fit_pure"].get("testable") and tests["lack_of_fit_pure"] != tests["lack_of_fit"]:
         out.append(f"- This model, classical pure error: {_test_line(tests['lack_of_fit_pure'], alpha)}")
     out.append(f"- Equal spread of this model's residuals across levels: {_test_line(tests['node_spread'])}")
     sl = tests["straight_line"]
-    out.append(f"- Straight line {y} ~ {x}: {_test_line(sl['lack_of_fit'], alpha)}")
+    out.append(f"- Straight line {_code(f'{y} ~ {x}')}: {_test_line(sl['lack_of_fit'], alpha)}")
     out.append(f"- Straight line, curvature (Mandel): {_test_line(sl['mandel'])}")
-    out.append(f"- Straight line, equal spread of {y} across levels: {_test_line(sl['spread'])}")
+    out.append(f"- Straight line, equal spread of {_code(y)} across levels: {_test_line(sl['spread'])}")
     for wtext in tests["warnings"]:
-        out.append(f"- Note: {wtext}")
+        out.append(f"- Note: {_free(wtext)}")
     out.append("")
 
     # residual table by level
@@ -197,26 +233,36 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     elif spec.response.kind != "identity" or w["rule"] != "none":
         out += [f"Residuals on the fitted scale{' times √w' if w['rule'] != 'none' else ''}; fitted values are "
                 "back-transformed medians.", ""]
+    if spec.response.kind != "identity":  # past the pole of 1/y (or outside g's range): no fitted y
+        from .predict import in_image
+
+        with np.errstate(all="ignore"):
+            zf = np.asarray(spec.response.forward(fitted_lv), dtype=float)
+        fitted_lv = np.where(in_image(spec.response, zf, -1 if cal["y_max"] < 0 else 1), fitted_lv, np.nan)
     lv_rows = []
     for i, lv in enumerate(cal["levels"][:60]):
         lv_rows.append([_n(lv["x"], 6), str(lv["n"]), _n(lv["mean_y"], 6), _n(float(fitted_lv[i]), 6),
                         _n(float(lr.level_mean[i]), 4), _n(float(lr.level_sd[i]), 4)])
-    out += _md_table([x, "n", "mean y", "fitted", "mean residual", "residual SD"], lv_rows)
+    out += _md_table([_code(x, table=True), "n", "mean y", "fitted", "mean residual", "residual SD"], lv_rows)
     if len(cal["levels"]) > 60:
         out.append(f"\n… {len(cal['levels']) - 60} more levels (see spec.json)")
+    if not np.isfinite(fitted_lv).all():
+        out.append(f"\nA fitted value shown as — lies outside the values {_code(spec.response.short(y))} can take "
+                   "(for 1/y: past its pole): the model gives no value there.")
     out.append("")
 
     # path
     out += ["## How this model was reached", ""]
-    out.append(f"1. `root` — straight line {y} ~ {x}")
+    out.append(f"1. `root` — straight line {_code(f'{y} ~ {x}')}")
     for i, step in enumerate(tests["path"], start=2):
         nested = step["nested"]
         ntext = _test_line(nested) if nested and nested.get("testable") else (
-            nested.get("reason") if nested else "—")
-        out.append(f"{i}. `{step['node']}` — {step['move']} → {step['label']} (against its parent: {ntext})")
+            _free(nested.get("reason")) if nested else "—")
+        out.append(f"{i}. {_code(step['node'])} — {_code(step['move'])} → {_code(step['label'])} "
+                   f"(against its parent: {ntext})")
     sug = doc["suggestion"]
-    out += ["", f"Suggestion rule `{sug['rule']}` at α = {sug['alpha']:g}: "
-            + (f"node `{sug['node']}` — {sug['reason']}" if sug["node"] else f"no node — {sug['reason']}"),
+    out += ["", f"Suggestion rule {_code(sug['rule'])} at α = {sug['alpha']:g}: "
+            + (f"node {_code(sug['node'])} — {_free(sug['reason'])}" if sug["node"] else f"no node — {_free(sug['reason'])}"),
             "", ("This export is the suggested node." if sug["exported_is_suggested"]
                  else "This export is NOT the suggested node: it was chosen by hand."), ""]
 
@@ -225,8 +271,8 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     if is_line and w["rule"] == "none" and not w["user_column"]:
         s, b1 = fit["sigma"], fit["coefficients"][1]["estimate"]
         out += [f"With σ = the residual SD ({_n(s, 5)}) and S = the slope ({_n(b1, 5)}):", "",
-                f"- DL = 3.3σ/S = {_n(3.3 * s / abs(b1), 5)} (units of {x})",
-                f"- QL = 10σ/S = {_n(10 * s / abs(b1), 5)} (units of {x})", "",
+                f"- DL = 3.3σ/S = {_n(3.3 * s / abs(b1), 5)} (units of {_code(x)})",
+                f"- QL = 10σ/S = {_n(10 * s / abs(b1), 5)} (units of {_code(x)})", "",
                 "σ may instead be the SD of blanks or of intercepts; the laboratory's procedure decides which."]
     else:
         out.append("Not given: DL = 3.3σ/S and QL = 10σ/S assume a straight line in the original units with a "
@@ -252,10 +298,10 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     with np.errstate(all="ignore"):
         zc = predict_terms(score.terms, beta, np.asarray(spec.predictor.forward(grid_x), dtype=float), covs_ref)
         yc = np.asarray(spec.response.inverse(zc), dtype=float)
-    out += ["## Charts", "", f"Data (o) and fitted curve (*) on the original scale, {y} against {x}"
+    out += ["## Charts", "", f"Data (o) and fitted curve (*) on the original scale, {_code(y)} against {_code(x)}"
             + (" (curve at the reference category / mean covariate)" if covs_ref else "") + ":", "", "```"]
     out += text_chart([(xs[idx], ys[idx], "o"), (grid_x, yc, "*")])
-    out += ["```", "", "Residuals (o) and their level means (#) against " + x + ", fitted scale:", "", "```"]
+    out += ["```", "", "Residuals (o) and their level means (#) against " + _code(x) + ", fitted scale:", "", "```"]
     out += text_chart([(lr.x, lr.residual, "o"), (lr.level_x, lr.level_mean, "#")], zero_line=True)
     out += ["```", ""]
 

@@ -3,26 +3,43 @@
 The script is bendwise's own output, so it may carry a formula for statsmodels; the formula is
 generated here from the node's structured fields, together with the statsmodels name of every
 coefficient in the spec's order, so the script can compare them one by one.
+
+Nothing taken from the data is spliced into the script's code: column names, category labels,
+the node's label and the data path enter only as ``repr`` literals, and the formula names the
+columns by aliases of our own (``COLUMNS`` maps each column to its alias), so no column name —
+quotes, newlines, keywords or not — ever reaches Python or the formula parser as code.
 """
 
 from __future__ import annotations
 
+import dataclasses
 from typing import Any
 
 from .remedies import RemedyTree
 from .scoring import Term
 from .spec import ModelSpec, quote_name
 
-__all__ = ["script_text", "statsmodels_names"]
+__all__ = ["script_text", "statsmodels_names", "column_aliases"]
 
 
-def statsmodels_names(spec: ModelSpec, terms: tuple[Term, ...], x: str, kinds: dict[str, str]) -> list[str]:
-    """Names statsmodels gives the coefficients of ``spec.formula`` (in the order of ``terms``)."""
-    tx = spec.predictor.formula(quote_name(x))
+def column_aliases(y: str, x: str, covariates: list[str]) -> dict[str, str]:
+    """Plain identifiers the reproduction script uses for the columns in its formula."""
+    out = {y: "resp", x: "pred"}
+    for i, c in enumerate(covariates, start=1):
+        out[c] = f"cov{i}"
+    return out
+
+
+def statsmodels_names(spec: ModelSpec, terms: tuple[Term, ...], x: str, kinds: dict[str, str],
+                      alias: dict[str, str] | None = None) -> list[str]:
+    """Names statsmodels gives the coefficients of ``spec.formula`` (in the order of ``terms``);
+    with ``alias``, of the formula written on the aliased columns."""
+    name = (lambda c: alias[c]) if alias is not None else quote_name
+    tx = spec.predictor.formula(name(x))
     base = tx if spec.predictor.kind == "identity" else f"({tx[2:-1] if tx.startswith('I(') else tx})"
 
     def cov(c: str) -> str:
-        q = quote_name(c)
+        q = name(c)
         return f"C({q})" if kinds.get(c) == "categorical" else q
 
     out = []
@@ -49,6 +66,46 @@ _BODY = r'''
 def fail(message, status):
     print(f"reproduce: {message}", file=sys.stderr)
     sys.exit(status)
+
+
+def one_line(text):
+    """Text for one line of output: characters that are not printable (newlines, NUL) escaped."""
+    return "".join(c if c.isprintable() else repr(c)[1:-1] for c in str(text))
+
+
+def spec_fields(spec, spec_path):
+    """The numbers this script compares, checked: a spec that lacks them is unreadable (exit 2)."""
+    def number(value, where, positive=False):
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or value != value \
+                or value in (float("inf"), float("-inf")) or (positive and value <= 0):
+            fail(f"spec {spec_path.name}: {where} must be a finite{' positive' if positive else ''} number; "
+                 "export the model again", 2)
+        return float(value)
+
+    def field(*keys):
+        value = spec
+        for depth, key in enumerate(keys):
+            if not isinstance(value, dict) or key not in value:
+                fail(f"spec {spec_path.name}: field {'.'.join(keys[:depth + 1])} is missing; export the model "
+                     "again", 2)
+            value = value[key]
+        return value
+
+    n_used = field("provenance", "rows", "used")
+    if isinstance(n_used, bool) or not isinstance(n_used, int) or n_used < 0:
+        fail(f"spec {spec_path.name}: provenance.rows.used must be a whole number; export the model again", 2)
+    coefs = field("fit", "coefficients")
+    if not isinstance(coefs, list) or not coefs:
+        fail(f"spec {spec_path.name}: fit.coefficients must be a non-empty list; export the model again", 2)
+    checked = []
+    for i, entry in enumerate(coefs):
+        if not isinstance(entry, dict):
+            fail(f"spec {spec_path.name}: fit.coefficients[{i}] must be an object; export the model again", 2)
+        se = entry.get("se")
+        checked.append({"estimate": number(entry.get("estimate"), f"fit.coefficients[{i}].estimate"),
+                        "se": 0.0 if se is None else abs(number(se, f"fit.coefficients[{i}].se"))})
+    sigma = number(field("fit", "sigma"), "fit.sigma", positive=True)
+    return n_used, checked, sigma
 
 
 def data_files(path):
@@ -102,6 +159,8 @@ def read_table(files):
         frame = pd.read_excel(path, sheet_name=READING["sheet"] if READING["sheet"] is not None else 0)
     elif fmt == "jsonl":
         frame = pd.read_json(path, lines=True)
+    elif fmt == "json":  # one JSON array of objects
+        frame = pd.read_json(path, orient="records")
     else:
         options = dict(sep=READING["delimiter"] or ",", decimal=READING["decimal"], skipinitialspace=True)
         try:
@@ -166,8 +225,9 @@ def main():
     spec_path = Path(args.spec)
     try:
         spec = json.loads(spec_path.read_text(encoding="utf-8"))
-    except (OSError, ValueError) as exc:
+    except (OSError, ValueError, RecursionError) as exc:
         fail(f"cannot read the spec {spec_path}: {exc}", 2)
+    n_spec, coefs, spec_sigma = spec_fields(spec, spec_path)
     if args.data:
         data_path = Path(args.data)
     elif DATA_FILE is not None:
@@ -214,7 +274,6 @@ def main():
         if unknown:
             fail(f"MISMATCH: column {col!r} has categories {unknown} that the spec does not list", 1)
         used[col] = pd.Categorical(values, categories=levels)
-    n_spec = spec["provenance"]["rows"]["used"]
     if len(used) != n_spec:
         fail(f"MISMATCH: {len(used)} usable rows here, {n_spec} in the spec", 1)
 
@@ -231,31 +290,33 @@ def main():
         w = w_level[codes]
         weights = w if weights is None else w * weights
 
+    # the formula names the columns by aliases (COLUMNS): no column name is ever parsed as code
+    used = used.rename(columns=COLUMNS)
     if weights is None:
         result = smf.ols(FORMULA, data=used).fit()
     else:
         result = smf.wls(FORMULA, data=used, weights=weights).fit()
-    print(f"reproduce: refitted {FORMULA} on {len(used)} rows"
+    print(f"reproduce: refitted {one_line(FORMULA_TEXT)} on {len(used)} rows"
           + ("" if weights is None else " (weighted)"))
 
-    coefs = spec["fit"]["coefficients"]
     if len(coefs) != len(PARAMETERS):
         fail(f"MISMATCH: the spec lists {len(coefs)} coefficients, this script expects {len(PARAMETERS)}", 1)
     bad = []
-    width = max(len(p) for p in PARAMETERS)
+    shown = [one_line(label) for label in PARAMETER_LABELS]
+    width = max(len(p) for p in shown)
     print(f"  {'coefficient'.ljust(width)}  {'spec':>22}  {'refit':>22}  ok")
-    for name, entry in zip(PARAMETERS, coefs, strict=True):
+    for name, label, entry in zip(PARAMETERS, shown, coefs, strict=True):
         if name not in result.params.index:
-            fail(f"MISMATCH: statsmodels has no coefficient {name!r} (it has {list(result.params.index)})", 1)
-        ours, theirs = float(entry["estimate"]), float(result.params[name])
-        tol = max(REL_TOL * abs(ours), SE_FLOOR * float(entry["se"] or 0.0))
+            fail(f"MISMATCH: statsmodels has no coefficient {label!r} (it has {list(result.params.index)})", 1)
+        ours, theirs = entry["estimate"], float(result.params[name])
+        tol = max(REL_TOL * abs(ours), SE_FLOOR * entry["se"])
         ok = abs(ours - theirs) <= tol
-        print(f"  {name.ljust(width)}  {ours:>22.15g}  {theirs:>22.15g}  {'yes' if ok else 'NO'}")
+        print(f"  {label.ljust(width)}  {ours:>22.15g}  {theirs:>22.15g}  {'yes' if ok else 'NO'}")
         if not ok:
-            bad.append(f"{name}: spec {ours!r}, refit {theirs!r} (difference {abs(ours - theirs):.3g} > {tol:.3g})")
+            bad.append(f"{label}: spec {ours!r}, refit {theirs!r} (difference {abs(ours - theirs):.3g} > {tol:.3g})")
     sigma = float(np.sqrt(result.scale))
-    if abs(sigma - spec["fit"]["sigma"]) > REL_TOL * spec["fit"]["sigma"]:
-        bad.append(f"sigma: spec {spec['fit']['sigma']!r}, refit {sigma!r}")
+    if abs(sigma - spec_sigma) > REL_TOL * spec_sigma:
+        bad.append(f"sigma: spec {spec_sigma!r}, refit {sigma!r}")
     if bad:
         fail("MISMATCH: " + "; ".join(bad), 1)
     print(f"reproduce: OK: all {len(coefs)} coefficients and sigma agree with {spec_path.name}")
@@ -278,14 +339,19 @@ def script_text(tree: RemedyTree, node_id: str, doc: dict[str, Any], data_rel: s
     used = {c.name: study.covariate(c.name) for c in study.covariates if c.name in spec.covariates}
     admitted = {c.name: c.kind for c in study.covariates}
     cats = {n: list(c.levels) for n, c in used.items() if c.kind == "categorical"}
-    formula = spec.formula(study.y_name, study.x_name, kinds)
-    params = statsmodels_names(spec, score.terms, study.x_name, kinds)
+    alias = column_aliases(study.y_name, study.x_name, list(admitted))
+    aliased = dataclasses.replace(spec, covariates=tuple(alias[c] for c in spec.covariates),
+                                  interactions=tuple(alias[c] for c in spec.interactions))
+    alias_kinds = {alias[c]: k for c, k in kinds.items()}
+    formula = aliased.formula(alias[study.y_name], alias[study.x_name], alias_kinds)
+    params = statsmodels_names(spec, score.terms, study.x_name, kinds, alias)
+    labels = statsmodels_names(spec, score.terms, study.x_name, kinds)
     version = doc["tool"]["version"]
     theta = None if spec.weights is None else spec.weights.theta
     head = f'''#!/usr/bin/env python3
 """Refit the model in spec.json from its data file and compare every coefficient.
 
-Written by bendwise {version} at {doc["created_utc"]} for node {node_id} ({doc["node"]["label"]}).
+Written by bendwise for one node of its remedy tree (NODE and NODE_LABEL below say which).
 Needs only pandas, numpy and statsmodels:
 
     python reproduce.py                  # the data file where it was at export time
@@ -306,6 +372,10 @@ from pathlib import Path
 np = pd = smf = None  # numpy, pandas and statsmodels: imported once the files are found
 
 HERE = Path(__file__).resolve().parent
+WRITTEN_BY = {"bendwise " + str(version)!r}
+WRITTEN_AT = {str(doc["created_utc"])!r}
+NODE = {str(node_id)!r}
+NODE_LABEL = {str(doc["node"]["label"])!r}
 DATA_FILE = {data_rel!r}  # relative to this script (None: read from standard input)
 DATA_SHA256 = {doc["provenance"]["data"]["sha256"]!r}
 READING = {doc["provenance"]["data"]["reading"]!r}
@@ -317,8 +387,11 @@ USER_WEIGHTS = {study.weights_name!r}
 RESPONSE_TRANSFORM = {(spec.response.kind, spec.response.param)!r}
 WEIGHT_THETA = {theta!r}  # w = |level mean of the transformed response|^(-2 theta); None: no such weights
 TOLERANCE = {study.tolerance!r}  # settings closer than this form one level (None: exact values)
-FORMULA = {formula!r}
-PARAMETERS = {params!r}  # statsmodels names, in the order of the spec's coefficients
+COLUMNS = {alias!r}  # column → the alias the formula uses
+FORMULA = {formula!r}  # on the aliases
+FORMULA_TEXT = {spec.formula(study.y_name, study.x_name, kinds)!r}  # the same on the column names, for reading
+PARAMETERS = {params!r}  # statsmodels names (on the aliases), in the order of the spec's coefficients
+PARAMETER_LABELS = {labels!r}  # the same on the column names, for reading
 REL_TOL = 1e-8
 SE_FLOOR = 1e-6
 '''

@@ -224,6 +224,33 @@ def _transform(block: dict, where: str, kinds: tuple[str, ...]) -> Transform:
     return Transform(kind)  # type: ignore[arg-type]
 
 
+PSD_TOL = 1e-8
+"""Smallest eigenvalue allowed for the correlation form of a covariance: rounding makes a valid
+one dip at most about 1e-15 below 0; anything below −1e-8 is not a covariance."""
+
+
+def _check_psd(cov: np.ndarray) -> None:
+    """A coefficient covariance must be positive semi-definite: its correlation form (so that
+    coefficients on very different scales weigh alike) has no eigenvalue below −PSD_TOL, and a
+    coefficient with variance 0 covaries with nothing."""
+    sd = np.sqrt(np.diag(cov))
+    zero = sd == 0
+    if zero.any() and (cov[zero, :] != 0).any():
+        raise _fail("fit.covariance", "gives a coefficient variance 0 but a non-zero covariance, so it is not a "
+                    "covariance matrix (not positive semi-definite)")
+    keep = ~zero
+    if keep.sum() < 1:
+        return
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        corr = cov[np.ix_(keep, keep)] / np.outer(sd[keep], sd[keep])
+    if not np.isfinite(corr).all():
+        raise _fail("fit.covariance", "holds values too large to use")
+    low = float(np.linalg.eigvalsh((corr + corr.T) / 2.0).min())
+    if low < -PSD_TOL:
+        raise _fail("fit.covariance", f"is not positive semi-definite (its correlation form has the eigenvalue "
+                    f"{low:.3g}), so it is not a covariance matrix")
+
+
 def validate_spec(doc: Any) -> HandedModel:
     """Check a parsed spec structurally and rebuild its model; raise :class:`SpecError` if unusable.
 
@@ -314,9 +341,15 @@ def validate_spec(doc: Any) -> HandedModel:
         for j, v in enumerate(r):
             cov_m[i, j] = _num(v, f"fit.covariance[{i}][{j}]")  # type: ignore[assignment]
     diag = np.diag(cov_m)
-    if (diag < 0).any() or (np.abs(cov_m - cov_m.T) > 1e-8 * np.sqrt(np.outer(diag, diag))).any():
+    with np.errstate(over="ignore", invalid="ignore"):
+        asym = np.abs(cov_m - cov_m.T) > 1e-8 * np.sqrt(np.outer(diag, diag))
+    if (diag < 0).any() or asym.any():
         raise _fail("fit.covariance", "is not a symmetric matrix with a non-negative diagonal")
+    _check_psd(cov_m)
     sigma = _num(fit.get("sigma"), "fit.sigma", positive=True)
+    assert sigma is not None
+    if not math.isfinite(sigma * sigma):
+        raise _fail("fit.sigma", f"is {sigma:g}: its square overflows, so it cannot be a residual SD")
     df = _int(fit.get("df_resid"), "fit.df_resid", 1)
     n = _int(fit.get("n"), "fit.n", 2)
 

@@ -117,7 +117,7 @@ def choose_engine(path: str, engine: str, memory_cap: int) -> str:
     return "duckdb" if size > memory_cap else "memory"
 
 
-def _source_sql(path: str, decimal: str, delimiter: str | None) -> tuple[str, bool]:
+def _source_sql(path: str, decimal: str, delimiter: str | None, encoding: str | None = None) -> tuple[str, bool]:
     """FROM clause for the files and whether columns arrive as text."""
     files = data_files(path)  # one-line errors for an empty folder, an unmatched glob, a missing file
     p = Path(path)
@@ -130,7 +130,67 @@ def _source_sql(path: str, decimal: str, delimiter: str | None) -> tuple[str, bo
         opts.append(f"delim = {lit(delimiter)}")
     elif decimal == ",":
         opts.append("delim = ';'")
+    if encoding:
+        opts.append(f"encoding = {lit(encoding)}")
     return f"read_csv({lit(pattern)}, {', '.join(opts)})", True
+
+
+def _csv_preflight(path: str, decimal: str, delimiter: str | None) -> tuple[str | None, str | None]:
+    """What the in-memory reader checks before parsing, for CSV files read by DuckDB: an empty
+    file, bytes that are not a text table, a header naming a column twice; and the delimiter
+    and encoding it would use (from the first file's first 64 KiB). Returns (delimiter, encoding)."""
+    from .data import (
+        _decode,
+        _refuse_duplicate_names,
+        _refuse_kind,
+        _sniff_bytes,
+        _sniff_delimiter,
+        _text_header,
+    )
+
+    files = data_files(path)
+    if files[0].suffix.lower() in (".parquet", ".pq"):
+        return delimiter, None
+    name = path if len(files) == 1 else str(files[0])
+    for f in files:
+        if f.stat().st_size == 0:
+            raise DataError(f"{path if len(files) == 1 else f} is empty; check the file")
+    with open(files[0], "rb") as fh:
+        head = fh.read(65536)
+    if not head.strip():
+        raise DataError(f"{name} is empty; check the file")
+    kind = _sniff_bytes(head)
+    if kind != "text":
+        _refuse_kind(kind, name, "")
+    try:
+        head.decode("utf-8")
+        encoding = None
+    except UnicodeDecodeError as exc:
+        # a multi-byte character cut by the sample's end is still UTF-8
+        encoding = None if exc.start >= len(head) - 3 and exc.reason == "unexpected end of data" else "latin-1"
+    sample = _decode(head)
+    sep = delimiter or (None if decimal == "," else _sniff_delimiter(sample, decimal))
+    header = _text_header(sample, sep or ";")
+    if header is not None:
+        _refuse_duplicate_names(name, header)
+    return sep, encoding
+
+
+def _ragged_line(files: list[Path], encoding: str | None, sep: str) -> tuple[Path, int, int, int] | None:
+    """The first record whose field count differs from its file's header: (file, line, header
+    fields, fields). Read only after DuckDB refused a file, to name the line as pandas does."""
+    import csv
+
+    for f in files:
+        with open(f, encoding=encoding or "utf-8", errors="replace", newline="") as fh:
+            reader = csv.reader(fh, delimiter=sep, skipinitialspace=True)
+            header = next(reader, None)
+            if header is None:
+                continue
+            for row in reader:
+                if row and len(row) != len(header):
+                    return f, reader.line_num, len(header), len(row)
+    return None
 
 
 class SqlStudy(Study):
@@ -261,14 +321,14 @@ class SqlStudy(Study):
         hit = self._cache.get(("sample", k, seed))
         if hit is not None:
             return hit
-        cols = ["y", "x", *(q(c.name) for c in self.covariates)]
+        cols = ["y", "x", *(q(self._info["sql_name"][c.name]) for c in self.covariates)]
         sample = "" if self.n <= k else f" USING SAMPLE reservoir({int(k)} ROWS) REPEATABLE ({int(seed)})"
         self._say(f"scanning {self.n:,} rows for a sample of {min(k, self.n):,}")
         res = self.con.execute(f"SELECT {', '.join(cols)} FROM bw_clean{sample}").fetchnumpy()
         self._say("")
         out = {"y": _floats(res["y"]), "x": _floats(res["x"])}
         for c in self.covariates:
-            col = res[c.name]
+            col = res[self._info["sql_name"][c.name]]
             out[c.name] = np.asarray(col).astype(str) if c.kind == "categorical" else _floats(col)
         self._cache[("sample", k, seed)] = out
         return out
@@ -309,8 +369,8 @@ class SqlStudy(Study):
         if not todo:
             return
         info = self._info
-        keys = ["x", *info["cat_cols"]]
-        nums = info["num_cols"]
+        keys = ["x", *info["cat_sql"]]
+        nums = info["num_sql"]
         # Shift each response transform by its value at the mean of y (and covariates by their
         # means, in bw_shifted) so the aggregates never carry a large offset; added back below.
         y_ref = np.array([float(info["y_mean"])])
@@ -326,7 +386,7 @@ class SqlStudy(Study):
         unit_n = np.asarray(res["n"], dtype=float)
         if unit_n.shape[0] != info["unit_n"].shape[0]:
             raise DataError("the data changed between scans (group count differs); run again")
-        bmean = np.column_stack([np.asarray(res[f"b{i}_m"], dtype=float) + info["num_mean"][nums[i]]
+        bmean = np.column_stack([np.asarray(res[f"b{i}_m"], dtype=float) + info["num_mean"][info["num_cols"][i]]
                                  for i in range(nb)]) if nb else np.zeros((unit_n.size, 0))
         bb = np.zeros((unit_n.size, nb, nb))
         for i in range(nb):
@@ -520,8 +580,39 @@ def make_sql_study(
     if weights:
         raise UsageError("--weights is not available with the SQL engine yet; use --engine memory")
     dec = decimal or "."
+    sep, encoding = _csv_preflight(path, dec, delimiter)
+    args = dict(y=y, x=x, covariates=covariates, tolerance=tolerance, decimal=dec, source=source, progress=progress,
+                memory_limit=memory_limit, exact=exact)
+    try:
+        return _make_sql_study(path, delimiter=sep, encoding=encoding, **args)  # type: ignore[arg-type]
+    except duckdb.Error as exc:
+        text = str(exc)
+        if encoding is None and "unicode" in text.lower():
+            try:  # UTF-8 at the start, Latin-1 further on: read as the in-memory engine does
+                return _make_sql_study(path, delimiter=sep, encoding="latin-1", **args)  # type: ignore[arg-type]
+            except duckdb.Error as again:
+                exc, encoding, text = again, "latin-1", str(again)
+        files = data_files(path)
+        if "csv" in text.lower() and files[0].suffix.lower() not in (".parquet", ".pq"):
+            from .data import ragged_message
+
+            hit = _ragged_line(files, encoding, sep or ";")
+            if hit is not None:
+                f, line, want, saw = hit
+                raise DataError(ragged_message(path if len(files) == 1 else str(f),
+                                               f"Expected {want} fields in line {line}, saw {saw}")) from None
+        first = text.strip().splitlines()[0] if text.strip() else type(exc).__name__
+        raise DataError(f"cannot read {path} ({first}); check the file format") from None
+
+
+def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tolerance: str | float | None,
+                    decimal: str, delimiter: str | None, encoding: str | None, source: str,
+                    progress: ProgressFn | None, memory_limit: str | None, exact: bool) -> SqlStudy:
+    import duckdb
+
+    dec = decimal
     tol, rel = parse_tolerance(tolerance)
-    src, as_text = _source_sql(path, dec, delimiter)
+    src, as_text = _source_sql(path, dec, delimiter, encoding)
     con = duckdb.connect()
     try:  # Parquet min/max omit NaN; without this DuckDB may fold isnan() to false (duckdb#25521)
         con.execute("SET parquet_can_have_nan = true")
@@ -529,12 +620,12 @@ def make_sql_study(
         pass  # versions without the setting never assume a NaN-free column
     if memory_limit:
         con.execute(f"SET memory_limit = {lit(memory_limit)}")
-    try:
-        desc = con.execute(f"DESCRIBE SELECT * FROM {src}").fetchall()
-    except duckdb.Error as exc:
-        first = str(exc).strip().splitlines()[0]
-        raise DataError(f"cannot read {path} ({first}); check the file format") from None
+    desc = con.execute(f"DESCRIBE SELECT * FROM {src}").fetchall()
     names = [str(r[0]) for r in desc]
+    if not as_text:
+        from .data import _refuse_duplicate_names
+
+        _refuse_duplicate_names(path, [n.strip() for n in names])
     types = {str(r[0]): str(r[1]).upper() for r in desc}
     frame = SimpleNamespace(columns=names)
     y_col = resolve_column(frame, y, "response column")  # type: ignore[arg-type]
@@ -549,6 +640,9 @@ def make_sql_study(
         if col in cov_cols:
             raise UsageError(f"covariate {col!r} is listed twice in --covariates")
         cov_cols.append(col)
+    # inside the SQL every covariate has a name of ours: a column called "y", "n" or "bw_c" can
+    # then never meet the query's own names
+    sql_name = {c: f"bw_k{i}" for i, c in enumerate(cov_cols)}
     na_list = ", ".join(lit(s) for s in _NA_TEXT)
     numeric_types = ("DOUBLE", "FLOAT", "INTEGER", "BIGINT", "SMALLINT", "TINYINT", "DECIMAL", "HUGEINT",
                      "UBIGINT", "UINTEGER", "USMALLINT", "UTINYINT", "REAL")
@@ -597,16 +691,24 @@ def make_sql_study(
     cat_cols = [c for c in cov_cols if kinds[c] == "categorical"]
     num_cols = [c for c in cov_cols if kinds[c] == "numeric"]
     for c in cat_cols:
-        cols_sql.append(f"trim(CAST({q(c)} AS VARCHAR)) AS {q(c)}")
+        cols_sql.append(f"trim(CAST({q(c)} AS VARCHAR)) AS {q(sql_name[c])}")
     for c in num_cols:
-        cols_sql.append(f"{num_expr(c)[0]} AS {q(c)}")
+        cols_sql.append(f"{num_expr(c)[0]} AS {q(sql_name[c])}")
+    cat_sql = [sql_name[c] for c in cat_cols]
+    num_sql = [sql_name[c] for c in num_cols]
     con.execute(f"CREATE TEMP VIEW bw_clean AS SELECT {', '.join(cols_sql)} FROM {src} WHERE {case} = -1")
     con.execute(f"CREATE TEMP VIEW bw_all AS SELECT {', '.join(cols_sql)} FROM {src}")
     cat_missing = set(_NA_TEXT) if as_text else {""}
-    facts = None if exact else _series_setup(con, cat_cols, num_cols, cat_missing, progress)
+    facts = None if exact else _series_setup(con, cat_sql, num_sql, cat_missing, progress)
     if facts is None:
-        facts = _exact_setup(con, src, case, checks, cat_cols, num_cols, progress)
+        facts = _exact_setup(con, src, case, checks, cat_sql, num_sql, progress)
+    user = {v: k for k, v in sql_name.items()}
+    for key in ("num_constant", "num_mean"):  # (units stay keyed by the SQL names: "n" is theirs)
+        if key in facts:
+            facts[key] = {user.get(k, k): v for k, v in facts[key].items()}
     n, n_read, drops = facts["n"], facts["n_read"], facts["drops"]
+    if n_read == 0:
+        raise DataError(f"{path} has no data rows; check the file")
     if n < 3:
         raise DataError(f"only {n} usable row(s) after cleaning (need at least 3); "
                         + ("; ".join(d.describe() for d in drops) if drops else "add data"))
@@ -629,7 +731,7 @@ def make_sql_study(
                             "cannot explain anything: drop it from --covariates")
     covs: list[Covariate] = []
     for c in cat_cols:
-        vals = np.asarray(facts["units"][c]).astype(str)
+        vals = np.asarray(facts["units"][sql_name[c]]).astype(str)
         lv = tuple(str(v) for v in np.unique(vals))
         if len(lv) < 2:
             raise DataError(f"covariate {c!r} has one category ({lv[0]!r}) in the rows used; it cannot explain "
@@ -653,7 +755,7 @@ def make_sql_study(
         "num_mean": facts["num_mean"],
         "y_mean": facts["y_mean"],
         "x_values": x_values, "unit_x": unit_x, "unit_n": unit_n,
-        "cat_cols": cat_cols, "num_cols": num_cols,
+        "cat_cols": cat_cols, "num_cols": num_cols, "cat_sql": cat_sql, "num_sql": num_sql, "sql_name": sql_name,
         "series": facts.get("series"),
         "y_min": ymin, "y_max": ymax,
     }
@@ -677,8 +779,8 @@ def make_sql_study(
     con.register("bw_xmap_src", {"x": x_values, "code": study.x_codes_for_values(x_values).astype(np.int64)})
     con.execute("CREATE TEMP TABLE bw_xmap AS SELECT * FROM bw_xmap_src")
     con.unregister("bw_xmap_src")
-    shifted = ["x", "y", *[q(c) for c in cat_cols]]
-    shifted += [f"({q(c)} - {info['num_mean'][c]!r}) AS {q(c)}" for c in num_cols]
+    shifted = ["x", "y", *[q(sql_name[c]) for c in cat_cols]]
+    shifted += [f"({q(sql_name[c])} - {info['num_mean'][c]!r}) AS {q(sql_name[c])}" for c in num_cols]
     con.execute(f"CREATE TEMP VIEW bw_shifted AS SELECT {', '.join(shifted)} FROM bw_clean")
     study.prefetch()
     return study

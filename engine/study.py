@@ -519,9 +519,10 @@ def make_study(
         w_all, w_missing, w_non_num, w_non_fin = numeric_column(frame[w_col], w_col)
         bad = (w_missing | w_non_num | w_non_fin) & keep
         if bad.any():
+            from .data import bad_values_text
             rows = ", ".join(str(r) for r in first_rows(bad))
             raise DataError(
-                f"weights column {w_col!r} has {int(bad.sum())} missing or non-numeric value(s) (rows {rows}); "
+                f"weights column {w_col!r} has {bad_values_text(w_missing & keep, w_non_num & keep, w_non_fin & keep)} (rows {rows}); "
                 "fill them or remove those rows"
             )
         nonpos = (w_all <= 0) & keep

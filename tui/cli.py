@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import os
+import re
 import sys
 from collections.abc import Sequence
 
@@ -67,6 +68,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     elif args_list[0] not in _COMMANDS and not args_list[0].startswith("-"):
         args_list = ["open", *args_list]  # `bendwise DATA ...` opens the app on a table
     parser = build_parser()
+    args_list = _attach_negative_values(parser, args_list)
     try:
         args = parser.parse_args(args_list)
     except SystemExit as exc:  # usage errors (2) and --help (0) end here
@@ -75,7 +77,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         parser.print_help()
         return EXIT_USAGE
     try:
-        return int(args.func(args))
+        return _run_quietly(args)
     except BendwiseError as exc:
         sys.stderr.write(f"bendwise: error: {exc}\n")
         return EXIT_USAGE
@@ -84,6 +86,49 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 130
     except BrokenPipeError:
         return EXIT_OK
+
+
+_NEGATIVE = re.compile(r"^-(\d|\.\d|inf|nan)", re.IGNORECASE)
+
+
+def _attach_negative_values(parser: argparse.ArgumentParser, argv: list[str]) -> list[str]:
+    """``--tolerance -5%`` → ``--tolerance=-5%``: argparse would take a value that starts with '-'
+    (and is not a plain negative number) for an option and report a missing value; attached, it
+    reaches the option's own check, which says what is wrong with it."""
+    sub = next((a for a in parser._actions if isinstance(a, argparse._SubParsersAction)), None)
+    command = sub.choices.get(argv[0]) if sub is not None and argv else None
+    if command is None:
+        return argv
+    takes_one = {opt for opt, act in command._option_string_actions.items()
+                 if isinstance(act, argparse._StoreAction) and act.nargs is None}
+    out: list[str] = []
+    i = 0
+    while i < len(argv):
+        tok = argv[i]
+        if tok in takes_one and i + 1 < len(argv) and _NEGATIVE.match(argv[i + 1]):
+            out.append(f"{tok}={argv[i + 1]}")
+            i += 2
+            continue
+        out.append(tok)
+        if tok == "--":
+            out += argv[i + 1:]
+            break
+        i += 1
+    return out
+
+
+def _run_quietly(args: argparse.Namespace) -> int:
+    """Run a command with Python warnings and numpy's floating-point warnings silenced: stderr
+    carries only the one-line error or the cleaning report (over- and underflow that matter are
+    reported in the results themselves). The filter also covers the app's worker threads."""
+    import warnings
+
+    import numpy as np
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        with np.errstate(all="ignore"):
+            return int(args.func(args))
 
 
 def entry() -> None:

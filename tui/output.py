@@ -47,3 +47,15 @@ def fmt_p(p: float | None) -> str:
     if p < 1e-4:
         return f"{p:.1e}"
     return f"{p:.4f}"
+
+
+def collinear_words(aliased: tuple[str, ...] | list[str], weighted: bool) -> str:
+    """What to say about terms the fit set aside as collinear: under weights, that the weights made
+    them so (tiny weights can leave a column no spread of its own), not just that they were dropped."""
+    names = ", ".join(aliased)
+    if not weighted:
+        return f"dropped as collinear: {names}"
+    one = len(aliased) == 1
+    return (f"with these weights {names} {'is' if one else 'are'} collinear with the other terms (the weights "
+            f"leave {'it' if one else 'them'} no spread of {'its' if one else 'their'} own); "
+            f"{'its coefficient is' if one else 'their coefficients are'} set to 0 — check the weights")

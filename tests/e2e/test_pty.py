@@ -9,6 +9,7 @@ from __future__ import annotations
 import json
 import os
 import re
+import shlex
 import shutil
 import sys
 import time
@@ -139,5 +140,24 @@ def test_linux_console_and_no_color(tmp_path):
         assert "FAIL" in screen and "pass" in screen
         term.send("q")
         term.child.expect(pexpect.EOF, timeout=10)
+    finally:
+        term.close()
+
+
+def test_table_piped_in_then_keys_from_the_terminal(tmp_path):
+    """`cat t.csv | bendwise open - …`: the table comes from the pipe, the keys from /dev/tty."""
+    repo = Path(__file__).resolve().parents[2]
+    data = repo / "datasets" / "sensor_calibration.csv"
+    cmd = (f"cat {shlex.quote(str(data))} | exec {shlex.quote(sys.executable)} -m tui.cli open - "
+           "-y signal_mv -x conc_mg_l --depth 1")
+    term = Terminal(["/bin/sh", "-c", cmd], repo, _env())
+    try:
+        term.wait_for(lambda t: "Suggested (aicc" in t and "root" in t, "the grown tree", timeout=30)
+        term.send(DOWN)
+        term.wait_for(lambda t: "n1 log signal_mv" in t, "the detail of n1 (a key from the terminal)")
+        term.send("q")
+        term.child.expect(pexpect.EOF, timeout=10)
+        term.child.close()
+        assert term.child.exitstatus == 0
     finally:
         term.close()

@@ -14,6 +14,13 @@ from tui.cli import main
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"
 
 
+@pytest.fixture
+def terminal(monkeypatch):
+    """As if run in a terminal (pytest captures the standard streams; the app refuses without one)."""
+    monkeypatch.setattr("tui.commands.open.terminal_problem", lambda *a, **k: None)
+    monkeypatch.setattr("tui.commands.demo.terminal_problem", lambda *a, **k: None)
+
+
 @pytest.mark.parametrize(
     ("argv", "needle"),
     [
@@ -24,7 +31,7 @@ DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.cs
         ([str(DATA), "-y", "signal_mv", "-x", "conc_mg_l", "--covariates", "nope"], "covariate column 'nope'"),
     ],
 )
-def test_data_errors_are_one_line_before_the_app(capsys, argv, needle):
+def test_data_errors_are_one_line_before_the_app(capsys, terminal, argv, needle):
     assert main(argv) == 2
     out, err = capsys.readouterr()
     assert out == "" and err.count("\n") == 1 and needle in err and err.startswith("bendwise: error:")
@@ -35,7 +42,7 @@ def test_depth_is_checked_by_the_parser(capsys):
     assert "depth 9 is out of range" in capsys.readouterr().err
 
 
-def test_demo_without_datasets_is_one_clear_line(capsys, monkeypatch, tmp_path):
+def test_demo_without_datasets_is_one_clear_line(capsys, monkeypatch, tmp_path, terminal):
     import tui.screens.data as data
 
     monkeypatch.setattr(data, "datasets_dir", lambda: tmp_path / "datasets")

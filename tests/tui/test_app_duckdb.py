@@ -39,6 +39,7 @@ def test_open_builds_the_sql_study_and_launches(tmp_path, monkeypatch, capsys):
         return 0
 
     monkeypatch.setattr(open_cmd, "launch", fake_launch)
+    monkeypatch.setattr(open_cmd, "terminal_problem", lambda *a, **k: None)  # as if in a terminal
     # a folder goes through DuckDB with --engine auto
     assert main(["open", str(folder), "-y", "signal", "-x", "conc", "--covariates", "temp"]) == 0
     study = seen["study"]
@@ -46,7 +47,8 @@ def test_open_builds_the_sql_study_and_launches(tmp_path, monkeypatch, capsys):
     assert study._info["series"] is not None  # clean, positive: the one-scan path
 
 
-def test_open_with_duckdb_needs_the_columns(tmp_path, capsys):
+def test_open_with_duckdb_needs_the_columns(tmp_path, capsys, monkeypatch):
+    monkeypatch.setattr("tui.commands.open.terminal_problem", lambda *a, **k: None)  # as if in a terminal
     folder = _files(tmp_path)
     assert main(["open", str(folder)]) == 2
     err = capsys.readouterr().err.strip().splitlines()

@@ -124,7 +124,8 @@ def _render_forward(model, rows: list[dict], level: float, label: str, ci_of: st
         line = [fmt_num(r["x"], 6), *[str(r[n]) for n in names], fmt_num(r["fit"], 6)]
         if transformed:
             line.append(fmt_num(r["median"], 6))
-        line += [_iv(r["ci_low"], r["ci_high"]), _iv(r["pi_low"], r["pi_high"]),
+        blank = r.get("flag") in ("no back-transform", "overflow", "underflow")  # no number, not an open end
+        line += ["—" if blank else _iv(r["ci_low"], r["ci_high"]), "—" if blank else _iv(r["pi_low"], r["pi_high"]),
                  "OUTSIDE" if r["outside_range"] else "inside"]
         body.append(line)
     out += table(body, header, right=set(range(len(header))) - {len(header) - 1})
@@ -152,7 +153,7 @@ def _render_inverse(model, rows: list[dict], level: float, label: str) -> list[s
     body = []
     for r in rows[:200]:
         pieces = r["pieces"]
-        shown = " ∪ ".join(_iv(a, b) for a, b in pieces) if pieces else "empty"
+        shown = " ∪ ".join(_iv(a, b) for a, b in pieces) if pieces else ("—" if r.get("flag") else "empty")
         rng = "—" if r["outside_range"] is None else ("OUTSIDE" if r["outside_range"] else "inside")
         line = [fmt_num(r["y"], 6), *[str(r[n]) for n in names], fmt_num(r["x"], 6)]
         if line_model:
@@ -164,7 +165,7 @@ def _render_inverse(model, rows: list[dict], level: float, label: str) -> list[s
         out.append(f"  … {len(rows) - 200} more row(s): use -o or --json")
     notes = sorted({r["note"] for r in rows if r.get("note")})
     out += [f"  note: {n}" for n in notes]
-    if any(r["interval"] != "finite" for r in rows):
+    if any(r["interval"] not in ("finite", "overflow") for r in rows):
         out.append("  a set that is not a finite interval means the calibration cannot pin x down there")
     g = rows[0].get("g") if rows else None
     if g is not None and math.isfinite(g):

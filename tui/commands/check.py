@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from ..output import emit_json, fmt_num, fmt_p
+from ..output import collinear_words, emit_json, fmt_num, fmt_p
 from .common import CAUTION, add_data_args, alpha_arg, load_study, table
 
 
@@ -54,7 +54,7 @@ def render(r, design: str) -> list[str]:
     out += table(rows, ["term", "estimate", "std error", "t", "p", "95% interval"])
     out.append(f"  σ̂ {fmt_num(fit.sigma, 5)} on {fit.df_resid} df   R² {fit.r2:.6f}   adjusted R² {fit.r2_adj:.6f}")
     if fit.aliased:
-        out.append(f"  dropped as collinear: {', '.join(fit.aliased)}")
+        out.append(f"  {collinear_words(fit.aliased, bool(r.weights))}")
     out += ["", "Sum-of-squares split"]
     rows = []
     for a in r.anova:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from .open import add_app_args, launch
+from .open import add_app_args, launch, terminal_problem
 
 __all__ = ["register", "run"]
 
@@ -24,9 +24,13 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Check the demo data are present, then run the app."""
-    from engine.errors import DataError
+    from engine.errors import DataError, UsageError
 
     from ..screens.data import build_study, datasets_dir, demo_request, read_frame
+
+    problem = terminal_problem()
+    if problem:
+        raise UsageError(problem)
 
     folder = datasets_dir()
     req = demo_request()

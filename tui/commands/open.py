@@ -3,6 +3,11 @@
 The table is read and the chosen columns are checked BEFORE the app starts, so a data error
 is one line on stderr and exit status 2, never a flash of the app. Without -y/-x the app
 opens on a start screen to choose the columns.
+
+The app needs a terminal: without one (input from a file or /dev/null, output to a pipe or a
+file) it refuses at once, in one line, instead of waiting for keys that never come. A table
+piped in (``cat t.csv | bendwise open - …``) is read first; the keys then come from the
+terminal (/dev/tty).
 """
 
 from __future__ import annotations
@@ -14,7 +19,43 @@ import sys
 
 from .common import add_data_args, alpha_arg, split_list
 
-__all__ = ["register", "run", "launch", "depth_arg"]
+__all__ = ["register", "run", "launch", "depth_arg", "terminal_problem", "keys_from_terminal"]
+
+_NO_TERMINAL = "the app needs a terminal, and {what} is not one; for pipes and files use bendwise check or bendwise grow"
+
+
+def terminal_problem(table_from_stdin: bool = False) -> str | None:
+    """Why the app cannot run in this process (None: it can). The app draws on standard output
+    and error and reads keys from standard input, which may carry the table instead."""
+    for stream, what in ((sys.stdout, "standard output"), (sys.stderr, "standard error")):
+        if not _isatty(stream):
+            return _NO_TERMINAL.format(what=what)
+    if not table_from_stdin and not _isatty(sys.stdin):
+        return _NO_TERMINAL.format(what="standard input")
+    return None
+
+
+def _isatty(stream) -> bool:
+    try:
+        return bool(stream is not None and stream.isatty())
+    except (ValueError, OSError):  # closed or detached
+        return False
+
+
+def keys_from_terminal() -> None:
+    """After a table was read from standard input, take the keys from the terminal instead."""
+    from engine.errors import UsageError
+
+    if _isatty(sys.stdin):
+        return
+    try:
+        fd = os.open("/dev/tty", os.O_RDWR)
+    except OSError as exc:
+        raise UsageError(f"the table came from standard input and no terminal can be opened for the keys "
+                         f"({exc.strerror or exc}); save the table to a file, or use bendwise check or bendwise grow"
+                         ) from None
+    os.dup2(fd, 0)
+    os.close(fd)
 
 
 def depth_arg(text: str) -> int:
@@ -55,6 +96,9 @@ def run(args: argparse.Namespace) -> int:
 
     from ..screens.data import DataRequest, build_study, read_frame
 
+    problem = terminal_problem(table_from_stdin=args.data == "-")
+    if problem:
+        raise UsageError(problem)
     req = DataRequest(args.data, args.y, args.x, tuple(split_list(args.covariates)), args.weights, args.tolerance,
                       args.sheet, args.decimal, args.delimiter)
     if bool(req.y) != bool(req.x):
@@ -75,8 +119,13 @@ def run(args: argparse.Namespace) -> int:
         study.progress = None  # inside the app the workers report scans in the status row
         return launch(req, study=study, frame=None, depth=args.depth, alpha=args.alpha, rule=args.rule)
     _say(f"reading {req.source}…")
-    frame = read_frame(req)
-    study = build_study(req, frame) if req.y else None
+    try:
+        frame = read_frame(req)
+        study = build_study(req, frame) if req.y else None
+        if args.data == "-":
+            keys_from_terminal()
+    finally:  # an error goes on a clean line
+        _say("\r" + " " * 60 + "\r")
     return launch(req, study=study, frame=None if study is not None else frame, depth=args.depth, alpha=args.alpha,
                   rule=args.rule)
 

@@ -8,8 +8,9 @@ from textual import on
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Vertical
-from textual.screen import ModalScreen
 from textual.widgets import Input, Label, Static
+
+from .once import OnceModal
 
 __all__ = ["AlphaDialog", "parse_alpha"]
 
@@ -25,7 +26,7 @@ def parse_alpha(text: str) -> float:
     return val
 
 
-class AlphaDialog(ModalScreen[float | None]):
+class AlphaDialog(OnceModal[float | None]):
     """Type a new α; Enter applies, Esc keeps the old one."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
@@ -57,7 +58,7 @@ class AlphaDialog(ModalScreen[float | None]):
         except ValueError as exc:
             self.query_one("#alpha-error", Static).update(f"not applied: {exc}")
             return
-        self.dismiss(val)
+        self.finish(val)
 
     def action_cancel(self) -> None:
-        self.dismiss(None)
+        self.finish(None)

@@ -7,13 +7,14 @@ from typing import ClassVar
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Vertical
-from textual.screen import ModalScreen
 from textual.widgets import Label, Static
+
+from .once import OnceModal
 
 __all__ = ["ConfirmDialog"]
 
 
-class ConfirmDialog(ModalScreen[bool]):
+class ConfirmDialog(OnceModal[bool]):
     """Ask a question; y confirms, n or Esc declines."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
@@ -35,4 +36,4 @@ class ConfirmDialog(ModalScreen[bool]):
             yield Static("y = yes   n / Esc = no", classes="dialog-keys")
 
     def action_answer(self, yes: bool) -> None:
-        self.dismiss(yes)
+        self.finish(yes)

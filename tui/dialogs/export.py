@@ -8,13 +8,14 @@ from textual import on
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Vertical
-from textual.screen import ModalScreen
 from textual.widgets import Input, Label, Static
+
+from .once import OnceModal
 
 __all__ = ["ExportDialog"]
 
 
-class ExportDialog(ModalScreen[str | None]):
+class ExportDialog(OnceModal[str | None]):
     """Type a file path; Enter exports (an existing file is only replaced after a yes)."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
@@ -46,7 +47,7 @@ class ExportDialog(ModalScreen[str | None]):
         if not path:
             self.query_one("#export-error", Static).update("give a folder path, e.g. my-model")
             return
-        self.dismiss(path)
+        self.finish(path)
 
     def action_cancel(self) -> None:
-        self.dismiss(None)
+        self.finish(None)

@@ -125,7 +125,8 @@ class CompareScreen(Screen):
         self.query_one("#compare-body").focus()
 
     def action_close(self) -> None:
-        self.app.pop_screen()
+        if self.is_current:  # a second close key before the screen is gone must not pop the one beneath
+            self.app.pop_screen()
 
     def action_swap(self) -> None:
         self.a, self.b = self.b, self.a

@@ -10,8 +10,9 @@ from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import VerticalScroll
-from textual.screen import ModalScreen
 from textual.widgets import Static
+
+from ..dialogs.once import OnceModal
 
 __all__ = ["HelpScreen", "binding_sections", "ABOUT"]
 
@@ -83,7 +84,7 @@ def help_renderable(app) -> RenderableType:
     return Group(*parts)
 
 
-class HelpScreen(ModalScreen[None]):
+class HelpScreen(OnceModal[None]):
     """Every key, generated from the bindings, and the About section."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
@@ -101,4 +102,4 @@ class HelpScreen(ModalScreen[None]):
         self.query_one("#help-body").focus()
 
     def action_close(self) -> None:
-        self.dismiss(None)
+        self.finish(None)

@@ -12,6 +12,7 @@ from textual.scroll_view import ScrollView
 from textual.strip import Strip
 
 from ..messages import TreeSummary
+from ..output import collinear_words
 from .formatting import VERDICT_STYLE, fmt_p, glyph, num, test_words, verdict_sentence, verdict_word
 
 __all__ = ["NodeDetail", "render_node"]
@@ -140,7 +141,8 @@ def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
     parts.append(Text(f"σ̂ {num(s.fit.sigma, 5)} on {s.fit.df_resid} df · R² {num(s.fit.r2, 6)} · "
                       f"adjusted R² {num(s.fit.r2_adj, 6)}"))
     if s.fit.aliased:
-        parts.append(Text(f"dropped as collinear: {', '.join(s.fit.aliased)}"))
+        weighted = node.spec.weights is not None or st.weights is not None
+        parts.append(Text(collinear_words(s.fit.aliased, weighted)))
 
     # criteria
     crit = j["criteria"]
