@@ -117,6 +117,13 @@ def nested_f(sse_r: float, df_r: int, sse_f: float, df_f: int, kind: str, approx
 def lack_of_fit(stats: GroupStats, fit: Fit, *, approximate: bool = False) -> LackOfFit:
     """Classical pure-error lack-of-fit test for a fit whose columns are constant within groups."""
     n, c, p = stats.n, stats.c, fit.rank
+    if fit.aliased:
+        return LackOfFit(
+            False,
+            f"the model cannot be fitted in full ({', '.join(fit.aliased)} is collinear with the other terms"
+            f"{' under these weights' if approximate or stats.sum_log_w else ''}): its lack of fit is not a test "
+            "of the model named",
+        )
     if c == n:
         return LackOfFit(
             False,

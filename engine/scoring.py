@@ -400,6 +400,9 @@ def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = 
 
 def _shape_test(study: Study, spec: ModelSpec, fr: _Frame, stats, fit: Fit) -> LackOfFit:
     kind = "shape in x (x as a factor)"
+    if fit.aliased:
+        return LackOfFit(False, f"the model cannot be fitted in full ({', '.join(fit.aliased)} is collinear with "
+                         "the other terms): its lack of fit is not a test of the model named", kind)
     if study.c == study.n:
         return LackOfFit(False, "no setting of x was measured more than once: x as a factor saturates the data", kind)
     if study.c > MAX_FACTOR_LEVELS:
