@@ -51,7 +51,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 import engine  # noqa: E402
-from engine.remedies import RemedyTree  # noqa: E402
+from engine.tree.tree import RemedyTree  # noqa: E402
 
 COVARIATES = ("t1", "t2", "batch")
 REL = 1e-8

@@ -7,18 +7,23 @@ imported inside the functions that need them, so ``import engine`` stays cheap.
 from __future__ import annotations
 
 from .cautions import CAUTION
-from .data import CleaningReport, load_table, resolve_column
+from .checks.straight_line import CheckResult, check, pure_error
 from .errors import BendwiseError, DataError, SpecError, UsageError
-from .linearity import CheckResult, check, pure_error
-from .plan import design_power, detectable_delta, search_designs, sigma_from_pure_error
-from .remedies import POST_SEARCH_CAUTION, RULES, Node, RemedyTree, Suggestion, grow
-from .scoring import NodeScore, residuals_by_level, score_spec
-from .spec import ModelSpec, WeightRule
-from .study import Study, make_study
-from .suggestion import SUGGESTION_POLICIES, Evidence, SuggestionPolicy
-from .transforms import Transform
+from .plan.power import design_power, detectable_delta, search_designs, sigma_from_pure_error
+from .read.cleaning import CleaningReport
+from .read.columns import resolve_column
+from .read.tables import load_table
+from .stats.study import Study, make_study
+from .stats.transforms import Transform
+from .tree.model_spec import ModelSpec, WeightRule
+from .tree.residuals import residuals_by_level
+from .tree.scoring import NodeScore, score_spec
+from .tree.suggestion import SUGGESTION_POLICIES, Evidence, SuggestionPolicy
+from .tree.tree import POST_SEARCH_CAUTION, RULES, Node, RemedyTree, Suggestion, grow
+from .version import __version__
 
 __all__ = [
+    "__version__",
     "CAUTION",
     "POST_SEARCH_CAUTION",
     "RULES",
@@ -53,4 +58,3 @@ __all__ = [
     "sigma_from_pure_error",
 ]
 
-__version__ = "0.1.0"

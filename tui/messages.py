@@ -13,8 +13,8 @@ from typing import TYPE_CHECKING, Any
 from textual.message import Message
 
 if TYPE_CHECKING:
-    from engine.remedies import Node, RemedyTree, Suggestion
-    from engine.study import Study
+    from engine.stats.study import Study
+    from engine.tree.tree import Node, RemedyTree, Suggestion
 
 __all__ = [
     "TreeSummary",

@@ -20,9 +20,9 @@ from hypothesis import strategies as st
 from statsmodels.stats.anova import anova_lm
 
 import engine
-from engine.groups import compute_group_stats
-from engine.linalg import Column, Design, fit_design, poly_map
-from engine.linearity import lack_of_fit, nested_f
+from engine.checks.lack_of_fit import lack_of_fit, nested_f
+from engine.stats.groups import compute_group_stats
+from engine.stats.linalg import Column, Design, fit_design, poly_map
 
 REL = 1e-9
 

@@ -16,10 +16,10 @@ import pytest
 
 import engine
 from engine.errors import SpecError
-from engine.export import export_node
-from engine.inverse import inverse_predict
-from engine.predict import predict_forward
-from engine.specfile import load_spec
+from engine.handon.export import export_node
+from engine.handon.inverse import inverse_predict
+from engine.handon.predict import predict_forward
+from engine.handon.specfile import load_spec
 from tui.cli import main
 
 X = np.repeat(np.arange(0.0, 9.0), 3)

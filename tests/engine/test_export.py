@@ -23,10 +23,16 @@ import pytest
 
 import engine
 from engine.errors import SpecError, UsageError
-from engine.export import ExportExists, build_spec, export_node, write_rows_csv, write_text_atomic
-from engine.predict import predict_forward
-from engine.report import text_chart
-from engine.specfile import load_spec, schema_path, validate_spec
+from engine.handon.export import (
+    ExportExists,
+    build_spec,
+    export_node,
+    write_rows_csv,
+    write_text_atomic,
+)
+from engine.handon.predict import predict_forward
+from engine.handon.report import text_chart
+from engine.handon.specfile import load_spec, schema_path, validate_spec
 
 DATASETS = Path(__file__).resolve().parents[2] / "datasets"
 SENSOR = DATASETS / "sensor_calibration.csv"
@@ -211,8 +217,8 @@ def test_smearing_through_the_general_path_matches_a_hand_computation(sensor_tre
 
 
 def test_back_transformed_intervals_stop_at_the_edge_of_the_response_range():
-    from engine.predict import back_interval
-    from engine.transforms import RECIPROCAL, SQRT, Transform
+    from engine.handon.predict import back_interval
+    from engine.stats.transforms import RECIPROCAL, SQRT, Transform
 
     # √y: a z interval reaching below 0 covers y from 0 (y = z² is not monotone below 0)
     lo, hi = back_interval(SQRT, np.array([-1.0, 1.0]), np.array([2.0, 3.0]))
@@ -412,7 +418,7 @@ def test_export_modules_stay_headless_and_light():
     probe = textwrap.dedent(
         """
         import json, sys
-        import engine.export, engine.inverse, engine.predict, engine.specfile, engine.report, engine.reproduce
+        import engine.handon.export, engine.handon.inverse, engine.handon.predict, engine.handon.specfile, engine.handon.report, engine.handon.reproduce
         print(json.dumps(sorted({m.split(".")[0] for m in sys.modules} &
                                 {"textual", "rich", "plotext", "tui", "pandas", "scipy", "statsmodels"})))
         """
@@ -425,7 +431,7 @@ def test_export_modules_stay_headless_and_light():
 
 def test_new_data_problems_name_the_row(line_tree, tmp_path):
     from engine.errors import DataError
-    from engine.predict import new_inputs
+    from engine.handon.predict import new_inputs
 
     _, model = load_spec(export_node(line_tree, "root", tmp_path / "e")[0])
     frame = pd.DataFrame({"dose_ug": ["1", "abc", "3"]})

@@ -9,9 +9,9 @@ from pathlib import Path
 import pytest
 
 import engine
-import engine.export as export_mod
+import engine.handon.export as export_mod
 from engine.errors import UsageError
-from engine.export import EXPORT_FILES, export_node
+from engine.handon.export import EXPORT_FILES, export_node
 
 LINE = Path(__file__).resolve().parents[2] / "datasets" / "straight_line.csv"
 

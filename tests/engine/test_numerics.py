@@ -10,7 +10,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from engine.remedies import _brentq, _Spline
+from engine.stats.numerics import CubicSpline as EngineSpline
+from engine.stats.numerics import brentq as engine_brentq
 
 
 @given(st.integers(4, 40), st.integers(0, 10_000))
@@ -23,7 +24,7 @@ def test_spline_matches_scipy_cubic_spline(n, seed):
     y = rng.normal(0, 10, n) - 50 * (x - x.mean()) ** 2
     at = np.concatenate([x, rng.uniform(x[0] - 0.5, x[-1] + 0.5, 50)])
     ref = CubicSpline(x, y)(at)
-    got = _Spline(x, y)(at)
+    got = EngineSpline(x, y)(at)
     assert np.allclose(got, ref, rtol=1e-11, atol=1e-11 * np.abs(y).max())
 
 
@@ -37,22 +38,22 @@ def test_spline_matches_scipy_cubic_spline(n, seed):
 def test_brentq_matches_scipy(f, a, b):
     from scipy.optimize import brentq  # reference
 
-    assert _brentq(f, a, b, xtol=1e-12) == pytest.approx(brentq(f, a, b, xtol=1e-12), abs=1e-11)
+    assert engine_brentq(f, a, b, xtol=1e-12) == pytest.approx(brentq(f, a, b, xtol=1e-12), abs=1e-11)
 
 
 def test_brentq_refuses_a_bad_bracket():
     with pytest.raises(ValueError):
-        _brentq(lambda v: v * v + 1.0, -1.0, 1.0)
+        engine_brentq(lambda v: v * v + 1.0, -1.0, 1.0)
     with pytest.raises(ValueError):
-        _brentq(lambda v: math.nan, 0.0, 1.0)
+        engine_brentq(lambda v: math.nan, 0.0, 1.0)
 
 
 def test_boxcox_grid_from_power_sums_matches_row_sums():
     # reference: the group statistics of each z = (y^λ − 1)/λ computed from the rows themselves
     # (engine.groups.compute_group_stats, two passes), for every λ of the tree's grid
-    from engine.groups import compute_group_stats
-    from engine.remedies import GRID_STEP, grid_group_stats_series
-    from engine.series import GRID_TOL
+    from engine.stats.boxcox_grid import GRID_STEP, grid_group_stats_series
+    from engine.stats.groups import compute_group_stats
+    from engine.stats.power_sums import GRID_TOL
 
     rng = np.random.default_rng(9)
     n = 60_000

@@ -13,7 +13,7 @@ import pytest
 from scipy import stats
 
 from engine.errors import UsageError
-from engine.plan import (
+from engine.plan.power import (
     CURVATURE,
     LACK_OF_FIT,
     design_power,

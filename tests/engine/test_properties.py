@@ -20,9 +20,9 @@ from scipy import stats as sps
 from statsmodels.stats.anova import anova_lm
 
 import engine
-from engine.groups import compute_group_stats
-from engine.linalg import fit_design
-from engine.linearity import poly_design
+from engine.stats.design import poly_design
+from engine.stats.groups import compute_group_stats
+from engine.stats.linalg import fit_design
 
 REPEATABLE = settings(
     max_examples=25,

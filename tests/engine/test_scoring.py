@@ -26,11 +26,12 @@ from statsmodels.stats.anova import anova_lm
 from statsmodels.stats.outliers_influence import OLSInfluence
 
 import engine
-from engine import scoring
-from engine.remedies import box_tidwell, grow
-from engine.scoring import score_spec
-from engine.spec import ModelSpec, WeightRule
-from engine.transforms import IDENTITY, LOG, RECIPROCAL, SQRT, Transform
+from engine.stats.transforms import IDENTITY, LOG, RECIPROCAL, SQRT, Transform
+from engine.tree import scoring
+from engine.tree.model_spec import ModelSpec, WeightRule
+from engine.tree.powers import box_tidwell
+from engine.tree.scoring import score_spec
+from engine.tree.tree import grow
 
 REL = 1e-9
 COEF_REL = 1e-8

@@ -19,9 +19,9 @@ import statsmodels.api as sm
 from scipy import stats as sps
 
 import engine
-from engine.remedies import MAX_DEGREE, RULES, RemedyTree, grow
-from engine.spec import ModelSpec
-from engine.transforms import LOG
+from engine.stats.transforms import LOG
+from engine.tree.model_spec import ModelSpec
+from engine.tree.tree import MAX_DEGREE, RULES, RemedyTree, grow
 from tui.cli import main
 
 DATA = Path(__file__).resolve().parents[2] / "datasets"

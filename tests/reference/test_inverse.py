@@ -18,10 +18,10 @@ import statsmodels.formula.api as smf
 from scipy import optimize, stats
 
 import engine
-from engine.export import build_spec
-from engine.inverse import fieller_line, inverse_predict
-from engine.predict import predict_forward
-from engine.specfile import validate_spec
+from engine.handon.export import build_spec
+from engine.handon.inverse import fieller_line, inverse_predict
+from engine.handon.predict import predict_forward
+from engine.handon.specfile import validate_spec
 
 DATASETS = Path(__file__).resolve().parents[2] / "datasets"
 

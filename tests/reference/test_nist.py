@@ -23,9 +23,10 @@ import statsmodels.formula.api as smf
 from statsmodels.stats.anova import anova_lm
 
 import engine
-from engine.groups import compute_group_stats
-from engine.linalg import Column, Design, fit_design
-from engine.linearity import lack_of_fit, poly_design
+from engine.checks.lack_of_fit import lack_of_fit
+from engine.stats.design import poly_design
+from engine.stats.groups import compute_group_stats
+from engine.stats.linalg import Column, Design, fit_design
 
 NIST = Path(__file__).resolve().parents[2].parent / "shared" / "reference" / "nist"
 if not NIST.is_dir():

@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from engine.remedies import RemedyTree
+from engine.tree.tree import RemedyTree
 from tui.cli import main
 from tui.screens.data import DataRequest
 
@@ -56,7 +56,7 @@ def test_open_with_duckdb_needs_the_columns(tmp_path, capsys, monkeypatch):
 
 
 async def test_app_grows_the_engine_tree_over_files(tmp_path):
-    from engine.sql import make_sql_study
+    from engine.backends.duckdb import make_sql_study
     from tui.app import make_app
     from tui.widgets.detail import NodeDetail
     from tui.widgets.remedy_tree import RemedyTreeView
@@ -82,8 +82,8 @@ async def test_app_grows_the_engine_tree_over_files(tmp_path):
 
 
 async def test_scans_during_work_go_to_the_status_row(tmp_path):
-    from engine.sql import make_sql_study
-    from engine.transforms import Transform
+    from engine.backends.duckdb import make_sql_study
+    from engine.stats.transforms import Transform
     from tui.app import make_app
     from tui.messages import ScoringProgressed
 
@@ -124,7 +124,7 @@ def test_export_over_files_hands_on_the_same_model(tmp_path, capsys):
 
     import jsonschema
 
-    from engine.specfile import schema_path
+    from engine.handon.specfile import schema_path
 
     folder = _files(tmp_path)
     out_sql, out_mem = tmp_path / "spec_sql", tmp_path / "spec_mem"
@@ -161,8 +161,8 @@ def test_charts_over_files_use_a_seeded_sample(tmp_path):
     # reference: the same rows in memory; with a sample as large as the table every row is drawn,
     # so the level means of the residuals must be the in-memory ones
     import engine
-    from engine.sql import make_sql_study
-    from engine.views import curve_chart, residual_chart
+    from engine.backends.duckdb import make_sql_study
+    from engine.handon.chart_data import curve_chart, residual_chart
 
     folder = _files(tmp_path)
     tree = RemedyTree(make_sql_study(str(folder), y="signal", x="conc"))

@@ -10,7 +10,8 @@ from pathlib import Path
 import pytest
 
 from engine import load_table, make_study
-from engine.remedies import POST_SEARCH_CAUTION, RemedyTree
+from engine.handon.specfile import schema_path
+from engine.tree.tree import POST_SEARCH_CAUTION, RemedyTree
 from tui.app import make_app
 from tui.exporting import export_node
 
@@ -48,7 +49,7 @@ def test_export_writes_the_spec_folder(tree, tmp_path):
     out = export_node(tree, "n6", tmp_path / "n6", data_path=DATA)
     assert sorted(p.name for p in out.iterdir()) == ["report.md", "reproduce.py", "spec.json"]
     doc = _spec(out)
-    schema = json.loads((Path(__file__).resolve().parents[2] / "engine" / "schema" / "spec-v1.json").read_text())
+    schema = json.loads(schema_path().read_text())
     jsonschema.validate(doc, schema)  # reference: the project's own JSON Schema, checked by jsonschema
     text = json.dumps(doc)
     assert POST_SEARCH_CAUTION in text

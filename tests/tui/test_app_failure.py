@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pytest
 
-from engine.remedies import RemedyTree
+from engine.tree.tree import RemedyTree
 from tui.app import make_app
 
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"

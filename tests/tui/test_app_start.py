@@ -5,7 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from engine import load_table, make_study
-from engine.remedies import RemedyTree
+from engine.tree.tree import RemedyTree
 from tui.app import make_app
 
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"

@@ -11,7 +11,7 @@ from pathlib import Path
 import pytest
 
 from engine import check, load_table, make_study
-from engine.remedies import RemedyTree
+from engine.tree.tree import RemedyTree
 from tui.app import make_app
 from tui.widgets.formatting import fmt_num, fmt_p, num, verdict_word
 
@@ -120,7 +120,7 @@ async def test_root_shows_the_check_anova_and_path_shows_nested_tests(engine_tre
 
 
 async def test_suggestion_and_caution_always_visible(engine_tree):
-    from engine.remedies import POST_SEARCH_CAUTION
+    from engine.tree.tree import POST_SEARCH_CAUTION
 
     app = _app()
     async with app.run_test(size=(80, 24)) as pilot:
@@ -309,7 +309,7 @@ async def test_keys_answer_while_scoring_and_escape_cancels(monkeypatch, engine_
     import asyncio
     import time
 
-    import engine.remedies as rem
+    import engine.tree.tree as rem
 
     real = rem.RemedyTree._score
 

@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from engine.specfile import load_spec
+from engine.handon.specfile import load_spec
 from tui.cli import main
 
 DATASETS = Path(__file__).resolve().parents[2] / "datasets"

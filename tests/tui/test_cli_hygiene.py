@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 
 import engine
-from engine.remedies import RemedyTree
+from engine.tree.tree import RemedyTree
 from tui.cli import main
 from tui.messages import TreeSummary
 from tui.widgets.detail import render_node

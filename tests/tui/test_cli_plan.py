@@ -8,7 +8,7 @@ import math
 import numpy as np
 import pytest
 
-from engine.plan import design_power, search_designs
+from engine.plan.power import design_power, search_designs
 from tui.cli import main
 
 

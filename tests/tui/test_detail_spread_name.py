@@ -8,7 +8,7 @@ import pandas as pd
 import pytest
 
 import engine
-from engine.remedies import RemedyTree
+from engine.tree.tree import RemedyTree
 from tui.messages import TreeSummary
 from tui.widgets.detail import render_node
 
@@ -34,7 +34,7 @@ def test_memory_detail_names_brown_forsythe():
 
 def test_sql_detail_names_bartlett(tmp_path):
     pytest.importorskip("duckdb")
-    from engine.sql import make_sql_study
+    from engine.backends.duckdb import make_sql_study
 
     path = tmp_path / "d.parquet"
     _frame().to_parquet(path)

@@ -64,7 +64,7 @@ def load_study(args: argparse.Namespace, progress=None):
     import sys
 
     from engine import load_table, make_study
-    from engine.sql import choose_engine, make_sql_study
+    from engine.backends.duckdb import choose_engine, make_sql_study
 
     delim = args.delimiter
     if delim in {"\\t", "tab", "TAB"}:

@@ -10,7 +10,7 @@ from .common import CAUTION, add_data_args, alpha_arg
 
 def register(sub: argparse._SubParsersAction) -> None:
     """Add the ``export`` subcommand."""
-    from engine.remedies import RULES
+    from engine.tree.tree import RULES
 
     p = sub.add_parser(
         "export",
@@ -33,7 +33,8 @@ def register(sub: argparse._SubParsersAction) -> None:
 def run(args: argparse.Namespace) -> int:
     """Grow, pick the node, export."""
     from engine.errors import UsageError
-    from engine.export import describe_reading, export_node
+    from engine.handon.export import export_node
+    from engine.read.files import describe_reading
 
     from .grow import build_tree
 

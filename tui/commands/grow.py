@@ -11,7 +11,7 @@ from .common import CAUTION, add_data_args, alpha_arg, load_study, table
 
 def register(sub: argparse._SubParsersAction) -> None:
     """Add the ``grow`` subcommand."""
-    from engine.remedies import RULES
+    from engine.tree.tree import RULES
 
     p = sub.add_parser(
         "grow",
@@ -33,7 +33,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 def build_tree(args: argparse.Namespace, progress=None):
     """Load, grow and return (study, tree); shared with export."""
     from engine.errors import UsageError
-    from engine.remedies import RemedyTree
+    from engine.tree.tree import RemedyTree
 
     if args.depth < 0 or args.depth > 4:
         raise UsageError(f"depth {args.depth} is out of range; use 0 to 4")
@@ -45,7 +45,7 @@ def build_tree(args: argparse.Namespace, progress=None):
 
 def run(args: argparse.Namespace) -> int:
     """Grow and print."""
-    from engine.remedies import POST_SEARCH_CAUTION
+    from engine.tree.tree import POST_SEARCH_CAUTION
 
     progress = None
     if not args.quiet and not args.json and sys.stderr.isatty():
@@ -74,7 +74,7 @@ def verdict_word(tree, node) -> str:
 
 def render(study, tree, rule: str) -> list[str]:
     """Text report: suggestion, ranked table, tree with pruned moves."""
-    from engine.remedies import POST_SEARCH_CAUTION
+    from engine.tree.tree import POST_SEARCH_CAUTION
 
     sug = tree.suggest(rule)
     y, x = study.y_name, study.x_name

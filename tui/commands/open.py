@@ -105,7 +105,7 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError("give both -y and -x, or neither (then choose them on the start screen)")
     if req.covariates and not req.y:
         raise UsageError("--covariates needs -y and -x; without them choose covariates on the start screen")
-    from engine.sql import choose_engine
+    from engine.backends.duckdb import choose_engine
 
     from .common import load_study, parse_size
 

@@ -103,7 +103,7 @@ def _count(option: str, text: str) -> int:
 
 def _levels(args: argparse.Namespace) -> tuple[list[float] | None, tuple[float, float] | None]:
     """(fixed levels, None) or (spaced levels or None, (lo, hi))."""
-    from engine.plan import spaced_levels
+    from engine.plan.power import spaced_levels
 
     span = None
     if args.range is not None:
@@ -136,7 +136,7 @@ def _replicates(args: argparse.Namespace) -> int | list[int] | None:
 
 def _sigma(args: argparse.Namespace) -> dict[str, Any] | None:
     """σ and where it came from, or None when the plan is in σ units only."""
-    from engine.plan import sigma_from_pure_error
+    from engine.plan.power import sigma_from_pure_error
 
     if args.sigma is not None and args.from_data is not None:
         raise UsageError("--sigma: give it or --from-data, not both")
@@ -178,7 +178,7 @@ def _sigma(args: argparse.Namespace) -> dict[str, Any] | None:
 
 def run(args: argparse.Namespace) -> int:
     """Compute and print the plan; returns 0."""
-    from engine.plan import design_power, search_designs
+    from engine.plan.power import design_power, search_designs
 
     levels, span = _levels(args)
     reps = _replicates(args)

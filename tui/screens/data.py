@@ -11,7 +11,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
-    from engine.study import Study
+    from engine.stats.study import Study
 
 __all__ = ["DataRequest", "read_frame", "build_study", "demo_request", "datasets_dir"]
 

@@ -67,7 +67,7 @@ class StartScreen(Screen):
     @work(thread=True, exclusive=True, exit_on_error=False, group="start")
     def _describe(self) -> None:
         from engine.errors import BendwiseError
-        from engine.views import describe_columns, replicate_preview
+        from engine.read.preview import describe_columns, replicate_preview
 
         try:
             frame = self.frame if self.frame is not None else read_frame(self.request)

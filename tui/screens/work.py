@@ -29,7 +29,7 @@ from .data import DataRequest, build_study
 if TYPE_CHECKING:
     from textual.message import Message
 
-    from engine.study import Study
+    from engine.stats.study import Study
 
 __all__ = ["TreeWork"]
 
@@ -72,7 +72,7 @@ class TreeWork:
     @work(thread=True, exclusive=True, exit_on_error=False, group="tree")
     def _grow(self) -> None:
         from engine import check
-        from engine.remedies import RemedyTree
+        from engine.tree.tree import RemedyTree
 
         worker = get_current_worker()
         with self._lock, self._scans_reported():
@@ -157,7 +157,7 @@ class TreeWork:
         import numpy as np
 
         from engine.errors import BendwiseError
-        from engine.views import curve_chart, residual_chart
+        from engine.handon.chart_data import curve_chart, residual_chart
 
         board = self.board
         if board is None or nid not in board.nodes:

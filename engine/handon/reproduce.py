@@ -15,9 +15,9 @@ from __future__ import annotations
 import dataclasses
 from typing import Any
 
-from .remedies import RemedyTree
-from .scoring import Term
-from .spec import ModelSpec, quote_name
+from ..tree.model_spec import ModelSpec, quote_name
+from ..tree.scoring import Term
+from ..tree.tree import RemedyTree
 
 __all__ = ["script_text", "statsmodels_names", "column_aliases"]
 

@@ -22,12 +22,12 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from .data import numeric_column, resolve_column
-from .dist import t_ppf
-from .errors import DataError, UsageError
-from .scoring import Term, predict_terms
+from ..errors import DataError, UsageError
+from ..read.columns import numeric_column, resolve_column
+from ..stats.dist import t_ppf
+from ..stats.transforms import Transform
+from ..tree.scoring import Term, predict_terms
 from .specfile import HandedModel
-from .transforms import Transform
 
 if TYPE_CHECKING:
     import pandas as pd

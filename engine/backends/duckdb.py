@@ -27,12 +27,15 @@ from typing import Any
 
 import numpy as np
 
-from .data import NA_TEXT, CleaningReport, DropCount, data_files, resolve_column
-from .errors import DataError, UsageError
-from .groups import GroupStats, drop_rounding, normalised_boxcox_stats
-from .results import SideTest
-from .series import GRID_TOL, SERIES_TOL, GroupSeries, choose_orders, series_helps
-from .study import (
+from ..errors import DataError, UsageError
+from ..read.cleaning import CleaningReport, DropCount
+from ..read.columns import NA_TEXT, resolve_column
+from ..read.files import data_files
+from ..stats.groups import GroupStats, drop_rounding, normalised_boxcox_stats
+from ..stats.power_sums import GRID_TOL, SERIES_TOL, GroupSeries, choose_orders, series_helps
+from ..stats.results import SideTest
+from ..stats.spread import bartlett_from_groups
+from ..stats.study import (
     MAX_CATEGORIES,
     Covariate,
     Study,
@@ -41,10 +44,10 @@ from .study import (
     level_labels,
     parse_tolerance,
 )
-from .transforms import Transform
+from ..stats.transforms import Transform
 
 __all__ = ["SqlStudy", "make_sql_study", "aggregate_sql", "series_sql", "transform_sql", "choose_engine",
-           "bartlett_from_groups"]
+]
 
 _NA_TEXT = NA_TEXT  # the same missing-value texts as the in-memory reader
 ProgressFn = Callable[[str], None]
@@ -139,7 +142,7 @@ def _csv_preflight(path: str, decimal: str, delimiter: str | None) -> tuple[str 
     """What the in-memory reader checks before parsing, for CSV files read by DuckDB: an empty
     file, bytes that are not a text table, a header naming a column twice; and the delimiter
     and encoding it would use (from the first file's first 64 KiB). Returns (delimiter, encoding)."""
-    from .data import (
+    from ..read.tables import (
         _decode,
         _refuse_duplicate_names,
         _refuse_kind,
@@ -409,7 +412,7 @@ class SqlStudy(Study):
 
     def prefetch(self) -> None:
         """Scan once for every response transform the tree's first level can use."""
-        from .transforms import IDENTITY, LOG, RECIPROCAL, SQRT
+        from ..stats.transforms import IDENTITY, LOG, RECIPROCAL, SQRT
 
         ts = [IDENTITY] + [t for t in (LOG, SQRT, RECIPROCAL) if self.domain_problem(t, "y") is None]
         self._scan(ts)
@@ -531,27 +534,6 @@ class SqlStudy(Study):
         return hit
 
 
-def bartlett_from_groups(count: np.ndarray, ss: np.ndarray, name: str = "equal spread (Bartlett)") -> SideTest:
-    """Bartlett's (1937) test of equal variances from group sizes and within-group sums of squares."""
-    from .dist import chi2_sf
-
-    keep = count >= 2
-    if keep.sum() < 2:
-        return SideTest(name, False, reason="needs at least two levels with two or more replicates")
-    nk, ssk = count[keep], ss[keep]
-    var = ssk / (nk - 1.0)
-    scale = float(np.max(np.abs(var))) if var.size else 0.0
-    if scale <= 0 or (var <= 1e-13 * scale).any():
-        return SideTest(name, False, reason="a level has no spread (all its replicates are equal)")
-    k = int(keep.sum())
-    dof = float(nk.sum()) - k
-    pooled = float(ssk.sum()) / dof
-    stat = (dof * math.log(pooled) - float(((nk - 1.0) * np.log(var)).sum()))
-    stat /= 1.0 + (float((1.0 / (nk - 1.0)).sum()) - 1.0 / dof) / (3.0 * (k - 1))
-    note = ("one pass over level variances, assumes normal errors within levels; Brown–Forsythe "
-            "needs the rows: --engine memory")
-    return SideTest(name, True, stat, (k - 1,), chi2_sf(stat, k - 1), reason=note)
-
 def make_sql_study(
     path: str,
     *,
@@ -594,7 +576,7 @@ def make_sql_study(
                 exc, encoding, text = again, "latin-1", str(again)
         files = data_files(path)
         if "csv" in text.lower() and files[0].suffix.lower() not in (".parquet", ".pq"):
-            from .data import ragged_message
+            from ..read.tables import ragged_message
 
             hit = _ragged_line(files, encoding, sep or ";")
             if hit is not None:
@@ -623,7 +605,7 @@ def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tol
     desc = con.execute(f"DESCRIBE SELECT * FROM {src}").fetchall()
     names = [str(r[0]) for r in desc]
     if not as_text:
-        from .data import _refuse_duplicate_names
+        from ..read.tables import _refuse_duplicate_names
 
         _refuse_duplicate_names(path, [n.strip() for n in names])
     types = {str(r[0]): str(r[1]).upper() for r in desc}

@@ -21,6 +21,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .numerics import golden_max
+
 __all__ = ["VarianceTrend", "variance_trend", "level_weights", "THETA_MIN", "THETA_MAX",
            "CONVENTIONAL_THETAS", "MIN_REPLICATES"]
 
@@ -111,7 +113,7 @@ def variance_trend(count: np.ndarray, mean: np.ndarray, ss: np.ndarray) -> Varia
     vals = np.array([loglik(float(t)) for t in grid])
     i = int(np.argmax(vals))
     a, b = grid[max(i - 1, 0)], grid[min(i + 1, grid.size - 1)]
-    theta = _golden_max(loglik, float(a), float(b))
+    theta = golden_max(loglik, float(a), float(b))
     top = loglik(theta)
     if vals[i] > top:
         theta, top = float(grid[i]), float(vals[i])
@@ -143,23 +145,6 @@ def variance_trend(count: np.ndarray, mean: np.ndarray, ss: np.ndarray) -> Varia
         chosen, snapped = round(theta, 2), False
     p_inc = p / 2 if theta > 0 else 1 - p / 2
     return VarianceTrend(True, None, theta, low, high, stat, p, p_inc, int(use.sum()), float(chosen), snapped)
-
-
-def _golden_max(f, a: float, b: float, tol: float = 1e-9) -> float:
-    """Maximiser of a unimodal ``f`` on [a, b] by golden-section search."""
-    g = (math.sqrt(5.0) - 1.0) / 2.0
-    c, d = b - g * (b - a), a + g * (b - a)
-    fc, fd = f(c), f(d)
-    while b - a > tol:
-        if fc >= fd:
-            b, d, fd = d, c, fc
-            c = b - g * (b - a)
-            fc = f(c)
-        else:
-            a, c, fc = c, d, fd
-            d = a + g * (b - a)
-            fd = f(d)
-    return 0.5 * (a + b)
 
 
 def level_weights(mean: np.ndarray, theta: float) -> np.ndarray:

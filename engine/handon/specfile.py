@@ -1,7 +1,7 @@
 """Read a handed-on model spec back, treating it as data, never as code.
 
 A spec written by someone else is checked field by field in plain Python (the JSON Schema in
-``engine/schema/spec-v1.json`` describes the same shape for other tools; bendwise does not need
+``engine/handon/schema/spec-v1.json`` describes the same shape for other tools; bendwise does not need
 the jsonschema package at run time). The model is rebuilt only from structured fields — the
 transforms, the raw-basis terms and their coefficients — and the formula text a spec carries is
 never evaluated.
@@ -17,9 +17,9 @@ from typing import Any
 
 import numpy as np
 
-from .errors import SpecError
-from .scoring import Term
-from .transforms import Transform
+from ..errors import SpecError
+from ..stats.transforms import Transform
+from ..tree.scoring import Term
 
 __all__ = [
     "SCHEMA_VERSION",

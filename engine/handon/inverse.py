@@ -24,10 +24,10 @@ from typing import Any
 
 import numpy as np
 
-from .dist import t_ppf
-from .errors import DataError, UsageError
+from ..errors import DataError, UsageError
+from ..stats.dist import t_ppf
+from ..tree.scoring import predict_terms
 from .predict import check_level, outside, term_matrix, weight_at
-from .scoring import predict_terms
 from .specfile import HandedModel
 
 __all__ = ["InverseResult", "fieller_line", "inverse_predict", "GRID_POINTS"]

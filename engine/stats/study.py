@@ -9,8 +9,9 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from .data import CleaningReport, DropCount, first_rows, numeric_column, resolve_column
-from .errors import DataError, UsageError
+from ..errors import DataError, UsageError
+from ..read.cleaning import CleaningReport, DropCount
+from ..read.columns import first_rows, numeric_column, resolve_column
 from .groups import GroupStats, compute_base_parts, compute_group_stats
 
 if TYPE_CHECKING:
@@ -177,7 +178,7 @@ class Study:
 
     def spread_by_level(self, z: np.ndarray | None, key: Any, w: np.ndarray | None) -> Any:
         """Brown–Forsythe across x levels of √w·z (cached by ``key``)."""
-        from .linearity import spread_test
+        from .spread import spread_test
 
         hit = self._cache.get(("spread", key))
         if hit is None:
@@ -193,7 +194,7 @@ class Study:
         key = ("bcgrid", by, bases_key, self.weights_name, tuple(lams))
         hit = self._cache.get(key)
         if hit is None:
-            from .remedies import EXACT_PROFILE_LIMIT, grid_group_stats, grid_group_stats_series
+            from .boxcox_grid import EXACT_PROFILE_LIMIT, grid_group_stats, grid_group_stats_series
 
             codes, c = self.group_codes(by)
             logy = np.log(self.y)
@@ -519,7 +520,7 @@ def make_study(
         w_all, w_missing, w_non_num, w_non_fin = numeric_column(frame[w_col], w_col)
         bad = (w_missing | w_non_num | w_non_fin) & keep
         if bad.any():
-            from .data import bad_values_text
+            from ..read.columns import bad_values_text
             rows = ", ".join(str(r) for r in first_rows(bad))
             raise DataError(
                 f"weights column {w_col!r} has {bad_values_text(w_missing & keep, w_non_num & keep, w_non_fin & keep)} (rows {rows}); "

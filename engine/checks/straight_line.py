@@ -9,147 +9,25 @@ formed by a tolerance (the model tested against itself plus group indicators).
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
 
-from .dist import f_sf
-from .errors import DataError
-from .groups import GroupStats
-from .linalg import Column, Design, fit_design, poly_map
-from .results import AnovaRow, Criteria, Fit, LackOfFit, LevelRow, SideTest
-from .study import Study
+from ..errors import DataError
+from ..stats.design import poly_design
+from ..stats.dist import f_sf
+from ..stats.groups import GroupStats
+from ..stats.linalg import Column, Design, fit_design
+from ..stats.results import AnovaRow, Criteria, Fit, LevelRow, SideTest, criteria_from
+from ..stats.study import Study
+from .lack_of_fit import lack_of_fit, nested_f
+from .replicate_free import replicate_free
+from .results import LackOfFit
 
-__all__ = [
-    "CheckResult",
-    "check",
-    "pure_error",
-    "lack_of_fit",
-    "criteria_from",
-    "poly_design",
-    "nested_f",
-    "spread_test",
-    "power_label",
-]
+__all__ = ["CheckResult", "check", "pure_error", "MANDEL_ALPHA"]
 
-_SUPERSCRIPT = str.maketrans("0123456789", "⁰¹²³⁴⁵⁶⁷⁸⁹")
+
 MANDEL_ALPHA = 0.01
-
-
-def power_label(name: str, k: int) -> str:
-    """'x', 'x²', 'x³' … for the k-th power of a term."""
-    return name if k == 1 else f"{name}{str(k).translate(_SUPERSCRIPT)}"
-
-
-def poly_design(
-    t_group: np.ndarray,
-    degree: int,
-    *,
-    name: str,
-    intercept: bool = True,
-    centre: float | None = None,
-    scale: float | None = None,
-    base_offset: int | None = None,
-) -> Design:
-    """Polynomial in t of ``degree`` on centred and scaled powers; raw names t, t², …
-
-    With ``base_offset`` the powers are within-varying bases (groups formed by a tolerance):
-    base ``base_offset + k - 1`` must hold u^k row by row.
-    """
-    lo, hi = float(np.min(t_group)), float(np.max(t_group))
-    if centre is None:
-        centre = (lo + hi) / 2 if intercept else 0.0
-    if scale is None:
-        scale = (hi - lo) / 2 if intercept else max(abs(lo), abs(hi))
-        scale = scale or 1.0
-    u = (t_group - centre) / scale
-    ones = np.ones_like(t_group, dtype=float)
-    cols: list[Column] = []
-    names: list[str] = []
-    if intercept:
-        cols.append(Column(ones))
-        names.append("intercept")
-    for k in range(1, degree + 1):
-        if base_offset is None:
-            cols.append(Column(u**k))
-        else:
-            cols.append(Column(ones, base_offset + k - 1))
-        names.append(power_label(name, k))
-    return Design(tuple(cols), tuple(names), poly_map(degree, centre, scale, intercept), intercept)
-
-
-def criteria_from(loglik: float, k: int, n: int) -> Criteria:
-    """AIC, AICc and BIC from a log-likelihood with k estimated parameters (Burnham & Anderson 2002).
-
-    An exact fit has an unbounded likelihood: its criteria are None, never −∞.
-    """
-    if not math.isfinite(loglik):
-        return Criteria(loglik, k, n, None, None, None)
-    aic = -2.0 * loglik + 2.0 * k
-    aicc = aic + 2.0 * k * (k + 1) / (n - k - 1) if n - k - 1 > 0 else None
-    bic = -2.0 * loglik + k * math.log(n)
-    return Criteria(loglik, k, n, aic, aicc, bic)
-
-
-def nested_f(sse_r: float, df_r: int, sse_f: float, df_f: int, kind: str, approximate: bool = False,
-             floor: float = 0.0) -> LackOfFit:
-    """F test of a reduced model against a fuller one that contains it.
-
-    ``floor``: a residual sum of squares at or below it is rounding noise (``Fit.rounding``).
-    """
-    if df_r - df_f <= 0:
-        return LackOfFit(False, "the richer model adds no degrees of freedom: nothing to test", kind)
-    if df_f <= 0:
-        return LackOfFit(False, "the richer model leaves no residual degrees of freedom", kind)
-    if sse_f <= floor or not math.isfinite(sse_f):
-        return LackOfFit(
-            False,
-            "the richer model fits exactly (residual sum of squares 0): the F ratio is undefined; "
-            "check for duplicated rows or a response rounded to its resolution",
-            kind,
-        )
-    ss = max(sse_r - sse_f, 0.0)
-    f = (ss / (df_r - df_f)) / (sse_f / df_f)
-    return LackOfFit(True, None, kind, ss, sse_f, df_r - df_f, df_f, f, f_sf(f, df_r - df_f, df_f), approximate)
-
-
-def lack_of_fit(stats: GroupStats, fit: Fit, *, approximate: bool = False) -> LackOfFit:
-    """Classical pure-error lack-of-fit test for a fit whose columns are constant within groups."""
-    n, c, p = stats.n, stats.c, fit.rank
-    if fit.aliased:
-        return LackOfFit(
-            False,
-            f"the model cannot be fitted in full ({', '.join(fit.aliased)} is collinear with the other terms"
-            f"{' under these weights' if approximate or stats.sum_log_w else ''}): its lack of fit is not a test "
-            "of the model named",
-        )
-    if c == n:
-        return LackOfFit(
-            False,
-            f"no setting was measured more than once ({n} rows, {n} distinct settings): pure error needs "
-            "repeated measurements; repeat some settings, or group near-equal settings with --tolerance "
-            "(approximate)",
-        )
-    if c <= p:
-        return LackOfFit(
-            False,
-            f"the model has as many parameters as there are levels (c = {c}, p = {p}): it passes through "
-            "every level mean and nothing is left to test; measure more levels",
-        )
-    ss_pure = stats.ss_pure
-    if not ss_pure > fit.rounding:
-        exact = "is 0" if not ss_pure > 0 else "is at the level of floating-point rounding"
-        return LackOfFit(
-            False,
-            f"replicates agree exactly (pure error {exact}): the F ratio is undefined; check for duplicated "
-            "rows or a response rounded to its resolution",
-        )
-    df_pure = n - c
-    ss_lack = max(fit.sse - ss_pure, 0.0)
-    df_lack = c - p
-    f = (ss_lack / df_lack) / (ss_pure / df_pure)
-    return LackOfFit(True, None, "pure error", ss_lack, ss_pure, df_lack, df_pure, f, f_sf(f, df_lack, df_pure), approximate)
 
 
 def pure_error(study: Study) -> tuple[float, int]:
@@ -164,60 +42,6 @@ def pure_error(study: Study) -> tuple[float, int]:
     return stats.ss_pure, stats.df_pure
 
 
-def spread_test(z: np.ndarray, codes: np.ndarray, c: int, order: np.ndarray | None = None) -> SideTest:
-    """Brown–Forsythe test of equal spread: one-way ANOVA of |z − group median| (unweighted).
-
-    Levels with one row carry no spread and are left out (as scipy.stats.levene would need).
-    ``order`` (rows sorted by group, e.g. ``Study.group_order()``) saves a sort.
-    """
-    name = "equal spread (Brown–Forsythe)"
-    counts = np.bincount(codes, minlength=c)
-    ok = counts >= 2
-    if ok.sum() < 2:
-        return SideTest(name, False, reason="needs at least two levels with two or more replicates")
-    if order is None:
-        order = np.argsort(codes.astype(np.uint16) if c <= 65535 else codes.astype(np.int64), kind="stable")
-    zs = z[order]
-    ends = np.cumsum(counts)
-    starts = ends - counts
-    sums = np.zeros(c)
-    sq = np.zeros(c)
-    dsq = np.zeros(c)
-    if c <= 5000:
-        for g in np.flatnonzero(ok):
-            seg = zs[starts[g]:ends[g]]
-            dg = np.abs(seg - np.median(seg))
-            sums[g] = dg.sum()
-            dev = dg - sums[g] / counts[g]
-            sq[g] = np.einsum("i,i->", dev, dev)  # einsum: BLAS dot is slow on some OpenBLAS builds
-            dsq[g] = np.einsum("i,i->", dg, dg)
-    else:
-        import pandas as pd
-
-        med = pd.Series(zs).groupby(np.repeat(np.arange(c), counts)).median().to_numpy()
-        d = np.abs(zs - np.repeat(med, counts))
-        nz = counts > 0
-        sums[nz] = np.add.reduceat(d, starts[nz])
-        dev = d - np.repeat(np.divide(sums, counts, out=np.zeros(c), where=nz), counts)
-        sq[nz] = np.add.reduceat(dev * dev, starts[nz])
-        dsq[nz] = np.add.reduceat(d * d, starts[nz])
-    means = np.divide(sums, counts, out=np.zeros(c), where=counts > 0)
-    nk = counts[ok].astype(float)
-    k = int(ok.sum())
-    total = float(nk.sum())
-    grand = float(sums[ok].sum() / total)
-    ssb = float((nk * (means[ok] - grand) ** 2).sum())
-    ssw = float(sq[ok].sum())
-    scale = float(dsq[ok].sum())
-    if ssw <= 1e-12 * scale or scale == 0:
-        # e.g. two rows per level: both deviations from the median are equal, so the within
-        # sum of squares is 0 up to rounding and F would be a ratio of rounding noise
-        return SideTest(name, False, reason="the absolute deviations do not vary within levels (e.g. two "
-                        "replicates per level): the spread test needs three or more replicates somewhere")
-    f = (ssb / (k - 1)) / (ssw / (total - k))
-    return SideTest(name, True, f, (k - 1, total - k), f_sf(f, k - 1, total - k))
-
-
 def _mandel(fit1: Fit, fit2: Fit | None, n: int, c: int) -> SideTest:
     name = "curvature (Mandel, ISO 8466-1)"
     if fit2 is None or c < 3:
@@ -230,41 +54,6 @@ def _mandel(fit1: Fit, fit2: Fit | None, n: int, c: int) -> SideTest:
         name, True, pg, (1, n - 3), f_sf(pg, 1, n - 3),
         reason="partial F for adding x²; ISO 8466-1 judges it at the 99% level", alpha=MANDEL_ALPHA,
     )
-
-
-def _replicate_free(study: Study) -> tuple[SideTest, ...]:
-    """Checks that need no replicates (statsmodels), on rows sorted by x. All approximate."""
-    import statsmodels.api as sm
-    from statsmodels.stats import diagnostic as dg
-
-    order = np.argsort(study.x, kind="stable")
-    xs, ys = study.x[order], study.y[order]
-    exog = np.column_stack([np.ones_like(xs), xs])
-    if study.weights is None:
-        res = sm.OLS(ys, exog).fit()
-    else:
-        res = sm.WLS(ys, exog, weights=study.weights[order]).fit()
-    out: list[SideTest] = []
-    try:
-        r = dg.linear_reset(res, power=3, test_type="fitted", use_f=True)
-        out.append(SideTest("RESET (powers 2–3 of the fit)", True, float(r.fvalue), (float(r.df_num), float(r.df_denom)), float(r.pvalue), approximate=True))
-    except Exception as exc:  # noqa: BLE001 - statsmodels raises assorted errors on tiny data
-        out.append(SideTest("RESET (powers 2–3 of the fit)", False, reason=f"not computable here ({type(exc).__name__})"))
-    try:
-        f, p = dg.linear_rainbow(res, frac=0.5)
-        out.append(SideTest("rainbow (middle half of x)", True, float(f), (), float(p), approximate=True))
-    except Exception as exc:  # noqa: BLE001
-        out.append(SideTest("rainbow (middle half of x)", False, reason=f"not computable here ({type(exc).__name__})"))
-    try:
-        t, p = dg.linear_harvey_collier(res, skip=3)
-        ok = math.isfinite(float(t))
-        out.append(
-            SideTest("Harvey–Collier (recursive residuals in x order)", ok, float(t) if ok else None, (), float(p) if ok else None,
-                     reason=None if ok else "recursive residuals are degenerate here", approximate=True)
-        )
-    except Exception as exc:  # noqa: BLE001
-        out.append(SideTest("Harvey–Collier (recursive residuals in x order)", False, reason=f"not computable here ({type(exc).__name__})"))
-    return tuple(out)
 
 
 @dataclass(frozen=True, slots=True)
@@ -400,7 +189,7 @@ def _line_and_quadratic(study: Study) -> tuple[GroupStats, Fit, Fit | None, Lack
 def check(study: Study, *, alpha: float = 0.05) -> CheckResult:
     """Test the straight line y ~ x on the study: the lack-of-fit split and supporting checks."""
     if not 0 < alpha < 1:
-        from .errors import UsageError
+        from ..errors import UsageError
 
         raise UsageError(f"alpha {alpha!r} must lie strictly between 0 and 1, e.g. 0.05")
     stats, fit1, fit2, lof = _line_and_quadratic(study)
@@ -442,7 +231,7 @@ def check(study: Study, *, alpha: float = 0.05) -> CheckResult:
     spread = study.spread_by_level(z, (_identity().key(), None), None)
     exact_replicates = study.exact_replicates()
     if not exact_replicates and n >= 6 and study.has_rows:
-        free = _replicate_free(study)
+        free = replicate_free(study)
     elif not exact_replicates and not study.has_rows:
         free = (SideTest("replicate-free checks", False, reason="need the rows in memory; use --engine memory"),)
     else:
@@ -477,7 +266,7 @@ def check(study: Study, *, alpha: float = 0.05) -> CheckResult:
 
 
 def _identity():
-    from .transforms import IDENTITY
+    from ..stats.transforms import IDENTITY
 
     return IDENTITY
 

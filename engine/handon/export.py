@@ -11,7 +11,6 @@ an interrupt included.
 from __future__ import annotations
 
 import csv
-import hashlib
 import io
 import math
 import os
@@ -24,10 +23,10 @@ from typing import Any
 
 import numpy as np
 
-from .cautions import CAUTION, POST_SEARCH_CAUTION
-from .data import data_files
-from .errors import DataError, UsageError
-from .remedies import RemedyTree
+from ..cautions import CAUTION, POST_SEARCH_CAUTION
+from ..errors import DataError, UsageError
+from ..read.files import data_files, describe_reading, file_digest
+from ..tree.tree import RemedyTree
 from .specfile import SCHEMA_VERSION, validate_spec
 
 __all__ = [
@@ -35,9 +34,7 @@ __all__ = [
     "ExportExists",
     "MAX_RESIDUALS",
     "build_spec",
-    "describe_reading",
     "export_node",
-    "file_digest",
     "write_rows_csv",
     "write_text_atomic",
 ]
@@ -54,64 +51,6 @@ MAX_RESIDUALS = 100_000
 
 
 # ----- provenance -----------------------------------------------------------------------
-
-def file_digest(path: str | Path) -> tuple[str, int]:
-    """SHA-256 (hex) and size in bytes of a file, read in chunks. For a folder or glob: the
-    SHA-256 of each file's relative name and digest in turn (sorted), and the total size."""
-    files = data_files(path)
-    if len(files) > 1 or Path(path).is_dir():
-        root = Path(path) if Path(path).is_dir() else Path(os.path.commonpath([str(f.parent) for f in files]))
-        outer = hashlib.sha256()
-        total = 0
-        for f in files:
-            sha, size = _one_file_digest(f)
-            outer.update(f"{f.relative_to(root).as_posix()}\0{sha}\0".encode())
-            total += size
-        return outer.hexdigest(), total
-    return _one_file_digest(files[0])
-
-
-def _one_file_digest(path: str | Path) -> tuple[str, int]:
-    """SHA-256 (hex) and size in bytes of one file."""
-    h = hashlib.sha256()
-    size = 0
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
-            size += len(chunk)
-    return h.hexdigest(), size
-
-
-def describe_reading(path: str | Path | None, *, delimiter: str | None = None, decimal: str | None = None,
-                     sheet: str | None = None) -> dict[str, Any]:
-    """How the table was read (format, delimiter, decimal mark, sheet), as ``load_table`` reads it."""
-    from .data import _EXCEL_SUFFIXES, _JSONL_SUFFIXES, _PARQUET_SUFFIXES, _sniff_delimiter
-
-    dec = decimal or "."
-    if delimiter in {"\\t", "tab", "TAB"}:
-        delimiter = "\t"
-    out: dict[str, Any] = {"format": "text", "delimiter": delimiter, "decimal": dec, "sheet": None}
-    if path is None:
-        return out
-    path = data_files(path)[0]  # a folder or glob is read as its first file is
-    suffix = Path(path).suffix.lower()
-    if suffix in _PARQUET_SUFFIXES:
-        return {"format": "parquet", "delimiter": None, "decimal": dec, "sheet": None}
-    if suffix in _EXCEL_SUFFIXES:
-        return {"format": "excel", "delimiter": None, "decimal": dec, "sheet": sheet}
-    if suffix in _JSONL_SUFFIXES:
-        with open(path, "rb") as fh:
-            first = fh.read(4096).lstrip(b"\xef\xbb\xbf \t\r\n")[:1]
-        return {"format": "json" if first == b"[" else "jsonl", "delimiter": None, "decimal": dec, "sheet": None}
-    if delimiter is None:
-        with open(path, "rb") as fh:
-            head = fh.read(65536)
-        try:
-            sample = head.decode("utf-8-sig")
-        except UnicodeDecodeError:
-            sample = head.decode("latin-1")
-        out["delimiter"] = _sniff_delimiter(sample, dec)
-    return out
 
 
 def _clean(obj: Any) -> Any:
@@ -146,7 +85,7 @@ def _level_table(study, z: np.ndarray) -> list[dict[str, Any]]:
 
 def _group_level_table(study, spec) -> list[dict[str, Any]]:
     """The level table from level totals (a study without rows)."""
-    from .transforms import IDENTITY
+    from ..stats.transforms import IDENTITY
 
     ys = study.group_stats(None, ("z", IDENTITY.key()))
     zs = study.group_stats(None, ("z", spec.response.key()))
@@ -196,9 +135,9 @@ def build_spec(tree: RemedyTree, node_id: str, *, data_path: str | Path | None =
                reading: dict[str, Any] | None = None, rule: str = "aicc",
                max_residuals: int = MAX_RESIDUALS, now: datetime | None = None) -> dict[str, Any]:
     """The spec document of one scored node (plain JSON values, schema version 1.x)."""
-    from . import __version__
-    from .linearity import check
-    from .scoring import residuals_by_level
+    from ..checks.straight_line import check
+    from ..tree.residuals import residuals_by_level
+    from ..version import __version__
 
     study = tree.study
     node = _node(tree, node_id)

@@ -30,11 +30,11 @@ import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
-from .errors import UsageError
-from .spec import ModelSpec
+from ..errors import UsageError
+from .model_spec import ModelSpec
 
 if TYPE_CHECKING:
-    from .remedies import Node, RemedyTree
+    from .tree import Node, RemedyTree
 
 __all__ = ["Evidence", "Suggestion", "SuggestionPolicy", "SUGGESTION_POLICIES", "suggest", "weigh_evidence",
            "move_family", "RULES"]

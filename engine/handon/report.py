@@ -19,7 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from .remedies import RemedyTree
+from ..tree.tree import RemedyTree
 
 __all__ = ["report_markdown", "text_chart"]
 
@@ -140,7 +140,8 @@ def _md_table(header: list[str], rows: list[list[str]]) -> list[str]:
 
 def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     """The report of one exported node (``doc`` is its spec document)."""
-    from .scoring import predict_terms, residuals_by_level
+    from ..tree.residuals import residuals_by_level
+    from ..tree.scoring import predict_terms
 
     study = tree.study
     node = tree.nodes[node_id]

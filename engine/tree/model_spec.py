@@ -6,8 +6,8 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass, replace
 
-from .linearity import power_label
-from .transforms import IDENTITY, Transform
+from ..stats.design import power_label
+from ..stats.transforms import IDENTITY, Transform
 
 __all__ = ["ModelSpec", "WeightRule", "quote_name"]
 

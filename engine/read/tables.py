@@ -8,88 +8,22 @@ and ``-`` for standard input. pandas is imported here only, lazily, so that impo
 from __future__ import annotations
 
 import csv
-import difflib
 import io
 import sys
-from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-import numpy as np
-
-from .errors import DataError, UsageError
+from ..errors import DataError, UsageError
 
 if TYPE_CHECKING:
     import pandas as pd
 
-__all__ = ["load_table", "resolve_column", "DropCount", "CleaningReport", "numeric_column"]
+__all__ = ["load_table", "ragged_message"]
 
 _TEXT_SUFFIXES = {".csv", ".tsv", ".txt", ".dat", ".tab", ""}
 _EXCEL_SUFFIXES = {".xlsx", ".xlsm", ".xls"}
 _PARQUET_SUFFIXES = {".parquet", ".pq"}
 _JSONL_SUFFIXES = {".jsonl", ".ndjson", ".json"}
-_SHOW_ROWS = 5
-# Text read as a missing value (pandas' default list), for typed files that keep it as text too.
-NA_TEXT = ("", "#N/A", "#N/A N/A", "#NA", "-1.#IND", "-1.#QNAN", "-NaN", "-nan", "1.#IND", "1.#QNAN",
-           "<NA>", "N/A", "NA", "NULL", "NaN", "None", "n/a", "nan", "null")
-
-
-@dataclass(frozen=True, slots=True)
-class DropCount:
-    """Rows dropped for one reason in one column."""
-
-    column: str
-    """Column whose value was unusable."""
-    reason: str
-    """'missing', 'non-numeric', 'non-finite', 'weight not positive'."""
-    count: int
-    """How many rows."""
-    rows: tuple[int, ...]
-    """First few data-row numbers (1 = first row after the header)."""
-
-    def describe(self) -> str:
-        """One line for reports."""
-        if not self.rows:
-            return f"{self.count} row(s) with {self.reason} {self.column!r}"
-        shown = ", ".join(str(r) for r in self.rows)
-        more = ", …" if self.count > len(self.rows) else ""
-        return f"{self.count} row(s) with {self.reason} {self.column!r} (rows {shown}{more})"
-
-
-@dataclass(frozen=True, slots=True)
-class CleaningReport:
-    """What was read and what was dropped, and why. Nothing is dropped silently."""
-
-    source: str
-    """File name (or '<stdin>')."""
-    n_read: int
-    """Data rows read."""
-    n_used: int
-    """Rows kept for the analysis."""
-    drops: tuple[DropCount, ...]
-    """Each reason rows were dropped (a row is counted once, under its first problem)."""
-
-    @property
-    def n_dropped(self) -> int:
-        """Rows not used."""
-        return self.n_read - self.n_used
-
-    def lines(self) -> list[str]:
-        """Human lines, empty when nothing was dropped."""
-        return [d.describe() for d in self.drops]
-
-    def as_json(self) -> dict:
-        """JSON shape."""
-        return {
-            "source": self.source,
-            "n_read": self.n_read,
-            "n_used": self.n_used,
-            "n_dropped": self.n_dropped,
-            "drops": [
-                {"column": d.column, "reason": d.reason, "count": d.count, "rows": list(d.rows)}
-                for d in self.drops
-            ],
-        }
 
 
 def _complete_lines(sample: str) -> str:
@@ -400,78 +334,3 @@ def ragged_message(name: str, detail: str) -> str:
     return f"cannot parse {name} as a table ({first}); check the delimiter with --delimiter"
 
 
-def resolve_column(frame: pd.DataFrame, name: str, role: str = "column") -> str:
-    """Find ``name`` among the columns: exact, then case-insensitive; else suggest."""
-    cols = [str(c) for c in frame.columns]
-    if name in cols:
-        return name
-    folded = {c.casefold().strip(): c for c in cols}
-    key = name.casefold().strip()
-    if key in folded:
-        return folded[key]
-    close = difflib.get_close_matches(key, list(folded), n=1, cutoff=0.6)
-    hint = f"did you mean {folded[close[0]]!r}? " if close else ""
-    listing = ", ".join(cols[:12]) + (", …" if len(cols) > 12 else "")
-    raise DataError(f"{role} {name!r} not found; {hint}columns are: {listing}")
-
-
-def numeric_column(values, column: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Coerce a column to float. Returns (values, missing, non_numeric, non_finite) masks."""
-    import pandas as pd
-
-    series = values if isinstance(values, pd.Series) else pd.Series(values)
-    missing = series.isna().to_numpy()
-    if pd.api.types.is_bool_dtype(series.dtype):
-        series = series.astype(float)
-    if series.dtype == np.float64:
-        arr = series.to_numpy()  # no copy: the frame's own buffer (never written to)
-        non_numeric = np.zeros(arr.shape, dtype=bool)
-    elif pd.api.types.is_numeric_dtype(series.dtype):
-        arr = series.to_numpy(dtype=float, na_value=np.nan)
-        non_numeric = np.zeros(arr.shape, dtype=bool)
-    else:
-        text = series.astype("string").str.strip()
-        missing = missing | text.isin(NA_TEXT).fillna(False).to_numpy(dtype=bool)
-        coerced = pd.to_numeric(text.where(text != ""), errors="coerce")
-        arr = coerced.to_numpy(dtype=float, na_value=np.nan)
-        non_numeric = np.isnan(arr) & ~missing
-    non_finite = ~np.isfinite(arr) & ~missing & ~non_numeric
-    return arr, missing, non_numeric, non_finite
-
-
-def bad_values_text(missing: np.ndarray, non_numeric: np.ndarray, non_finite: np.ndarray) -> str:
-    """'2 missing and 1 non-finite value(s)': each kind of unusable cell named as it is (an inf
-    is not finite, not missing)."""
-    parts = [f"{int(m.sum())} {word}" for m, word in ((missing, "missing"), (non_numeric, "non-numeric"),
-                                                      (non_finite, "non-finite")) if m.any()]
-    return (", ".join(parts[:-1]) + " and " + parts[-1] if len(parts) > 1 else parts[0]) + " value(s)"
-
-
-def first_rows(mask: np.ndarray) -> tuple[int, ...]:
-    """First few 1-based data-row numbers where ``mask`` is true."""
-    idx = np.flatnonzero(mask)[:_SHOW_ROWS]
-    return tuple(int(i) + 1 for i in idx)
-
-
-def data_files(path: str | Path) -> list[Path]:
-    """The files behind a data argument: the file itself, a folder's Parquet files (else its CSV
-    files, searched below it, sorted) or a glob's matches (sorted). One-line DataError when a
-    folder holds none, a glob matches none or a file is missing."""
-    import glob
-
-    text = str(path)
-    p = Path(text)
-    if p.is_dir():
-        found = sorted(glob.glob(str(p / "**" / "*.parquet"), recursive=True))
-        found = found or sorted(glob.glob(str(p / "**" / "*.csv"), recursive=True))
-        if not found:
-            raise DataError(f"folder {text} holds no .parquet or .csv files; point at the data files")
-        return [Path(f) for f in found]
-    if any(ch in text for ch in "*?[") and not p.exists():
-        found = sorted(glob.glob(text, recursive=True))
-        if not found:
-            raise DataError(f"no file matches {text}; check the pattern")
-        return [Path(f) for f in found]
-    if not p.exists():
-        raise DataError(f"file not found: {text}; check the path")
-    return [p]

@@ -1,10 +1,4 @@
-"""Ready-to-draw views of engine results for user interfaces (no UI imports).
-
-The terminal app formats these and never does arithmetic on the data itself: column
-summaries and replicate previews for choosing columns, the sum-of-squares split of any
-node, and thinned point sets for terminal charts. pandas is imported lazily, as in
-``engine.data``.
-"""
+"""Ready-to-draw chart data of a scored node (numbers only; the app draws them)."""
 
 from __future__ import annotations
 
@@ -13,126 +7,18 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .results import AnovaRow
+from ..stats.results import AnovaRow
 
 if TYPE_CHECKING:
-    import pandas as pd
+    from ..stats.study import Study
+    from ..tree.scoring import NodeScore
 
-    from .scoring import NodeScore
-    from .study import Study
+__all__ = ["node_anova", "ResidualChart", "CurveChart", "residual_chart", "curve_chart", "thin_indices", "MAX_CHART_POINTS"]
 
-__all__ = [
-    "ColumnSummary",
-    "ReplicatePreview",
-    "describe_columns",
-    "replicate_preview",
-    "node_anova",
-    "ResidualChart",
-    "CurveChart",
-    "residual_chart",
-    "curve_chart",
-    "thin_indices",
-]
 
 MAX_CHART_POINTS = 2000
 """Terminal charts have a few thousand cells; more points only cost drawing time."""
 
-
-# ----- choosing columns ---------------------------------------------------------------
-
-@dataclass(frozen=True, slots=True)
-class ColumnSummary:
-    """One column of a table, as seen before any column is chosen."""
-
-    name: str
-    """Column name as in the file."""
-    kind: str
-    """'numeric' (every non-missing value parses as a number) or 'text'."""
-    distinct: int
-    """Distinct non-missing values."""
-    missing: int
-    """Missing or blank cells."""
-    non_numeric: int
-    """Non-missing cells that are not numbers (0 for 'text' columns by convention)."""
-
-
-@dataclass(frozen=True, slots=True)
-class ReplicatePreview:
-    """How a candidate predictor groups the rows into replicated settings."""
-
-    column: str
-    """The candidate predictor."""
-    rows: int
-    """Rows with a usable (numeric, finite) value."""
-    levels: int
-    """Distinct settings."""
-    replicated_levels: int
-    """Settings measured more than once."""
-    min_replicates: int
-    """Fewest rows at one setting (0 when there are no usable rows)."""
-    max_replicates: int
-    """Most rows at one setting."""
-    counts: tuple[tuple[float, int], ...]
-    """(setting, rows) for the first ``max_levels`` settings in increasing order."""
-    more_levels: int
-    """Settings not listed in ``counts``."""
-    testable: bool
-    """True when at least one setting is replicated and there are ≥ 3 settings."""
-    note: str
-    """The structure in words (what it allows)."""
-
-
-def describe_columns(frame: pd.DataFrame) -> tuple[ColumnSummary, ...]:
-    """Type, distinct values and missing count of every column (one pass per column)."""
-    from .data import numeric_column
-
-    out = []
-    for name in frame.columns:
-        series = frame[name]
-        arr, missing, non_num, _ = numeric_column(series, str(name))
-        n_missing = int(missing.sum())
-        n_bad = int(non_num.sum())
-        usable = len(series) - n_missing
-        if usable > 0 and n_bad == 0:
-            kind = "numeric"
-            vals = arr[~missing]
-            distinct = int(np.unique(vals[np.isfinite(vals)]).size + (~np.isfinite(vals)).any())
-        else:
-            kind = "text"
-            distinct = int(series[~missing].astype("string").str.strip().nunique())
-            n_bad = 0
-        out.append(ColumnSummary(str(name), kind, distinct, n_missing, n_bad))
-    return tuple(out)
-
-
-def replicate_preview(frame: pd.DataFrame, column: str, max_levels: int = 12) -> ReplicatePreview:
-    """Levels of ``column`` and the rows at each, to see whether pure error exists."""
-    from .data import numeric_column
-
-    arr, *_ = numeric_column(frame[column], column)
-    vals = arr[np.isfinite(arr)]
-    if vals.size == 0:
-        return ReplicatePreview(column, 0, 0, 0, 0, 0, (), 0, False, "no numeric values: cannot be the predictor")
-    uniq, counts = np.unique(vals, return_counts=True)
-    c = int(uniq.size)
-    replicated = int((counts > 1).sum())
-    lo, hi = int(counts.min()), int(counts.max())
-    shown = tuple((float(u), int(k)) for u, k in zip(uniq[:max_levels], counts[:max_levels], strict=True))
-    testable = replicated > 0 and c >= 3
-    if c < 2:
-        note = "one setting only: a line needs at least 2 settings"
-    elif replicated == 0:
-        note = "no setting is repeated: the pure-error test cannot run (group with --tolerance, approximate)"
-    elif c < 3:
-        note = "2 settings: a line fits exactly through the means; nothing is left to test"
-    else:
-        reps = f"{lo} replicate(s) each" if lo == hi else f"{lo}–{hi} replicates"
-        note = (f"{c} settings, {replicated} replicated ({reps}): lack of fit has {c - 2} and pure error "
-                f"{int(vals.size) - c} degrees of freedom")
-    return ReplicatePreview(column, int(vals.size), c, replicated, lo, hi, shown, max(c - max_levels, 0), testable, note)
-
-
-# ----- the sum-of-squares split of any node ---------------------------------------------
 
 def node_anova(score: NodeScore) -> tuple[AnovaRow, ...]:
     """model / residual / lack of fit / pure error (or richer-model residual) / total.
@@ -141,7 +27,7 @@ def node_anova(score: NodeScore) -> tuple[AnovaRow, ...]:
     rows come from the node's shape-in-x test; for a node without covariates that is the
     classical pure-error split (Kutner et al. 2005 §3.7) and matches ``check`` at the root.
     """
-    from .dist import f_sf
+    from ..stats.dist import f_sf
 
     fit, lof = score.fit, score.lack_of_fit
     df_model = fit.rank - 1
@@ -160,8 +46,6 @@ def node_anova(score: NodeScore) -> tuple[AnovaRow, ...]:
     rows.append(AnovaRow("total", fit.df_resid + fit.rank - 1, fit.ss_total, None, None, None))
     return tuple(rows)
 
-
-# ----- charts ---------------------------------------------------------------------------
 
 def thin_indices(n: int, max_points: int = MAX_CHART_POINTS) -> np.ndarray:
     """Evenly spaced row indices (all rows when there are few): deterministic, no sampling noise."""
@@ -212,7 +96,7 @@ class CurveChart:
 
 def residual_chart(study: Study, score: NodeScore, max_points: int = MAX_CHART_POINTS) -> ResidualChart:
     """Chart data from :func:`engine.scoring.residuals_by_level`, thinned for drawing."""
-    from .scoring import residuals_by_level
+    from ..tree.residuals import residuals_by_level
 
     r = residuals_by_level(study, score)
     idx = thin_indices(r.x.size, max_points)

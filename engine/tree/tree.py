@@ -1,0 +1,505 @@
+"""Grow the tree of candidate remedies, score every node, and suggest one with reasons.
+
+A child is its parent plus one move: a response transform (log, √, 1/y, Box–Cox λ̂ with
+regressors), a predictor transform (log, √, 1/x, Box–Tidwell power), the next polynomial
+degree, an admitted covariate, an x×covariate interaction, or weights from a power-of-mean
+variance function. Moves that cannot apply are pruned with a reason that stays visible.
+The same model reached by two paths is one node.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..cautions import POST_SEARCH_CAUTION
+from ..checks.lack_of_fit import nested_f
+from ..checks.results import LackOfFit
+from ..errors import BendwiseError, UsageError
+from ..stats.groups import GroupStats
+from ..stats.study import Study
+from ..stats.transforms import IDENTITY, LOG, RECIPROCAL, SQRT, Transform, boxcox, power
+from ..stats.variance import VarianceTrend, variance_trend
+from .boxcox import profile_boxcox
+from .model_spec import ModelSpec, WeightRule
+from .powers import box_tidwell
+from .scoring import NodeScore, _frame, build_design, score_spec
+from .suggestion import RULES, Suggestion, SuggestionPolicy
+from .suggestion import suggest as _suggest
+
+__all__ = ["Node", "RemedyTree", "Suggestion", "RULES", "grow", "POST_SEARCH_CAUTION", "MAX_DEGREE"]
+
+
+MAX_DEGREE = 3
+
+
+ProgressFn = Callable[[int, int, str], None]
+
+
+CancelFn = Callable[[], bool]
+
+
+@dataclass(slots=True)
+class Node:
+    """One candidate in the tree (its scores are frozen; links are filled as the tree grows)."""
+
+    id: str
+    """'root', then 'n1', 'n2', … in creation order."""
+    parent: str | None
+    """Parent id (None for the root)."""
+    move: str
+    """The move from the parent, in words."""
+    spec: ModelSpec
+    """The model."""
+    depth: int
+    """Moves from the root."""
+    score: NodeScore | None = None
+    """Scores (None when scoring failed: see ``error``)."""
+    error: str | None = None
+    """Why the node could not be scored."""
+    nested: LackOfFit | None = None
+    """Nested F against the parent, or the reason there is none."""
+    children: list[str] = field(default_factory=list)
+    """Child ids in creation order."""
+    pruned: list[tuple[str, str]] = field(default_factory=list)
+    """(move, reason) for moves that could not apply here."""
+    also_from: list[tuple[str, str]] = field(default_factory=list)
+    """(node id, move) of other paths that reach the same model."""
+    expanded: bool = False
+    """True once its moves were generated."""
+    detail: dict = field(default_factory=dict)
+    """Move details (Box–Cox profile, Box–Tidwell search, variance fit)."""
+
+
+def _nested(parent: Node, child: Node) -> LackOfFit:
+    kind = "nested F"
+    ps, cs = parent.spec, child.spec
+    if ps.response != cs.response:
+        return LackOfFit(False, f"different response scale ({ps.response.short('y')} vs {cs.response.short('y')}): "
+                         "compare AICc, not F", kind)
+    if ps.weights != cs.weights:
+        return LackOfFit(False, "different weights: compare AICc, not F", kind)
+    if ps.predictor != cs.predictor:
+        return LackOfFit(False, "not nested: the predictor transform changes the x columns", kind)
+    if parent.score is None or child.score is None:
+        return LackOfFit(False, "a model could not be scored", kind)
+    pf, cf = parent.score.fit, child.score.fit
+    return nested_f(pf.sse, pf.df_resid, cf.sse, cf.df_resid, kind, approximate=cs.weights is not None)
+
+
+class RemedyTree:
+    """The candidate tree on one study; deterministic order, cached and deduplicated."""
+
+    def __init__(self, study: Study, *, alpha: float = 0.05, allowable_deviation: float | None = None) -> None:
+        if not 0 < alpha < 1:
+            raise UsageError(f"alpha {alpha!r} must lie strictly between 0 and 1, e.g. 0.05")
+        if allowable_deviation is not None and not allowable_deviation > 0:
+            raise UsageError(f"allowable deviation {allowable_deviation!r} must be > 0 (in y units)")
+        self.study = study
+        self.alpha = alpha
+        self.allowable_deviation = allowable_deviation
+        self.nodes: dict[str, Node] = {}
+        self._by_spec: dict[ModelSpec, str] = {}
+        self._aside: dict[ModelSpec, NodeScore | None] = {}
+        self._variances: dict[Transform, VarianceTrend] = {}
+        self._counter = 0
+        self._root_line: np.ndarray | None = None
+        root = Node("root", None, "start: straight line", ModelSpec(), 0)
+        self._add(root)
+        self._score(root)
+        self._root_line = None if root.score is None else np.asarray(root.score.level_fitted_y)
+
+    # ---- building --------------------------------------------------------------------
+    def _add(self, node: Node) -> None:
+        self.nodes[node.id] = node
+        self._by_spec[node.spec] = node.id
+
+    def _score(self, node: Node) -> None:
+        try:
+            node.score = score_spec(self.study, node.spec, root_line=self._root_line)
+        except BendwiseError as exc:
+            node.error = str(exc)
+        if node.parent is not None:
+            node.nested = _nested(self.nodes[node.parent], node)
+
+    @property
+    def root(self) -> Node:
+        """The straight line."""
+        return self.nodes["root"]
+
+    def _moves(self, node: Node) -> tuple[list[tuple[str, ModelSpec, dict]], list[tuple[str, str]]]:
+        """(move, child spec, detail) for applicable moves; (move, reason) for pruned ones."""
+        st, sp = self.study, node.spec
+        ok: list[tuple[str, ModelSpec, dict]] = []
+        pruned: list[tuple[str, str]] = []
+        xlab = st.x_name
+        # response transforms
+        if sp.response == IDENTITY and sp.weights is None:
+            for t, move in ((LOG, "log y"), (SQRT, "√y"), (RECIPROCAL, "1/y")):
+                prob = st.domain_problem(t, "y")
+                if prob:
+                    pruned.append((move, prob))
+                else:
+                    ok.append((move, sp.with_(response=t), {}))
+            prob = st.domain_problem(Transform("boxcox", 0.5), "y")
+            if prob:
+                pruned.append(("Box–Cox y", prob))
+            else:
+                try:
+                    fr = _frame(st, sp)
+                    design, _ = build_design(st, sp, fr)
+                    codes, c = st.group_codes(fr.by)
+
+                    def provider(lams: np.ndarray, fr=fr) -> list[GroupStats]:
+                        return st.boxcox_stats(lams, fr.by, fr.bases, fr.bases_key)
+
+                    if st.has_rows:
+                        prof = profile_boxcox(st.y, codes, c, design, weights=st.weights, bases=fr.bases,
+                                              grid_provider=provider)
+                    else:
+                        prof = profile_boxcox(None, codes, c, design, grid_provider=provider, n=st.n,
+                                              sum_log_y=st.sum_log_y())
+                except (BendwiseError, ValueError, RuntimeError, FloatingPointError, np.linalg.LinAlgError) as exc:
+                    pruned.append(("Box–Cox y", f"the profile cannot be computed here ({exc})"
+                                   if not isinstance(exc, BendwiseError) else str(exc)))
+                else:
+                    interval = f"λ̂ = {prof.lam_hat:.3g}, 95% interval {_iv(prof.low, prof.high)}"
+                    t = boxcox(prof.chosen)
+                    if t == IDENTITY:
+                        pruned.append(("Box–Cox y", f"no transform needed: λ = 1 lies inside ({interval})"))
+                    else:
+                        move = f"Box–Cox y (λ = {prof.chosen:.3g}{', estimated' if prof.estimated else ''}; {interval})"
+                        ok.append((move, sp.with_(response=t, response_estimated=prof.estimated),
+                                   {"boxcox": prof}))
+        elif sp.response != IDENTITY:
+            pruned.append(("response transform", f"the response is already transformed ({sp.response.short('y')})"))
+        else:
+            pruned.append(("response transform", "weights were estimated for the untransformed response; "
+                           "transform first, then weight"))
+        # predictor transforms
+        if sp.predictor == IDENTITY and not sp.interactions:
+            for t, move in ((LOG, "log x"), (SQRT, "√x"), (RECIPROCAL, "1/x")):
+                prob = st.domain_problem(t, "x")
+                if prob:
+                    pruned.append((move, prob))
+                else:
+                    ok.append((move, sp.with_(predictor=t), {}))
+            if sp.degree != 1:
+                pruned.append(("power of x (Box–Tidwell)", "only for a straight line in x (degree 1)"))
+            elif st.approximate_groups:
+                pruned.append(("power of x (Box–Tidwell)", "not available when settings are grouped by a tolerance"))
+            elif st.x_min <= 0:
+                pruned.append(("power of x (Box–Tidwell)", f"a power of x needs x > 0; {xlab!r} goes down to {st.x_min:g}"))
+            else:
+                try:
+                    ps = box_tidwell(st, sp)
+                except (BendwiseError, ValueError, ZeroDivisionError, FloatingPointError, RuntimeError,
+                        np.linalg.LinAlgError) as exc:
+                    pruned.append(("power of x (Box–Tidwell)", f"did not converge ({exc})"))
+                else:
+                    t = power(ps.chosen)
+                    iv = f"α̂ = {ps.alpha_hat:.3g}, 95% interval {_iv(ps.low, ps.high)}, test of α = 1 p = {ps.p_alpha1:.3g}"
+                    if t == IDENTITY or ps.p_alpha1 >= self.alpha:
+                        pruned.append(("power of x (Box–Tidwell)", f"no evidence the power differs from 1 ({iv})"))
+                    else:
+                        move = f"x^α (α = {ps.chosen:.3g}{', estimated' if ps.estimated else ''}; {iv})"
+                        ok.append((move, sp.with_(predictor=t, predictor_estimated=ps.estimated), {"box_tidwell": ps}))
+        elif sp.predictor != IDENTITY:
+            pruned.append(("predictor transform", f"the predictor is already transformed ({sp.predictor.short('x')})"))
+        else:
+            pruned.append(("predictor transform", "this model has interactions with x; transform x before adding them"))
+        # polynomial degree
+        nd = sp.degree + 1
+        if nd > MAX_DEGREE:
+            pruned.append((f"degree {nd}", f"bendwise stops at degree {MAX_DEGREE}: higher degrees chase noise"))
+        elif nd > st.c - 2:
+            pruned.append((f"degree {nd}", f"{st.c} levels of x: degree {nd} would leave no degree of freedom for lack of fit"))
+        else:
+            ok.append((f"+ {'x²' if nd == 2 else 'x³'}", sp.with_(degree=nd), {}))
+        # covariates and interactions
+        for cov in st.covariates:
+            if cov.name not in sp.covariates:
+                ok.append((f"+ {cov.name}", sp.with_(covariates=sp.covariates + (cov.name,)), {}))
+        for name in sp.covariates:
+            if name in sp.interactions:
+                continue
+            if st.approximate_groups:
+                pruned.append((f"+ x:{name}", "not available when settings are grouped by a tolerance"))
+            else:
+                ok.append((f"+ x:{name}", sp.with_(interactions=sp.interactions + (name,)), {}))
+        # weights
+        if sp.weights is None and node.score is not None:
+            self._weights_move(sp, ok, pruned)
+        elif sp.weights is not None:
+            pruned.append(("weights", "already weighted"))
+        return ok, pruned
+
+    def expand(self, node_id: str, progress: ProgressFn | None = None, cancel: CancelFn | None = None) -> list[str]:
+        """Generate and score the children of one node (best-first growth); returns new ids."""
+        node = self.nodes[node_id]
+        if node.expanded:
+            return []
+        moves, pruned = self._moves(node)
+        node.pruned = pruned
+        new: list[str] = []
+        for i, (move, spec, detail) in enumerate(moves):
+            if cancel is not None and cancel():
+                return new
+            if spec == node.spec:
+                node.pruned.append((move, "gives the same model"))
+                continue
+            hit = self._by_spec.get(spec)
+            if hit is not None:
+                if self.nodes[hit].parent != node_id:  # made before a cancelled pass: not a second path
+                    self.nodes[hit].also_from.append((node_id, move))
+                continue
+            self._counter += 1
+            child = Node(f"n{self._counter}", node_id, move, spec, node.depth + 1, detail=detail)
+            self._add(child)
+            node.children.append(child.id)
+            self._score(child)
+            new.append(child.id)
+            if progress is not None:
+                progress(i + 1, len(moves), child.spec.label())
+        node.expanded = True
+        return new
+
+    def grow(self, depth: int = 2, progress: ProgressFn | None = None, cancel: CancelFn | None = None) -> None:
+        """Breadth-first growth to ``depth`` moves from the root."""
+        if depth < 0:
+            raise UsageError(f"depth {depth} must be ≥ 0")
+        frontier = ["root"]
+        for _ in range(depth):
+            nxt: list[str] = []
+            for nid in frontier:
+                if cancel is not None and cancel():
+                    return
+                if self.nodes[nid].score is None:
+                    continue
+                nxt += self.expand(nid, progress, cancel)
+            frontier = nxt
+
+    # ---- judging -----------------------------------------------------------------------
+    def scored(self) -> list[Node]:
+        """Nodes with scores, in creation order."""
+        return [n for n in self.nodes.values() if n.score is not None]
+
+    def best_aicc(self) -> float | None:
+        """Lowest AICc among scored nodes."""
+        vals = [n.score.criteria.aicc for n in self.scored() if n.score.criteria.aicc is not None]  # type: ignore[union-attr]
+        return min(vals) if vals else None
+
+    def passes(self, node: Node, alpha: float | None = None) -> bool:
+        """Candidate for the suggestion: passes lack of fit at α, or is untestable and fails nothing else."""
+        a = self.alpha if alpha is None else alpha
+        s = node.score
+        if s is None:
+            return False
+        verdict = s.lack_of_fit.passes(a)
+        if verdict is None:
+            return not s.fit.aliased and math.isfinite(s.fit.sigma)
+        return verdict
+
+    def sort_key(self, rule: str) -> Callable[[Node], tuple]:
+        """Ordering of nodes under a rule (missing values last)."""
+        if rule not in RULES:
+            raise UsageError(f"unknown rule {rule!r}; choose one of {', '.join(RULES)}")
+        inf = math.inf
+
+        def key(n: Node) -> tuple:
+            s = n.score
+            if s is None:
+                return (inf, inf, n.id)
+            aicc = s.criteria.aicc if s.criteria.aicc is not None else inf
+            if rule == "aicc":
+                return (aicc, s.k, _order(n.id))
+            if rule == "bic":
+                return (s.criteria.bic if s.criteria.bic is not None else inf, s.k, _order(n.id))
+            if rule == "simplest":
+                return (s.k, aicc, _order(n.id))
+            return (s.press if s.press is not None else inf, s.k, _order(n.id))
+
+        return key
+
+    def suggest(self, rule: str = "aicc", alpha: float | None = None,
+                policy: SuggestionPolicy | str = "default") -> Suggestion:
+        """Pick a node by ``rule`` among the candidates the evidence allows (engine.suggestion)."""
+        return _suggest(self, rule, alpha, policy)
+
+    # ---- evidence on the straight line (engine.suggestion weighs it) -----------------
+    def _scored_spec(self, spec: ModelSpec) -> NodeScore | None:
+        """The score of ``spec`` (a node of the tree, or scored aside and cached); None on error."""
+        hit = self._by_spec.get(spec)
+        if hit is not None:
+            return self.nodes[hit].score
+        if spec not in self._aside:
+            try:
+                self._aside[spec] = score_spec(self.study, spec, root_line=self._root_line)
+            except BendwiseError:
+                self._aside[spec] = None
+        return self._aside[spec]
+
+    def curvature_test(self) -> LackOfFit:
+        """The straight line against line + x² (nested F; Mandel's test without the 99% level)."""
+        kind = "curvature (line + x²)"
+        root = self.root.score
+        if root is None:
+            return LackOfFit(False, self.root.error or "the straight line could not be scored", kind)
+        if self.study.c < 3:
+            return LackOfFit(False, f"needs at least 3 levels of x ({self.study.c} here)", kind)
+        quad = self._scored_spec(ModelSpec(degree=2))
+        if quad is None:
+            return LackOfFit(False, "the quadratic could not be fitted", kind)
+        return nested_f(root.fit.sse, root.fit.df_resid, quad.fit.sse, quad.fit.df_resid, kind,
+                        floor=quad.fit.rounding)
+
+    def covariate_test(self, name: str) -> LackOfFit:
+        """Line + covariate against the line (nested F)."""
+        kind = "nested F"
+        root = self.root.score
+        other = self._scored_spec(ModelSpec(covariates=(name,)))
+        if root is None or other is None:
+            return LackOfFit(False, "a model could not be scored", kind)
+        return nested_f(root.fit.sse, root.fit.df_resid, other.fit.sse, other.fit.df_resid, kind,
+                        floor=other.fit.rounding)
+
+    def variance(self, response: Transform) -> VarianceTrend:
+        """The power-of-mean variance function of the replicates on one response scale (cached)."""
+        hit = self._variances.get(response)
+        if hit is None:
+            if self.study.weights is not None:
+                hit = VarianceTrend(False, f"weights were given (column {self.study.weights_name!r}); "
+                                    "bendwise does not estimate others on top")
+            else:
+                try:
+                    z, _ = self.study.transformed(response)
+                    st = self.study.group_stats(z, ("z", response.key()))
+                except BendwiseError as exc:
+                    hit = VarianceTrend(False, str(exc))
+                else:
+                    hit = variance_trend(st.count, st.mean, st.ss)
+            self._variances[response] = hit
+        return hit
+
+    def spread_evidence(self) -> VarianceTrend:
+        """The trend of spread with the mean on the straight line's scale (y itself)."""
+        return self.variance(IDENTITY)
+
+    def _weights_move(self, sp: ModelSpec, ok: list, pruned: list) -> None:
+        """Offer power-of-mean weights when the replicates show the spread following the mean."""
+        vt = self.variance(sp.response)
+        if not vt.available:
+            pruned.append(("weights", vt.reason))
+            return
+        iv = f"θ̂ = {vt.theta_hat:.3g}, 95% interval {_iv(vt.low, vt.high)}, test of θ = 0 p = {_fp(vt.p)}"
+        if vt.p >= self.alpha or vt.chosen == 0:
+            pruned.append(("weights", f"no evidence that the spread follows the mean ({iv})"))
+            return
+        how = "a round value inside the interval" if vt.snapped else "estimated"
+        ok.append((f"weights ∝ mean^(−2θ), θ = {vt.chosen:.3g} ({how}; {iv}; θ counts as a parameter)",
+                   sp.with_(weights=WeightRule("power-of-mean", vt.chosen, not vt.snapped)), {"variance": vt}))
+
+    def path(self, node_id: str) -> list[Node]:
+        """Nodes from the root to ``node_id``."""
+        out = []
+        cur: str | None = node_id
+        while cur is not None:
+            out.append(self.nodes[cur])
+            cur = self.nodes[cur].parent
+        return out[::-1]
+
+    def node_json(self, node: Node) -> dict:
+        """The stable JSON shape of a node (documented in the README)."""
+        st = self.study
+        kinds = {c.name: c.kind for c in st.covariates}
+        s = node.score
+        best = self.best_aicc()
+        out: dict = {
+            "id": node.id,
+            "parent": node.parent,
+            "move": node.move,
+            "depth": node.depth,
+            "label": node.spec.label(st.y_name, st.x_name),
+            "formula": node.spec.formula(st.y_name, st.x_name, kinds),
+            "spec": node.spec.as_json(),
+            "children": list(node.children),
+            "pruned": [{"move": m, "reason": r} for m, r in node.pruned],
+            "also_reached_from": [{"node": i, "move": m} for i, m in node.also_from],
+        }
+        if s is None:
+            out.update(k=None, error=node.error, lack_of_fit={"testable": False, "reason": node.error})
+            return out
+        out.update(
+            k=s.k,
+            coefficients={c.name: {"estimate": c.estimate, "se": c.se, "p": c.p} for c in s.fit.coefficients},
+            sigma=s.fit.sigma,
+            lack_of_fit=s.lack_of_fit.as_json(),
+            lack_of_fit_pure=s.lack_of_fit_pure.as_json(),
+            passes=self.passes(node),
+            nested=(_nested_json(node.nested) if node.nested is not None else {"reason": "the root has no parent"}),
+            chosen_from_data=list(node.spec.data_choices(st.y_name, st.x_name)),
+            criteria={**s.criteria.as_json(),
+                      "delta_aicc": (s.criteria.aicc - best) if (best is not None and s.criteria.aicc is not None) else None},
+            press=s.press,
+            press_note=s.press_note,
+            max_studentized_residual=s.max_studentized,
+            spread=s.spread.as_json(),
+            max_deviation_from_line=s.max_deviation,
+            deviation_note=s.deviation_note,
+            warnings=list(s.warnings),
+        )
+        if "boxcox" in node.detail:
+            out["boxcox"] = node.detail["boxcox"].as_json()
+        if "variance" in node.detail:
+            out["variance_function"] = node.detail["variance"].as_json()
+        if "box_tidwell" in node.detail:
+            ps = node.detail["box_tidwell"]
+            out["box_tidwell"] = {"alpha_hat": ps.alpha_hat, "low": ps.low, "high": ps.high, "chosen": ps.chosen,
+                                  "estimated": ps.estimated, "p_alpha_is_1": ps.p_alpha1}
+        return out
+
+    def as_json(self, rule: str = "aicc") -> dict:
+        """``{"suggested", "reason", "rule", "alpha", "caution", "nodes"}``."""
+        sug = self.suggest(rule)
+        return {
+            "suggested": sug.node,
+            "reason": sug.reason,
+            "rule": rule,
+            "alpha": self.alpha,
+            "evidence": [e.as_json() for e in sug.evidence],
+            "caution": POST_SEARCH_CAUTION,
+            "nodes": [self.node_json(n) for n in self.nodes.values()],
+        }
+
+
+def _nested_json(t: LackOfFit) -> dict:
+    if not t.testable:
+        return {"reason": t.reason}
+    return {"f": t.f, "df_num": t.df_lack, "df_den": t.df_pure, "p": t.p, "approximate": t.approximate}
+
+
+def _order(node_id: str) -> int:
+    return 0 if node_id == "root" else int(node_id[1:])
+
+
+def _iv(lo: float | None, hi: float | None) -> str:
+    a = "−∞" if lo is None else f"{lo:.3g}"
+    b = "∞" if hi is None else f"{hi:.3g}"
+    return f"({a}, {b})"
+
+
+def _fp(p: float | None) -> str:
+    if p is None or not math.isfinite(p):
+        return "—"
+    return "<1e-12" if p < 1e-12 else f"{p:.3g}"
+
+
+def grow(study: Study, *, depth: int = 2, alpha: float = 0.05, allowable_deviation: float | None = None,
+         progress: ProgressFn | None = None, cancel: CancelFn | None = None) -> RemedyTree:
+    """Build the remedy tree breadth-first to ``depth``."""
+    tree = RemedyTree(study, alpha=alpha, allowable_deviation=allowable_deviation)
+    tree.grow(depth, progress, cancel)
+    return tree
