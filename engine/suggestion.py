@@ -57,6 +57,9 @@ class SuggestionPolicy:
     line_yields: bool = True
     """Once evidence is established, the straight line is a candidate only when no remedy that
     answers the evidence passes lack of fit (False: the line competes as any other node)."""
+    spread_from_residuals: bool = True
+    """Read the spread trend from the straight line's residuals when the line passes lack of fit
+    (False: always from the replicates alone)."""
 
 
 SUGGESTION_POLICIES: dict[str, SuggestionPolicy] = {
@@ -66,6 +69,7 @@ SUGGESTION_POLICIES: dict[str, SuggestionPolicy] = {
     "gate-each-at-alpha": SuggestionPolicy("alpha", 2.0),
     "holm-two-sided-spread": SuggestionPolicy("holm", 2.0, False),
     "holm-line-competes": SuggestionPolicy("holm", 2.0, True, False),
+    "holm-spread-from-replicates": SuggestionPolicy("holm", 2.0, True, True, False),
 }
 """The documented rule and the alternatives measured beside it (bench/suggestion_rates.py)."""
 
@@ -143,9 +147,11 @@ def weigh_evidence(tree: RemedyTree, alpha: float, policy: SuggestionPolicy) -> 
     tests: list[tuple[str, str, float | None, str | None]] = []
     name, p, why = _shape_test(tree)
     tests.append((SHAPE, name, p, why))
-    trend = tree.spread_evidence()
+    trend = tree.spread_evidence(residuals=policy.spread_from_residuals, alpha=alpha)
     if trend.available and policy.spread_increasing:
-        tests.append((SPREAD, "spread growing with the mean (likelihood ratio, θ = 0 against θ > 0)",
+        source = ("the line's residuals" if policy.spread_from_residuals and tree.passes(tree.root, alpha)
+                  and tree.root.score is not None and tree.root.score.lack_of_fit.testable else "the replicates")
+        tests.append((SPREAD, f"spread growing with the mean ({source}; likelihood ratio, θ = 0 against θ > 0)",
                       trend.p_increasing, None))
     elif trend.available:
         tests.append((SPREAD, "trend of spread with the mean (likelihood ratio, θ = 0)", trend.p, None))
