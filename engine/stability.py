@@ -3,24 +3,27 @@
 The data are resampled N times *keeping the design*: every row keeps its setting (its x, its
 categories, its numeric covariates and weight) and receives a new response
 
-    y*_i = μ_i + s_i · r*_i.
+    y*_i = μ_i + s_i · r*_i,
+
+a residual bootstrap of a fixed design (Efron & Tibshirani, *An Introduction to the Bootstrap*,
+1993, ch. 9 [from memory]): the settings are the analyst's, not sampled. s_i is the spread of row
+i's x level — the root mean square there of the residuals of the suggested model's x-as-a-factor
+version (x as a factor plus the node's covariates), inflated by √(n/(n − p)) for the degrees
+of freedom that fit used — and r* is drawn with replacement from all rows' residuals divided by
+their own level's spread. Each level keeps its own spread without a variance model, so a spread
+that grows with the level stays in every resample, and no level collapses to identical
+replicates (drawing a level's own 2–3 rows with replacement does that one time in nine and fakes
+zero pure error). Two alternatives were tried and dropped: a wild bootstrap (each row's own
+residual times a random weight) blurred the level spreads so much that strong spread evidence
+(p ≈ 1e-4 on the demo) was found in only a few resamples; standardizing by a fitted power of the
+mean carried that model's misfit at the lowest level into every resample.
 
 The mean μ is the suggested model's fit (the line when nothing is suggested) plus its departures
-from the richest additive model the tree can reach (x as a factor plus every admitted covariate),
-shrunk by the positive-part James–Stein factor κ = √max(0, 1 − (p_full − p_model)·σ̂²/SS_dep):
-departures no larger than noise vanish, a clear lack of fit stays (James & Stein 1961; Efron &
-Morris 1973 [from memory]). Resampling around the raw level means instead would add the data's
-own noise to every resample as lack of fit, so even a clear quadratic would lose to a cubic or
-fail lack of fit in a quarter of resamples at 10 levels. s_i is the spread of row i's level under
-a power-of-mean variance function (θ̂ fitted to the replicates, ``engine.variance``, when the
-suggestion's evidence established a spread following the mean; equal spread otherwise; 1/√w with
-user weights) and r* a residual drawn with replacement from all rows' studentized residuals of
-x-as-a-factor plus the covariates, r_i = (y_i − ŷ_i) / (s_i √(1 − h_i)). This is the residual
-bootstrap of a fixed design (Efron & Tibshirani, *An Introduction to the Bootstrap*, 1993,
-ch. 9 [from memory]): the settings are the analyst's, not sampled. Drawing a level's own 2–3
-replicates with replacement instead would collapse a level to identical values one time in nine
-and fake zero pure error; pooling the studentized residuals avoids that and keeps a spread that
-grows with the mean.
+from that x-as-a-factor version shrunk by the positive-part James–Stein factor
+κ = √max(0, 1 − (p_full − p_model)·σ̂²/SS_dep): departures no larger than noise vanish, a clear lack
+of fit stays (James & Stein 1961; Efron & Morris 1973 [from memory]). Resampling around the raw
+level means instead adds the data's own noise to every resample as lack of fit, so even a clear
+quadratic loses to a cubic, or fails lack of fit, in a quarter of resamples at 10 levels.
 
 The same tree is grown on each resample (same depth, α and rule) and the node it suggests is
 counted (Efron 2014, JASA 109:991 judges a selection the same way [from memory]). A resample's
@@ -56,8 +59,8 @@ __all__ = ["Stability", "selection_stability", "form_key", "shares_table", "MAX_
 MAX_ROWS = 20_000
 """Above this many rows each resample is drawn from a seeded stratified sample of this size."""
 SCHEME = ("residual bootstrap of the design: every row keeps its x and covariates and gets the suggested "
-          "model's fit plus its shrunken departures from x-as-a-factor, plus a studentized residual drawn from "
-          "all rows and scaled to its level's spread")
+          "model's fit plus its shrunken departures from x as a factor, plus a residual drawn from all rows, "
+          "each standardized by its own level's spread and rescaled to the receiving level's")
 NONE, OTHER = "none", "other"
 
 
@@ -149,7 +152,7 @@ def _stratified_sample(codes: np.ndarray, c: int, limit: int, rng: np.random.Gen
 
 @dataclass(frozen=True, slots=True, eq=False)
 class _Generator:
-    """What every resample needs: the fit, each row's spread, and the pool of residuals."""
+    """What every resample needs: the world's mean and spread per row, and the residual pool."""
 
     fitted: np.ndarray
     scale: np.ndarray
@@ -159,21 +162,22 @@ class _Generator:
         return self.fitted + self.scale * self.pool[rng.integers(0, self.pool.size, self.fitted.size)]
 
 
-def _generator(study: Study, spread: bool = True, model_fit: np.ndarray | None = None,
-               model_rank: int = 0) -> _Generator:
-    """The resampling world: its mean per row, each row's spread, and the residual pool.
+def _generator(study: Study, model_fit: np.ndarray | None = None, model_rank: int = 0,
+               covariates: tuple[str, ...] | None = None) -> _Generator:
+    """The resampling world: its mean and spread per row, and the pool of standardized residuals.
 
-    The residuals come from x-as-a-factor plus the covariates, studentized by level spread (a
-    power of the mean when ``spread``, i.e. when the analysis found the spread following the
-    mean; equal spread otherwise, so a chance pattern is not imprinted on every resample). The
-    mean is the suggested model's fit ``model_fit`` plus its departures from x-as-a-factor shrunk
-    by κ = √max(0, 1 − (p_full − p_model)·σ̂²/SS_dep) (positive-part James–Stein): departures no
-    larger than noise vanish, clear lack of fit is kept (module text)."""
-    from .variance import variance_trend
-
+    Residuals are those of x-as-a-factor plus ``covariates`` (the suggested node's; all of the
+    study's when None); each x level's spread is their root
+    mean square there (inflated by √(n/(n − p)) for the degrees of freedom that fit used; the
+    pooled value where a level has no replicate); the pool holds every residual divided by its
+    level's spread. The mean is the suggested model's fit ``model_fit`` plus its departures from
+    x-as-a-factor shrunk by κ = √max(0, 1 − (p_full − p_model)·σ̂²/SS_dep) (positive-part
+    James–Stein): departures no larger than noise vanish, clear lack of fit is kept."""
     n = study.n
     cols = [(study.x_codes == g).astype(float) for g in range(study.c)]
     for cov in study.covariates:
+        if covariates is not None and cov.name not in covariates:
+            continue
         if cov.kind == "categorical":
             cols += [(cov.values == j).astype(float) for j in range(1, len(cov.levels))]
         else:
@@ -184,38 +188,33 @@ def _generator(study: Study, spread: bool = True, model_fit: np.ndarray | None =
     q, r = np.linalg.qr(design)
     keep = np.abs(np.diag(r)) > 1e-10 * np.abs(np.diag(r)).max()
     q = q[:, keep]
-    target = study.y * sw
-    fitted = (q @ (q.T @ target)) / sw
-    lev = (q * q).sum(axis=1)
-    z, _ = study.transformed(_identity())
-    st = study.group_stats(z, ("z", _identity().key()))
-    trend = variance_trend(st.count, st.mean, st.ss)
-    theta = trend.theta_hat if trend.available and spread else 0.0
-    level_mean = np.abs(st.mean)
-    if theta and (level_mean > 0).all():
-        lm = np.log(level_mean)
-        spread = np.exp(theta * (lm - lm.mean()))[study.x_codes]
-    else:
-        spread = np.ones(n)
-    scale = spread / sw
-    ok = lev < 1 - 1e-9
-    resid = (study.y - fitted)[ok] / (scale[ok] * np.sqrt(1 - lev[ok]))
-    if resid.size == 0 or not np.any(resid):
+    fitted = (q @ (q.T @ (study.y * sw))) / sw
+    p_full = int(keep.sum())
+    e = (study.y - fitted) * sw
+    if n <= p_full or not np.any(e):
         raise UsageError("stability needs replicated settings: every row is fitted exactly by x as a factor "
                          "(no residual to resample)")
+    inflate = np.sqrt(n / (n - p_full))
+    codes = study.x_codes
+    cnt = np.bincount(codes, minlength=study.c).astype(float)
+    ss = np.bincount(codes, weights=e * e, minlength=study.c)
+    pooled = float(np.sqrt(ss.sum() / n)) * inflate
+    level = np.where((cnt > 1) & (ss > 0), np.sqrt(ss / np.maximum(cnt, 1)) * inflate, pooled)
+    scale = level[codes] / sw
+    pool = (e * inflate / level[codes])[(cnt[codes] > 1) & (ss[codes] > 0)]
+    pool = pool - pool.mean()
+    pool = pool / (float(np.sqrt(np.mean(pool**2))) or 1.0)
     world = fitted
     if model_fit is not None and np.isfinite(model_fit).all():
-        p_full = int(keep.sum())
         dep = fitted - model_fit
         ss_dep = float(np.sum((sw * dep) ** 2))
-        ss_res = float(np.sum((sw * (study.y - fitted)) ** 2))
-        if n > p_full and ss_dep > 0 and p_full > model_rank:
-            noise = (p_full - model_rank) * ss_res / (n - p_full)
+        if ss_dep > 0 and p_full > model_rank:
+            noise = (p_full - model_rank) * float(np.sum(e * e)) / (n - p_full)
             kappa = float(np.sqrt(max(0.0, 1.0 - noise / ss_dep)))
             world = model_fit + kappa * dep
         else:
             world = model_fit
-    return _Generator(world, scale, resid - resid.mean())
+    return _Generator(world, scale, pool)
 
 
 def _model_fit(tree: RemedyTree, node_id: str | None, study: Study) -> tuple[np.ndarray | None, int]:
@@ -311,8 +310,8 @@ def selection_stability(tree: RemedyTree, resamples: int, *, depth: int, seed: i
         base = _subset(base, rows)
     sug = tree.suggest(rule)
     fit, rank = _model_fit(tree, sug.node, base)
-    gen = _generator(base, spread=any(e.family == "spread" and e.established for e in sug.evidence),
-                     model_fit=fit, model_rank=rank)
+    node = tree.nodes[sug.node or "root"]
+    gen = _generator(base, model_fit=fit, model_rank=rank, covariates=node.spec.covariates)
     by_form = {form_key(n.spec): n.id for n in tree.nodes.values()}
     counts: Counter[str] = Counter()
     others: Counter[str] = Counter()
