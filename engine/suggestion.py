@@ -37,7 +37,7 @@ if TYPE_CHECKING:
     from .remedies import Node, RemedyTree
 
 __all__ = ["Evidence", "Suggestion", "SuggestionPolicy", "SUGGESTION_POLICIES", "suggest", "weigh_evidence",
-           "move_family", "RULES"]
+           "move_family", "RULES", "published_rates"]
 
 RULES = ("aicc", "bic", "simplest", "press")
 SHAPE, SPREAD = "shape", "spread"
@@ -224,7 +224,7 @@ def suggest(tree: RemedyTree, rule: str = "aicc", alpha: float | None = None,
     open_families = {e.family for e in evidence if e.established}
     scored = tree.scored()
     cands = [n for n in scored if tree.passes(n, a) and eligible(tree, n, open_families)]
-    if open_families and policy.line_yields and any(n.id != "root" for n in cands):
+    if open_families and policy.line_yields and policy.gate != "none" and any(n.id != "root" for n in cands):
         cands = [n for n in cands if n.id != "root"]
     key = tree.sort_key(rule)
     if not cands:
@@ -324,3 +324,13 @@ def _fp(p: float | None) -> str:
         return "—"
     return "<1e-12" if p < 1e-12 else f"{p:.3g}"
 
+
+
+def published_rates() -> dict:
+    """The rule's error rates as last measured by ``bench/suggestion_rates.py`` (the README's
+    table): ``{script, sets, depth, alpha, seed, rule, cells: [{design, truth, measure, rate,
+    low, high, n}]}``. Reports quote them beside every suggestion."""
+    import json
+    from pathlib import Path
+
+    return json.loads((Path(__file__).resolve().parent / "suggestion_rates.json").read_text(encoding="utf-8"))
