@@ -22,7 +22,6 @@ from pathlib import Path
 
 import pytest
 
-
 BENCH = Path(__file__).resolve().parents[2] / "bench" / "suggestion_rates.py"
 SEED = 7_700_421  # not the README's seed
 NULL_SETS = 200
