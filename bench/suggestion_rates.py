@@ -199,6 +199,20 @@ def _pct(k: int, n: int) -> str:
     return f"{100 * k / n:.1f} % ({100 * lo:.1f}–{100 * hi:.1f})"
 
 
+def rates_json(table: dict, sets: int, args) -> dict:
+    """The default rule's cells as plain JSON (rates with exact 95 % intervals)."""
+    cells = []
+    for (d, t, p), c in sorted(table.items()):
+        if p != "default":
+            continue
+        key = "remedy" if t in NULL_TRUTHS else "found"
+        lo, hi = clopper_pearson(c[key], c["n"])
+        cells.append({"design": d, "truth": t, "measure": "remedy suggested" if t in NULL_TRUTHS else "remedy found",
+                      "rate": c[key] / c["n"], "low": lo, "high": hi, "n": c["n"]})
+    return {"script": "bench/suggestion_rates.py", "sets": sets, "depth": args.depth, "alpha": args.alpha,
+            "seed": args.seed, "rule": "aicc", "cells": cells}
+
+
 def markdown(table: dict, policy: str = "default") -> str:
     """The README's two tables for one policy."""
     designs = [d for d in DESIGNS if any(k[0] == d and k[2] == policy for k in table)]
@@ -231,7 +245,12 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--quick", action="store_true", help="60 sets per cell")
     ap.add_argument("--policies", action="store_true", help="also run the alternative rules side by side")
+    ap.add_argument("--policy", action="append", metavar="NAME",
+                    help="run only these alternative rules (repeatable; see engine.SUGGESTION_POLICIES)")
     ap.add_argument("--md", help="write the tables (Markdown) to this file as well")
+    ap.add_argument("--json", metavar="PATH",
+                    help="write the default rule's rates as JSON (the published copy is "
+                    "engine/suggestion_rates.json, read by reports)")
     args = ap.parse_args(argv)
     sets = 60 if args.quick else args.sets
     policies: tuple[str, ...] = ("default",)
@@ -239,6 +258,8 @@ def main(argv: list[str] | None = None) -> int:
         from engine import SUGGESTION_POLICIES
 
         policies = ("default",) + tuple(p for p in SUGGESTION_POLICIES if p != "default")
+    if args.policy:
+        policies = tuple(args.policy)
     t0 = time.perf_counter()
     table = run(sets, depth=args.depth, alpha=args.alpha, policies=policies, base_seed=args.seed,
                 workers=args.workers)
@@ -257,6 +278,10 @@ def main(argv: list[str] | None = None) -> int:
     print(text)
     if args.md:
         Path(args.md).write_text(text + "\n", encoding="utf-8")
+    if args.json:
+        import json
+
+        Path(args.json).write_text(json.dumps(rates_json(table, sets, args), indent=1) + "\n", encoding="utf-8")
     _ = math
     return 0
 

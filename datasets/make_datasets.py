@@ -52,12 +52,13 @@ SENSOR_CV = 0.022  # spread grows with the level ...
 SENSOR_FLOOR_MV = 0.5  # ... on top of a small constant floor
 
 
-def sensor_rows() -> list[Row]:
-    rng = _rng(1)
+def sensor_rows(stream: int = 1, day_temps: dict[str, float] | None = None) -> list[Row]:
+    rng = _rng(stream)
     rows: list[Row] = []
-    for day in SENSOR_DAYS:
+    day_temps = SENSOR_DAY_TEMP_C if day_temps is None else day_temps
+    for day in day_temps:
         for i, conc in enumerate(SENSOR_LEVELS_MG_L, start=1):
-            temp = SENSOR_DAY_TEMP_C[day] + rng.uniform(-1.3, 1.3)
+            temp = day_temps[day] + rng.uniform(-1.3, 1.3)
             temp = round(temp, 1)
             mean = (
                 SENSOR_BLANK_MV
@@ -68,6 +69,15 @@ def sensor_rows() -> list[Row]:
             signal = mean + SENSOR_TEMP_MV_PER_C * (temp - SENSOR_TEMP_REF_C) + rng.normal(0.0, sd)
             rows.append((f"STD{i:02d}", f"{conc:.1f}", f"{signal:.2f}", day, f"{temp:.1f}"))
     return rows
+
+
+# (a2) sensor_calibration_run2.csv -- the same sensor and standards, three later days: an
+# independent run of the same truth, for confirming a model chosen on the first run
+SENSOR_RUN2_DAY_TEMP_C = {"day4": 23.1, "day5": 22.2, "day6": 23.8}
+
+
+def sensor_run2_rows() -> list[Row]:
+    return sensor_rows(stream=5, day_temps=SENSOR_RUN2_DAY_TEMP_C)
 
 
 # ---------------------------------------------------------------------------
@@ -163,6 +173,10 @@ FILES: dict[str, tuple[tuple[str, ...], Callable[[], list[Row]]]] = {
     "sensor_calibration.csv": (
         ("standard_id", "conc_mg_l", "signal_mv", "run_day", "temp_c"),
         sensor_rows,
+    ),
+    "sensor_calibration_run2.csv": (
+        ("standard_id", "conc_mg_l", "signal_mv", "run_day", "temp_c"),
+        sensor_run2_rows,
     ),
     "process_trial.csv": (("run_id", "setpoint_c", "yield_pct", "work_shift"), trial_rows),
     "straight_line.csv": (("dose_ug", "response_au"), line_rows),

@@ -21,7 +21,7 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")
 
 # Subcommand modules in tui/commands/, in the order --help lists them.
-_COMMANDS = ("check", "grow", "plan", "export", "apply", "demo", "open")
+_COMMANDS = ("check", "grow", "plan", "export", "apply", "confirm", "demo", "open")
 
 EXIT_OK = 0
 EXIT_FOUND = 1

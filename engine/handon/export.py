@@ -111,7 +111,7 @@ def _weights_block(study, spec) -> dict[str, Any]:
         m = np.abs(np.bincount(study.x_codes, weights=z, minlength=study.c) / cnt)
     else:
         m = np.abs(np.asarray(study.group_stats(None, ("z", spec.response.key())).mean, dtype=float))
-    g = float(np.exp(np.mean(np.log(m ** (-2.0 * rule.theta)))))
+    g = float(np.exp(-2.0 * rule.theta * np.mean(np.log(m))))  # in log space: no power overflows
     out.update(rule=rule.kind, theta=rule.theta, normaliser=g, approximate=True,
                description="w = |level mean of the transformed response|^(−2θ) / normaliser; "
                            "at a new point the fitted value stands in for the level mean")

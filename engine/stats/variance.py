@@ -35,6 +35,7 @@ CONVENTIONAL_THETAS = (0.0, 1.0, 0.5, 1.5, 2.0, -0.5, -1.0)
 MIN_REPLICATES = 3
 """A level informs the variance function only with at least this many replicates."""
 _CHI2_1_95 = 3.841458820694124  # χ²₁(0.95), common practice
+_EPS = float(np.finfo(float).eps)
 
 
 @dataclass(frozen=True, slots=True)
@@ -79,15 +80,33 @@ def _logsumexp(a: np.ndarray) -> float:
     return top + math.log(float(np.sum(np.exp(a - top))))
 
 
-def variance_trend(count: np.ndarray, mean: np.ndarray, ss: np.ndarray) -> VarianceTrend:
+def variance_trend(count: np.ndarray, mean: np.ndarray, ss: np.ndarray, *,
+                   fitted: np.ndarray | None = None, rank: int = 0) -> VarianceTrend:
     """Fit Var = σ²|m|^(2θ) to per-level counts, means and within-level sums of squares.
 
     Needs at least 3 levels with ``MIN_REPLICATES`` or more replicates, those being more than
     half of all levels, a mean of one sign with some spread in log|m|, and some pure error.
+
+    With ``fitted`` (the level means of a fitted mean model of ``rank`` coefficients) the trend is
+    read from that model's residuals instead of the replicates alone, as regression diagnostics of
+    spread do (Cook & Weisberg 1983, Biometrika 70:1): each level contributes its pure error plus
+    n_j(ȳ_j − ŷ_j)², the power is of |ŷ_j|, and the degrees of freedom are shared as n_j(n − rank)/n.
+    Under a correct mean model this uses every residual degree of freedom.
     """
     count = np.asarray(count, dtype=float)
     mean = np.asarray(mean, dtype=float)
     ss = np.asarray(ss, dtype=float)
+    if fitted is not None:
+        fitted = np.asarray(fitted, dtype=float)
+        total = float(count.sum())
+        dev = mean - fitted
+        dev = np.where(np.abs(dev) > 64 * _EPS * np.abs(mean), dev, 0.0)  # rounding is no departure
+        return _fit_trend(count, fitted, ss + count * dev**2, count * (total - rank) / total)
+    return _fit_trend(count, mean, ss, count - 1.0)
+
+
+def _fit_trend(count: np.ndarray, mean: np.ndarray, ss: np.ndarray, nu_all: np.ndarray) -> VarianceTrend:
+    """The likelihood of the module text with per-level degrees of freedom ``nu_all``."""
     rich = count >= MIN_REPLICATES
     if rich.sum() < 3 or 2 * rich.sum() <= count.size:
         return VarianceTrend(False, f"needs at least {MIN_REPLICATES} replicates at most levels "
@@ -97,7 +116,7 @@ def variance_trend(count: np.ndarray, mean: np.ndarray, ss: np.ndarray) -> Varia
     use = rich & (np.abs(mean) > 0) & (ss > 0)
     if use.sum() < 3:
         return VarianceTrend(False, "fewer than 3 replicated levels with a non-zero mean and some spread")
-    nu = count[use] - 1.0
+    nu = nu_all[use]
     lm = np.log(np.abs(mean[use]))
     lm = lm - float(np.sum(nu * lm) / np.sum(nu))
     if float(np.ptp(lm)) < 1e-9:

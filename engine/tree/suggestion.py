@@ -37,7 +37,7 @@ if TYPE_CHECKING:
     from .tree import Node, RemedyTree
 
 __all__ = ["Evidence", "Suggestion", "SuggestionPolicy", "SUGGESTION_POLICIES", "suggest", "weigh_evidence",
-           "move_family", "RULES"]
+           "move_family", "RULES", "published_rates"]
 
 RULES = ("aicc", "bic", "simplest", "press")
 SHAPE, SPREAD = "shape", "spread"
@@ -57,6 +57,9 @@ class SuggestionPolicy:
     line_yields: bool = True
     """Once evidence is established, the straight line is a candidate only when no remedy that
     answers the evidence passes lack of fit (False: the line competes as any other node)."""
+    spread_from_residuals: bool = True
+    """Read the spread trend from the straight line's residuals when the line passes lack of fit
+    (False: always from the replicates alone)."""
 
 
 SUGGESTION_POLICIES: dict[str, SuggestionPolicy] = {
@@ -66,6 +69,7 @@ SUGGESTION_POLICIES: dict[str, SuggestionPolicy] = {
     "gate-each-at-alpha": SuggestionPolicy("alpha", 2.0),
     "holm-two-sided-spread": SuggestionPolicy("holm", 2.0, False),
     "holm-line-competes": SuggestionPolicy("holm", 2.0, True, False),
+    "holm-spread-from-replicates": SuggestionPolicy("holm", 2.0, True, True, False),
 }
 """The documented rule and the alternatives measured beside it (bench/suggestion_rates.py)."""
 
@@ -143,9 +147,11 @@ def weigh_evidence(tree: RemedyTree, alpha: float, policy: SuggestionPolicy) -> 
     tests: list[tuple[str, str, float | None, str | None]] = []
     name, p, why = _shape_test(tree)
     tests.append((SHAPE, name, p, why))
-    trend = tree.spread_evidence()
+    trend = tree.spread_evidence(residuals=policy.spread_from_residuals, alpha=alpha)
     if trend.available and policy.spread_increasing:
-        tests.append((SPREAD, "spread growing with the mean (likelihood ratio, θ = 0 against θ > 0)",
+        source = ("the line's residuals" if policy.spread_from_residuals and tree.passes(tree.root, alpha)
+                  and tree.root.score is not None and tree.root.score.lack_of_fit.testable else "the replicates")
+        tests.append((SPREAD, f"spread growing with the mean ({source}; likelihood ratio, θ = 0 against θ > 0)",
                       trend.p_increasing, None))
     elif trend.available:
         tests.append((SPREAD, "trend of spread with the mean (likelihood ratio, θ = 0)", trend.p, None))
@@ -218,7 +224,7 @@ def suggest(tree: RemedyTree, rule: str = "aicc", alpha: float | None = None,
     open_families = {e.family for e in evidence if e.established}
     scored = tree.scored()
     cands = [n for n in scored if tree.passes(n, a) and eligible(tree, n, open_families)]
-    if open_families and policy.line_yields and any(n.id != "root" for n in cands):
+    if open_families and policy.line_yields and policy.gate != "none" and any(n.id != "root" for n in cands):
         cands = [n for n in cands if n.id != "root"]
     key = tree.sort_key(rule)
     if not cands:
@@ -318,3 +324,13 @@ def _fp(p: float | None) -> str:
         return "—"
     return "<1e-12" if p < 1e-12 else f"{p:.3g}"
 
+
+
+def published_rates() -> dict:
+    """The rule's error rates as last measured by ``bench/suggestion_rates.py`` (the README's
+    table): ``{script, sets, depth, alpha, seed, rule, cells: [{design, truth, measure, rate,
+    low, high, n}]}``. Reports quote them beside every suggestion."""
+    import json
+    from pathlib import Path
+
+    return json.loads((Path(__file__).resolve().parent / "suggestion_rates.json").read_text(encoding="utf-8"))

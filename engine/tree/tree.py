@@ -104,7 +104,7 @@ class RemedyTree:
         self.nodes: dict[str, Node] = {}
         self._by_spec: dict[ModelSpec, str] = {}
         self._aside: dict[ModelSpec, NodeScore | None] = {}
-        self._variances: dict[Transform, VarianceTrend] = {}
+        self._variances: dict[Transform | str, VarianceTrend] = {}
         self._counter = 0
         self._root_line: np.ndarray | None = None
         root = Node("root", None, "start: straight line", ModelSpec(), 0)
@@ -232,7 +232,7 @@ class RemedyTree:
                 ok.append((f"+ x:{name}", sp.with_(interactions=sp.interactions + (name,)), {}))
         # weights
         if sp.weights is None and node.score is not None:
-            self._weights_move(sp, ok, pruned)
+            self._weights_move(node, ok, pruned)
         elif sp.weights is not None:
             pruned.append(("weights", "already weighted"))
         return ok, pruned
@@ -384,13 +384,41 @@ class RemedyTree:
             self._variances[response] = hit
         return hit
 
-    def spread_evidence(self) -> VarianceTrend:
-        """The trend of spread with the mean on the straight line's scale (y itself)."""
-        return self.variance(IDENTITY)
+    def variance_of(self, node: Node, alpha: float | None = None) -> VarianceTrend:
+        """The variance function for weights on ``node``: from the node's residuals (pure error plus
+        each level's departure from its fit) when the node fits (passes lack of fit at α) and its
+        groups are the x levels; else from the replicates alone, which a wrong mean cannot blur
+        (cached per node and α)."""
+        a = self.alpha if alpha is None else alpha
+        key = f"node {node.id} {a!r}"
+        hit = self._variances.get(key)
+        if hit is None:
+            base = self.variance(node.spec.response)
+            s = node.score
+            by_level = not node.spec.covariates and not self.study.approximate_groups
+            fits = s is not None and s.lack_of_fit.passes(a) is True
+            if not (fits and by_level) or not base.available and "weights were given" in (base.reason or ""):
+                hit = base
+            else:
+                z, _ = self.study.transformed(node.spec.response)
+                st = self.study.group_stats(z, ("z", node.spec.response.key()))
+                # the fit's groups may split x levels by categories it does not use: one value per level
+                cats = tuple(c.name for c in self.study.covariates if c.kind == "categorical")
+                fitted = np.empty(self.study.c)
+                fitted[self.study.group_parent(cats)] = np.asarray(s.fit.group_fitted)
+                hit = variance_trend(st.count, st.mean, st.ss, fitted=fitted, rank=s.fit.rank)
+            self._variances[key] = hit
+        return hit
 
-    def _weights_move(self, sp: ModelSpec, ok: list, pruned: list) -> None:
-        """Offer power-of-mean weights when the replicates show the spread following the mean."""
-        vt = self.variance(sp.response)
+    def spread_evidence(self, residuals: bool = True, alpha: float | None = None) -> VarianceTrend:
+        """The trend of spread with the mean for the straight line: from its residuals when it fits
+        (``variance_of``; default) or from the replicates alone."""
+        return self.variance_of(self.root, alpha) if residuals else self.variance(IDENTITY)
+
+    def _weights_move(self, node: Node, ok: list, pruned: list) -> None:
+        """Offer power-of-mean weights when the node's residuals show the spread following the mean."""
+        sp = node.spec
+        vt = self.variance_of(node)
         if not vt.available:
             pruned.append(("weights", vt.reason))
             return

@@ -15,6 +15,7 @@ from statsmodels.stats.anova import anova_lm
 DATASETS = Path(__file__).resolve().parents[2] / "datasets"
 NAMES = (
     "sensor_calibration.csv",
+    "sensor_calibration_run2.csv",
     "process_trial.csv",
     "straight_line.csv",
     "no_replicates.csv",
@@ -62,6 +63,7 @@ def test_generator_leaves_no_temp_files(regenerated: Path) -> None:
 def test_headers_are_plain_column_names() -> None:
     expected = {
         "sensor_calibration.csv": "standard_id,conc_mg_l,signal_mv,run_day,temp_c",
+        "sensor_calibration_run2.csv": "standard_id,conc_mg_l,signal_mv,run_day,temp_c",
         "process_trial.csv": "run_id,setpoint_c,yield_pct,work_shift",
         "straight_line.csv": "dose_ug,response_au",
         "no_replicates.csv": "load_kn,strain_um",

@@ -22,8 +22,6 @@ from pathlib import Path
 
 import pytest
 
-pytestmark = pytest.mark.slow
-
 BENCH = Path(__file__).resolve().parents[2] / "bench" / "suggestion_rates.py"
 SEED = 7_700_421  # not the README's seed
 NULL_SETS = 200
@@ -53,6 +51,7 @@ def rates():
     return sim, null, found
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("design", ["6x3", "4x2", "10x4", "uneven"])
 def test_straight_line_rarely_gets_a_remedy(rates, design):
     sim, null, _ = rates
@@ -63,6 +62,7 @@ def test_straight_line_rarely_gets_a_remedy(rates, design):
     assert low <= ALPHA, f"{design}: the rate {rate:.1%} is clearly above α (interval from {low:.1%})"
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("design", ["6x3", "10x4"])
 def test_an_irrelevant_covariate_is_not_taken(rates, design):
     _, null, _ = rates
@@ -76,6 +76,7 @@ TARGETS = [("6x3", "quadratic", 0.85), ("10x4", "quadratic", 0.85), ("6x3", "sat
            ("10x4", "spread", 0.65), ("uneven", "spread", 0.65)]
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize(("design", "truth", "target"), TARGETS)
 def test_a_real_remedy_is_found(rates, design, truth, target):
     _, _, found = rates
@@ -103,3 +104,16 @@ def test_the_simulated_truths_have_their_feature():
     batch = sim.simulate("6x3", "batch", 0)
     assert set(batch["batch"]) == {"b1", "b2"} and (sim.simulate("4x2", "line+batch", 3)["batch"] == "b1").sum() == 4
     assert (sim.simulate("uneven", "lognormal", 0)["y"] > 0).all()
+
+
+def test_published_rates_match_the_readme_table():
+    """The rates reports quote (engine/suggestion_rates.json) are the README's table."""
+    from engine.tree.suggestion import published_rates
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    table = readme.split("**Now**", 1)[1].split("**Before**", 1)[0]
+    doc = published_rates()
+    assert doc["sets"] >= 1000 and doc["depth"] == 2 and len(doc["cells"]) >= 20
+    for cell in doc["cells"]:
+        text = f"{100 * cell['rate']:.1f} % ({100 * cell['low']:.1f}–{100 * cell['high']:.1f})"
+        assert text in table, (cell, text)

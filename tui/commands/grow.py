@@ -27,7 +27,31 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="largest departure from the line that matters in practice (y units)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--quiet", action="store_true", help="no progress on stderr")
+    p.add_argument("--stability", type=_resamples, metavar="N",
+                   help="also regrow the tree on N resamples of the replicates and report how often each node "
+                   "wins the suggestion")
+    p.add_argument("--seed", type=_seed, default=0, metavar="S", help="seed of the resampling (default 0)")
     p.set_defaults(func=run)
+
+
+def _resamples(text: str) -> int:
+    try:
+        val = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"resamples {text!r} is not a whole number; give e.g. 200") from None
+    if not 1 <= val <= 100_000:
+        raise argparse.ArgumentTypeError(f"resamples {text!r} must lie between 1 and 100000, e.g. 200")
+    return val
+
+
+def _seed(text: str) -> int:
+    try:
+        val = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"seed {text!r} is not a whole number") from None
+    if val < 0:
+        raise argparse.ArgumentTypeError(f"seed {text!r} must be ≥ 0")
+    return val
 
 
 def build_tree(args: argparse.Namespace, progress=None):
@@ -55,12 +79,47 @@ def run(args: argparse.Namespace) -> int:
     study, tree = build_tree(args, progress)
     if progress is not None:
         sys.stderr.write("\r" + " " * 72 + "\r")
+    stab = None
+    if args.stability:
+        from engine.tree.stability import selection_stability
+
+        tick = None
+        if not args.quiet and sys.stderr.isatty():
+            def tick(done: int, total: int) -> None:
+                sys.stderr.write(f"\r  resampling {done}/{total}")
+                sys.stderr.flush()
+        stab = selection_stability(tree, args.stability, depth=args.depth, seed=args.seed, rule=args.rule,
+                                   progress=tick)
+        if tick is not None:
+            sys.stderr.write("\r" + " " * 40 + "\r")
     if args.json:
-        emit_json(tree.as_json(args.rule))
+        body = tree.as_json(args.rule)
+        if stab is not None:
+            body["stability"] = stab.to_dict()
+            for node in body["nodes"]:
+                node["stability"] = stab.share(node["id"])
+        emit_json(body)
         return 0
-    print("\n".join(render(study, tree, args.rule)))
+    lines = render(study, tree, args.rule)
+    if stab is not None:
+        lines[-2:-2] = render_stability(stab, tree)
+    print("\n".join(lines))
     _ = POST_SEARCH_CAUTION
     return 0
+
+
+def render_stability(stab, tree) -> list[str]:
+    """The stability table: the five most frequent winners and a one-line reading."""
+    from engine.tree.stability import shares_table
+
+    out = ["", f"Selection stability · {stab.resamples} resamples, seed {stab.seed}, rule {stab.rule}",
+           f"  {stab.scheme}"]
+    if stab.sample_note:
+        out.append(f"  {stab.sample_note}")
+    rows = [[nid, label[:48], f"{100 * share:.1f} %"] for nid, label, share in shares_table(stab, tree)]
+    out += ["  " + line for line in table(rows, ["node", "model", "wins"], right={2})]
+    out.append(f"  {stab.reading()}")
+    return out
 
 
 def verdict_word(tree, node) -> str:
