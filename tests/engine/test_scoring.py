@@ -53,19 +53,7 @@ def _anova(reduced, full) -> pd.Series:
 # ----------------------------------------------------------------------------- data
 
 
-@pytest.fixture(scope="module")
-def sensor() -> pd.DataFrame:
-    return pd.read_csv(DATA / "sensor_calibration.csv")
-
-
-@pytest.fixture(scope="module")
-def sensor_study(sensor):
-    return engine.make_study(sensor, y=Y, x=X, covariates=["run_day", "temp_c"])
-
-
-@pytest.fixture(scope="module")
-def sensor_tree(sensor_study):
-    return grow(sensor_study, depth=2)
+# sensor, sensor_study, sensor_tree: tests/conftest.py
 
 
 def _crossed_frame() -> pd.DataFrame:
