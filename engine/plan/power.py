@@ -428,7 +428,7 @@ def design_power(
     to state it in σ units), or as ``means`` (true mean per level; ``delta`` then rescales that
     curve's departure from a line to the given size). Under it the lack-of-fit statistic is
     noncentral F(c−2, n−c, λ) with λ = Σ n_j (μ_j − μ̃_j)²/σ², μ̃ the n_j-weighted least-squares
-    line through the true means (METHODS.md, "Power of the lack-of-fit test"); the x² statistic is
+    line through the true means (docs/METHODS.md, "Power of the lack-of-fit test"); the x² statistic is
     F(1, n−3) with numerator noncentrality the part of that sum explained by x² and, when the
     curve is not a quadratic, a noncentral denominator too. ``tests`` limits the work to some
     of the two; the lack-of-fit test needs a level with 2+ observations, the x² test does not.

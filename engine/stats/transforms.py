@@ -1,7 +1,7 @@
 """Transforms of the response and of the predictor, with their domains and Jacobians.
 
 The log-likelihood of the original y after fitting z = g(y) is ℓ_y = ℓ_z + Σ log|g′(y)|
-(METHODS.md; Box & Cox 1964), so each transform knows ``log_abs_derivative``.
+(docs/METHODS.md; Box & Cox 1964), so each transform knows ``log_abs_derivative``.
 """
 
 from __future__ import annotations

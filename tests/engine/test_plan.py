@@ -33,7 +33,7 @@ def _simulate(levels, reps, means, sigma, alpha, n_sim, seed):
     lack of fit = [(SSE_line − SS_pure)/(c−2)] / [SS_pure/(n−c)], and the x² test =
     (SSE_line − SSE_quad) / [SSE_quad/(n−3)].
     """
-    # reference: definitions in METHODS.md ("Pure-error lack of fit", "Mandel's fitting test");
+    # reference: definitions in docs/METHODS.md ("Pure-error lack of fit", "Mandel's fitting test");
     # critical values from scipy.stats.f
     levels = np.asarray(levels, float)
     reps = np.broadcast_to(np.asarray(reps), levels.shape)
@@ -200,7 +200,7 @@ def test_three_levels_make_both_tests_the_same():
 
 
 def test_curvature_test_beats_lack_of_fit_for_a_quadratic():
-    # METHODS.md: the 1-df test is more powerful against a quadratic bend when c ≥ 4
+    # docs/METHODS.md: the 1-df test is more powerful against a quadratic bend when c ≥ 4
     for c in range(4, 10):
         dp = design_power(spaced_levels(c, 0, 1), 3, delta=0.7)
         assert dp.curvature.power > dp.lack_of_fit.power

@@ -115,7 +115,7 @@ def test_open_set_brown_forsythe(open_set):
 
 def test_open_set_mandel(open_set):
     _, result, line = open_set
-    # reference: METHODS.md — Mandel's PG equals statsmodels linear_reset(power=2, exog, F)
+    # reference: docs/METHODS.md — Mandel's PG equals statsmodels linear_reset(power=2, exog, F)
     ref = linear_reset(line, power=2, test_type="exog", use_f=True)
     mandel = result.mandel
     assert mandel.testable
