@@ -137,24 +137,28 @@ def load_table(
     """Read a table from a file (or ``-`` for stdin) into a DataFrame.
 
     Text files get their delimiter detected (comma, semicolon, tab, pipe); ``decimal=','``
-    reads numbers written as 1,25. Standard input is recognised by its bytes (Parquet, Excel,
+    reads numbers written as 1,25, and with ``decimal=None`` a decimal comma is assumed when it is
+    unambiguous (a non-comma delimiter, every comma inside a number, no number with a point).
+    Lines starting with ``#`` at the top are skipped as comments. What was assumed (decimal mark,
+    skipped lines, which Excel sheet was read) is listed in ``frame.attrs["read_notes"]``. Standard input is recognised by its bytes (Parquet, Excel,
     JSON lines or a JSON array, else text). Errors are :class:`DataError` with one line naming
     the file and what to do; a header that names one column twice is refused.
     """
-    dec = decimal or "."
-    if dec not in {".", ","}:
+    if decimal not in {None, ".", ","}:
         raise UsageError(f"decimal mark {decimal!r} is not supported; use '.' or ','")
     name = str(source)
+    notes: list[str] = []
     if name == "-":
-        frame, header = _read_stdin(sheet, dec, delimiter)
+        frame, header = _read_stdin(sheet, decimal, delimiter, notes)
         name = "standard input"
     else:
-        frame, header = _read_path(name, sheet, dec, delimiter)
+        frame, header = _read_path(name, sheet, decimal, delimiter, notes)
     if frame.shape[0] == 0:
         raise DataError(f"{name} has no data rows; check the file")
     _refuse_duplicate_names(name, header if header is not None and len(header) == frame.shape[1]
                             else [str(c) for c in frame.columns])
     frame.columns = [str(c).strip() for c in frame.columns]
+    frame.attrs["read_notes"] = notes
     return frame
 
 
@@ -172,7 +176,8 @@ def _refuse_duplicate_names(name: str, header: list[str]) -> None:
                             "rename them so every column has its own name")
 
 
-def _read_stdin(sheet: str | None, dec: str, delimiter: str | None) -> tuple[pd.DataFrame, list[str] | None]:
+def _read_stdin(sheet: str | None, dec: str | None, delimiter: str | None,
+                notes: list[str]) -> tuple[pd.DataFrame, list[str] | None]:
     import pandas as pd
 
     name = "standard input"
@@ -189,23 +194,22 @@ def _read_stdin(sheet: str | None, dec: str, delimiter: str | None) -> tuple[pd.
             except ImportError:
                 raise DataError("reading Parquet needs pyarrow; install it with: pip install 'bendwise[parquet]'") from None
         if kind == "excel":
-            return _read_excel(io.BytesIO(raw), name, sheet)
+            return _read_excel(io.BytesIO(raw), name, sheet, notes)
         if kind != "text":
             _refuse_kind(kind, name, "save it to a file and ")
         text = _decode(raw)
         first = text.lstrip()[:1]
         if first in ("{", "["):
             return _read_json(text, name), None
-        sep = delimiter or _sniff_delimiter(text[:65536], dec)
-        return _read_text(io.StringIO(text), name, dec, sep), _text_header(text[:65536], sep)
+        return _text_table(io.StringIO(text), text[:65536], name, dec, delimiter, notes)
     except DataError:
         raise
     except Exception as exc:  # noqa: BLE001 - readers raise many types; the user needs one line
         raise _unreadable(name, exc) from None
 
 
-def _read_path(name: str, sheet: str | None, dec: str, delimiter: str | None
-               ) -> tuple[pd.DataFrame, list[str] | None]:
+def _read_path(name: str, sheet: str | None, dec: str | None, delimiter: str | None,
+               notes: list[str]) -> tuple[pd.DataFrame, list[str] | None]:
     import pandas as pd
 
     path = Path(name)
@@ -225,7 +229,7 @@ def _read_path(name: str, sheet: str | None, dec: str, delimiter: str | None
                     "reading Parquet needs pyarrow; install it with: pip install 'bendwise[parquet]'"
                 ) from None
         if suffix in _EXCEL_SUFFIXES:
-            return _read_excel(path, name, sheet)
+            return _read_excel(path, name, sheet, notes)
         if suffix in _JSONL_SUFFIXES:
             return _read_json(_decode(path.read_bytes()), name), None
         with open(path, "rb") as fh:
@@ -233,9 +237,7 @@ def _read_path(name: str, sheet: str | None, dec: str, delimiter: str | None
         kind = _sniff_bytes(head)
         if kind != "text":
             _refuse_kind(kind, name, "")
-        sample = _decode(head)
-        sep = delimiter or _sniff_delimiter(sample, dec)
-        return _read_text(path, name, dec, sep), _text_header(sample, sep)
+        return _text_table(path, _decode(head), name, dec, delimiter, notes)
     except DataError:
         raise
     except Exception as exc:  # noqa: BLE001 - readers raise many types; the user needs one line
@@ -249,22 +251,80 @@ def _unreadable(name: str, exc: Exception) -> DataError:
     return DataError(f"cannot read {name} ({kind}{': ' + first if first else ''}); check the file format")
 
 
-def _read_excel(src, name: str, sheet: str | None) -> tuple[pd.DataFrame, list[str] | None]:
+def _read_excel(src, name: str, sheet: str | None, notes: list[str]) -> tuple[pd.DataFrame, list[str] | None]:
     import pandas as pd
 
     try:
-        frame = pd.read_excel(src, sheet_name=sheet if sheet is not None else 0)
-        if hasattr(src, "seek"):
-            src.seek(0)
-        head = pd.read_excel(src, sheet_name=sheet if sheet is not None else 0, header=None, nrows=1)
+        book = pd.ExcelFile(src)
     except ImportError:
         raise DataError("reading Excel needs openpyxl; install it with: pip install 'bendwise[excel]'") from None
-    except ValueError as exc:
-        if sheet is not None and "not found" in str(exc).lower():
-            raise DataError(f"{name}: no sheet named {sheet!r}; check --sheet") from None
-        raise
+    sheets = [str(n) for n in book.sheet_names]
+    if sheet is not None and sheet not in sheets:
+        raise DataError(f"{name}: no sheet named {sheet!r}; its sheets are {_quoted(sheets)}: check --sheet")
+    chosen = sheet if sheet is not None else sheets[0]
+    if len(sheets) > 1:
+        others = [n for n in sheets if n != chosen]
+        notes.append(f"read sheet {chosen!r} of {name}; other sheets: {_quoted(others)} (choose with --sheet)")
+    frame = book.parse(chosen)
+    head = book.parse(chosen, header=None, nrows=1)
     header = None if head.shape[0] == 0 else ["" if pd.isna(v) else str(v) for v in head.iloc[0].tolist()]
+    frame.attrs["other_sheets"] = [n for n in sheets if n != chosen]
     return frame, header
+
+
+def _quoted(names: list[str]) -> str:
+    shown = ", ".join(repr(n) for n in names[:8])
+    return shown + (", …" if len(names) > 8 else "")
+
+
+def _comment_lines(sample: str) -> int:
+    """How many lines at the top are comments (start with '#') or blank before the first one."""
+    k = 0
+    for line in _complete_lines(sample).splitlines():
+        if line.lstrip().startswith("#") or (not line.strip() and k):
+            k += 1
+        else:
+            break
+    return k
+
+
+def _decimal_comma(sample: str, sep: str) -> bool:
+    """True when a decimal comma is the only reading of the sample: the delimiter is not a comma,
+    some field is a number written with one comma (1,25), no field is a number with a point,
+    and no other field holds a comma."""
+    import re
+
+    if sep == ",":
+        return False
+    comma = re.compile(r"^[+-]?\d+,\d+([eE][+-]?\d+)?$")
+    point = re.compile(r"^[+-]?(\d+\.\d*|\.\d+)([eE][+-]?\d+)?$")
+    rows = list(csv.reader(io.StringIO(_complete_lines(sample)), delimiter=sep, skipinitialspace=True))[1:]
+    fields = [c.strip() for r in rows for c in r]
+    n_comma = sum(bool(comma.match(c)) for c in fields)
+    if n_comma == 0 or any(point.match(c) for c in fields):
+        return False
+    return all(comma.match(c) or "," not in c for c in fields)
+
+
+def _text_table(src, sample: str, name: str, dec: str | None, delimiter: str | None,
+                notes: list[str]) -> tuple[pd.DataFrame, list[str] | None]:
+    """Read a text table: skip comment lines at the top, find the delimiter, and assume a decimal
+    comma only when ``dec`` is None and nothing else can be meant (saying so in ``notes``)."""
+    skip = _comment_lines(sample)
+    body = "\n".join(_complete_lines(sample).splitlines()[skip:]) + "\n"
+    if skip:
+        notes.append(f"skipped {skip} comment line{'s' if skip != 1 else ''} at the top of {name} (lines starting with #)")
+    sep = delimiter or _sniff_delimiter(body, dec or ".")
+    if dec is None:
+        dec = "."
+        if _decimal_comma(body, sep):
+            dec = ","
+            notes.append(f"read numbers such as 1,25 in {name} as 1.25 (decimal comma, {_SEP_NAMES.get(sep, repr(sep))}-separated); "
+                         "give --decimal . if the commas mean something else")
+    return _read_text(src, name, dec, sep, skip), _text_header(body, sep)
+
+
+_SEP_NAMES = {";": "semicolon", "\t": "tab", "|": "pipe", ",": "comma"}
 
 
 def _text_header(sample: str, sep: str) -> list[str] | None:
@@ -308,13 +368,14 @@ def _read_json(text: str, name: str) -> pd.DataFrame:
     return pd.read_json(io.StringIO(text), lines=True)
 
 
-def _read_text(buf, name: str, dec: str, sep: str) -> pd.DataFrame:
+def _read_text(buf, name: str, dec: str, sep: str, skip: int = 0) -> pd.DataFrame:
     import pandas as pd
 
     try:
-        return pd.read_csv(buf, sep=sep, decimal=dec, encoding="utf-8-sig" if not isinstance(buf, io.StringIO) else None, skipinitialspace=True)
+        return pd.read_csv(buf, sep=sep, decimal=dec, encoding="utf-8-sig" if not isinstance(buf, io.StringIO) else None,
+                           skipinitialspace=True, skiprows=skip)
     except UnicodeDecodeError:
-        return pd.read_csv(buf, sep=sep, decimal=dec, encoding="latin-1", skipinitialspace=True)
+        return pd.read_csv(buf, sep=sep, decimal=dec, encoding="latin-1", skipinitialspace=True, skiprows=skip)
     except pd.errors.EmptyDataError:
         raise DataError(f"{name} is empty; check the file") from None
     except pd.errors.ParserError as exc:

@@ -75,7 +75,7 @@ def load_study(args: argparse.Namespace, progress=None):
             def progress(text: str) -> None:
                 sys.stderr.write(f"\r  {text[:70]:<70}" if text else "\r" + " " * 72 + "\r")
                 sys.stderr.flush()
-        return make_sql_study(
+        return _tell_cleaning(make_sql_study(
             args.data,
             y=args.y,
             x=args.x,
@@ -85,10 +85,10 @@ def load_study(args: argparse.Namespace, progress=None):
             decimal=args.decimal,
             delimiter=delim,
             progress=progress,
-        )
+        ), [])
     frame = load_table(args.data, sheet=args.sheet, decimal=args.decimal, delimiter=delim)
     source = "<stdin>" if args.data == "-" else Path(args.data).name
-    return make_study(
+    return _tell_cleaning(make_study(
         frame,
         y=args.y,
         x=args.x,
@@ -96,7 +96,18 @@ def load_study(args: argparse.Namespace, progress=None):
         weights=args.weights,
         tolerance=args.tolerance,
         source=source,
-    )
+    ), list(frame.attrs.get("read_notes", [])))
+
+
+def _tell_cleaning(study, notes: list[str]):
+    """Say on standard error what reading assumed and which rows were dropped (counts and first row
+    numbers), so it survives ``> file`` and ``--json``; nothing when all is plain."""
+    import sys
+
+    lines = notes + list(study.report.lines())
+    for line in lines:
+        sys.stderr.write(f"bendwise: {line}\n")
+    return study
 
 
 def table(rows: list[list[str]], header: list[str], indent: str = "  ", right: set[int] | None = None) -> list[str]:
