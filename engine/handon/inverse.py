@@ -27,7 +27,7 @@ import numpy as np
 from ..errors import DataError, UsageError
 from ..stats.dist import t_ppf
 from ..tree.scoring import predict_terms
-from .predict import check_level, outside, term_matrix, weight_at
+from .predict import OverCategories, check_level, outside, term_matrix, weight_at
 from .specfile import HandedModel
 
 __all__ = ["InverseResult", "fieller_line", "inverse_predict", "GRID_POINTS"]
@@ -207,9 +207,10 @@ def _numeric_row(model: HandedModel, y0: float, m: int, tq: float, covs: dict[st
     uw = None if w_user is None else np.array([w_user])
 
     def curve(t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        cv = {k: np.repeat(v, t.shape[0]) for k, v in covs.items()}
-        z = predict_terms(model.terms, model.beta, t, cv)
+        cv = {k: v if isinstance(v, OverCategories) else np.repeat(v, t.shape[0]) for k, v in covs.items()}
         xm = term_matrix(model.terms, t, cv)
+        z = xm @ model.beta if any(isinstance(v, OverCategories) for v in cv.values()) \
+            else predict_terms(model.terms, model.beta, t, cv)
         var = np.einsum("ij,jk,ik->i", xm, model.cov, xm)
         w = weight_at(model, z, None if uw is None else np.repeat(uw, t.shape[0]))
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -350,7 +351,8 @@ def inverse_predict(model: HandedModel, y: np.ndarray, *, replicates: int = 1,
             return [_checked(r) for r in _closed_rows(model, ys, replicates, tq, user_w)]
         out = []
         for k, y0 in enumerate(ys):
-            row_cov = {name: np.asarray(v)[k:k + 1] for name, v in covs.items()}
+            row_cov = {name: v if isinstance(v, OverCategories) else np.asarray(v)[k:k + 1]
+                       for name, v in covs.items()}
             w = None if user_w is None else float(user_w[k])
             out.append(_checked(_numeric_row(model, float(y0), replicates, tq, row_cov, w)))
     return out

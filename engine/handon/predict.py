@@ -57,8 +57,33 @@ def check_level(level: float) -> float:
     return float(level)
 
 
-def term_matrix(terms: tuple[Term, ...], t: np.ndarray, covs: dict[str, np.ndarray]) -> np.ndarray:
-    """Design rows (len(t) × p) of the raw terms; ``X @ beta`` equals :func:`predict_terms`."""
+@dataclass(frozen=True, slots=True)
+class OverCategories:
+    """A categorical covariate averaged over its categories with equal weight: the design row is
+    the mean of the rows at each category, so predictions follow the average curve over, say, the
+    days of the calibration. The interval is that of the average curve; a new day's own shift is
+    not in it."""
+
+    levels: tuple[str, ...]
+
+
+def term_matrix(terms: tuple[Term, ...], t: np.ndarray, covs: dict[str, Any]) -> np.ndarray:
+    """Design rows (len(t) × p) of the raw terms; ``X @ beta`` equals :func:`predict_terms`.
+    A covariate given as :class:`OverCategories` gets the mean of the rows at each category."""
+    spread = {k: v for k, v in covs.items() if isinstance(v, OverCategories)}
+    if spread:
+        import itertools
+
+        names = list(spread)
+        total = None
+        combos = list(itertools.product(*(spread[k].levels for k in names)))
+        for combo in combos:
+            fixed = dict(covs)
+            fixed.update({k: np.full(t.shape[0], lev, dtype=object) for k, lev in zip(names, combo, strict=True)})
+            part = term_matrix(terms, t, fixed)
+            total = part if total is None else total + part
+        assert total is not None
+        return total / len(combos)
     p = len(terms)
     cols = []
     for j in range(p):
@@ -178,17 +203,58 @@ def _numeric(frame: pd.DataFrame, col: str, role: str) -> np.ndarray:
     return arr
 
 
-def new_inputs(model: HandedModel, frame: pd.DataFrame, role: str) -> NewInputs:
+AVERAGE = "average"
+"""The value of ``set_values`` that averages a categorical covariate over its categories."""
+
+
+def held_covariates(model: HandedModel, set_values: dict[str, str], n: int) -> tuple[dict[str, Any], dict[str, list]]:
+    """Covariates held at one value for every row (``apply --hold NAME=VALUE``): a category the model
+    saw, a number for a numeric covariate, or ``average`` (categorical only: the equal-weight
+    average over the model's categories, :class:`OverCategories`)."""
+    known = {c.name.casefold(): c for c in model.covariates}
+    covs: dict[str, Any] = {}
+    text: dict[str, list] = {}
+    for name, value in set_values.items():
+        cov = known.get(name.casefold())
+        if cov is None:
+            uses = ", ".join(repr(c.name) for c in model.covariates) or "none"
+            raise UsageError(f"--hold {name}=…: the model has no covariate {name!r} (it uses {uses})")
+        value = value.strip()
+        if cov.kind == "numeric":
+            try:
+                number = float(value)
+            except ValueError:
+                raise UsageError(f"--hold {cov.name}={value}: {cov.name!r} is numeric; give a number") from None
+            if not math.isfinite(number):
+                raise UsageError(f"--hold {cov.name}={value}: give a finite number")
+            covs[cov.name] = np.full(n, number)
+            text[cov.name] = [number] * n
+        elif value.casefold() == AVERAGE:
+            covs[cov.name] = OverCategories(tuple(cov.levels))
+            text[cov.name] = [f"average of {len(cov.levels)}"] * n
+        elif value in cov.levels:
+            covs[cov.name] = np.full(n, value, dtype=object)
+            text[cov.name] = [value] * n
+        else:
+            raise UsageError(f"--hold {cov.name}={value}: the model never saw category {value!r}; use one of "
+                             f"{', '.join(cov.levels)} or 'average'")
+    return covs, text
+
+
+def new_inputs(model: HandedModel, frame: pd.DataFrame, role: str,
+               set_values: dict[str, str] | None = None) -> NewInputs:
     """Pick and check the columns a new table needs: the predictor (role 'x') or the response
-    (role 'y'), and every covariate the model uses. Missing columns and bad values raise
-    :class:`DataError` naming the column and row."""
+    (role 'y'), and every covariate the model uses that ``set_values`` does not hold (see
+    :func:`held_covariates`). Missing columns and bad values raise :class:`DataError` naming the
+    column and row."""
     name = model.predictor_name if role == "x" else model.response_name
     label = "predictor" if role == "x" else "response"
     col = resolve_column(frame, name, f"{label} column")
     values = _numeric(frame, col, label)
-    covs: dict[str, np.ndarray] = {}
-    text: dict[str, list] = {}
+    covs, text = held_covariates(model, set_values or {}, values.shape[0])
     for cov in model.covariates:
+        if cov.name in covs:
+            continue
         c = resolve_column(frame, cov.name, "covariate column")
         if cov.kind == "numeric":
             covs[cov.name] = _numeric(frame, c, "covariate")
@@ -204,8 +270,9 @@ def new_inputs(model: HandedModel, frame: pd.DataFrame, role: str) -> NewInputs:
             unknown = ~np.isin(arr, np.array(cov.levels, dtype=object))
             if unknown.any():
                 i = int(np.flatnonzero(unknown)[0])
-                raise DataError(f"covariate column {c!r} row {i + 1} has category {arr[i]!r}, which the model "
-                                f"never saw; use one of {', '.join(cov.levels)}")
+                raise DataError(f"covariate column {c!r} row {i + 1} has category {str(arr[i])!r}, which the model "
+                                f"never saw; use one of {', '.join(cov.levels)}, or hold it for every row with "
+                                f"--hold {cov.name}=CATEGORY or --hold {cov.name}=average (the average over them)")
             covs[cov.name] = arr
             text[cov.name] = list(arr)
     user_w = None
@@ -327,8 +394,9 @@ def predict_forward(model: HandedModel, x: np.ndarray, covs: dict[str, np.ndarra
             raise DataError(f"covariate {cov.name!r} is needed for predictions; add the column to the table")
     t = _t_values(model, x, model.predictor_name)
     with np.errstate(all="ignore"):
-        z = predict_terms(model.terms, model.beta, t, covs)
         xm = term_matrix(model.terms, t, covs)
+        z = xm @ model.beta if any(isinstance(v, OverCategories) for v in covs.values()) \
+            else predict_terms(model.terms, model.beta, t, covs)
         var_mean = np.einsum("ij,jk,ik->i", xm, model.cov, xm)
         se = np.sqrt(np.clip(var_mean, 0.0, None))
         w0 = weight_at(model, z, user_w)

@@ -577,7 +577,7 @@ def make_study(
             codes = remap[kept]
             if len(uniq) < 2:
                 raise DataError(
-                    f"covariate {col!r} has one category ({uniq[0]!r}) in the rows used; it cannot explain "
+                    f"covariate {col!r} has one category ({str(uniq[0])!r}) in the rows used; it cannot explain "
                     "anything: drop it from --covariates"
                 )
             if len(uniq) > MAX_CATEGORIES:

@@ -102,3 +102,10 @@ def test_dropped_rows_are_told_on_standard_error_with_json(tmp_path):
     assert out.returncode == 0, out.stderr
     json.loads(out.stdout)  # standard output stays pure JSON
     assert "non-numeric 'y'" in out.stderr and "rows 2" in out.stderr
+
+
+def test_messages_show_categories_as_text_not_python_values():
+    frame = pd.DataFrame({"x": [1, 1, 2, 2, 3, 3], "y": [1.0, 1.1, 2.0, 2.1, 3.0, 3.2], "lot": ["D4"] * 6})
+    with pytest.raises(DataError) as err:
+        engine.make_study(frame, y="y", x="x", covariates=["lot"])
+    assert "('D4')" in str(err.value) and "np.str_" not in str(err.value)

@@ -48,10 +48,30 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--replicates", type=_count, default=1, metavar="M",
                    help="with --inverse: each response value is the mean of M readings (default 1)")
     p.add_argument("--level", type=_level, default=0.95, help="confidence level of the intervals (default 0.95)")
+    p.add_argument("--hold", action="append", default=[], metavar="NAME=VALUE",
+                   help="hold a covariate at one value for every row instead of reading its column: a category "
+                   "the model saw, a number, or 'average' (a categorical covariate averaged over its categories "
+                   "with equal weight: the average curve over, say, the calibration days; a new day's own shift "
+                   "is not in the interval). Repeat for several covariates")
     p.add_argument("--sheet", metavar="NAME", help="Excel sheet of NEWDATA (default: the first)")
     p.add_argument("--decimal", choices=[".", ","], help="decimal mark of NEWDATA (default .)")
     p.add_argument("--delimiter", metavar="CHAR", help="field separator of NEWDATA (default: detected)")
     p.set_defaults(func=run)
+
+
+def _held(items: list[str]) -> dict[str, str]:
+    """``--hold NAME=VALUE`` options as a mapping (one line when malformed or repeated)."""
+    from engine.errors import UsageError
+
+    out: dict[str, str] = {}
+    for item in items:
+        name, sep, value = item.partition("=")
+        if not sep or not name.strip() or not value.strip():
+            raise UsageError(f"--hold {item!r}: write NAME=VALUE, e.g. --hold run_day=average")
+        if name.strip() in out:
+            raise UsageError(f"--hold {name.strip()} is given twice; give each covariate once")
+        out[name.strip()] = value.strip()
+    return out
 
 
 def run(args: argparse.Namespace) -> int:
@@ -69,8 +89,9 @@ def run(args: argparse.Namespace) -> int:
     delim = "\t" if args.delimiter in {"\\t", "tab", "TAB"} else args.delimiter
     frame = load_table(args.newdata, sheet=args.sheet, decimal=args.decimal, delimiter=delim)
     label = doc.get("node", {}).get("label", "") if isinstance(doc.get("node"), dict) else ""
+    held = _held(args.hold)
     if args.inverse:
-        inp = new_inputs(model, frame, "y")
+        inp = new_inputs(model, frame, "y", held)
         results = inverse_predict(model, inp.values, replicates=args.replicates, covs=inp.covs,
                                   level=args.level, user_w=inp.user_w)
         rows = []
@@ -81,10 +102,14 @@ def run(args: argparse.Namespace) -> int:
             rows.append(row)
         text = _render_inverse(model, rows, args.level, label)
     else:
-        inp = new_inputs(model, frame, "x")
+        inp = new_inputs(model, frame, "x", held)
         pred = predict_forward(model, inp.values, inp.covs, level=args.level, user_w=inp.user_w)
         rows = pred.rows(inp.cov_text)
         text = _render_forward(model, rows, args.level, label, pred.ci_of)
+    if held:
+        text.insert(1, "  held for every row: " + ", ".join(f"{k} = {v}" for k, v in held.items())
+                    + ("; 'average' is the average curve over the categories, without a new category's own shift"
+                       if any(v.casefold() == "average" for v in held.values()) else ""))
     if args.out:
         path = write_rows_csv(rows, args.out, force=args.force)
         if not args.json:
@@ -95,6 +120,7 @@ def run(args: argparse.Namespace) -> int:
             "model": label,
             "level": args.level,
             "replicates": args.replicates if args.inverse else None,
+            **({"held": held} if held else {}),
             "rows": rows,
             "caution": CAUTION,
         })

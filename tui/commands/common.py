@@ -20,7 +20,7 @@ def add_data_args(p: argparse.ArgumentParser, *, need_xy: bool = True, covariate
     p.add_argument("--weights", metavar="COL", help="column of positive weights (∝ 1/variance)")
     p.add_argument("--tolerance", metavar="T", help="merge settings closer than T (or T%% of the x range)")
     p.add_argument("--sheet", metavar="NAME", help="Excel sheet (default: the first)")
-    p.add_argument("--decimal", choices=[".", ","], help="decimal mark in text files (default .)")
+    p.add_argument("--decimal", choices=[".", ","], help="decimal mark in text files (default: a point, or a comma when nothing else can be meant)")
     p.add_argument("--delimiter", metavar="CHAR", help="field separator in text files (default: detected)")
     p.add_argument("--engine", choices=["auto", "memory", "duckdb"], default="auto",
                    help="where group totals are computed: in memory, or by DuckDB over the files "
@@ -120,3 +120,17 @@ def table(rows: list[list[str]], header: list[str], indent: str = "  ", right: s
         return (indent + "  ".join(cells)).rstrip()
 
     return [line(header), indent + "  ".join("─" * w for w in widths)] + [line(r) for r in rows]
+
+
+def category_notice(study, spec) -> str | None:
+    """One line when a model uses categorical covariates: predicting with it needs a category it
+    saw (a known run day, batch …); a new run needs ``apply --hold NAME=average`` or a model
+    without them."""
+    cats = [c.name for c in study.covariates if c.kind == "categorical" and c.name in spec.covariates]
+    if not cats:
+        return None
+    names = ", ".join(repr(c) for c in cats)
+    first = cats[0]
+    return (f"this model needs a known {names} to predict: bendwise apply reads it from the new table and refuses "
+            f"categories it never saw; for a new run use --hold {first}=average (the average curve over the "
+            f"categories seen; the new run's own shift is not in the interval) or choose a node without it")

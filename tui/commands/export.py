@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 import argparse
+import sys
 from pathlib import Path
 
-from .common import CAUTION, add_data_args, alpha_arg
+from .common import CAUTION, add_data_args, alpha_arg, category_notice
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -51,6 +52,9 @@ def run(args: argparse.Namespace) -> int:
     written = export_node(tree, node_id, Path(args.out), data_path=data_path, reading=reading,
                           rule=args.rule, force=args.force)
     label = tree.nodes[node_id].spec.label(study.y_name, study.x_name)
+    notice = category_notice(study, tree.nodes[node_id].spec)
+    if notice:
+        sys.stderr.write(f"bendwise: {notice}\n")
     print(f"bendwise export · node {node_id}: {label}")
     for path in written:
         print(f"  wrote {path}")

@@ -6,7 +6,7 @@ import argparse
 import sys
 
 from ..output import emit_json, fmt_num, fmt_p
-from .common import CAUTION, add_data_args, alpha_arg, load_study, table
+from .common import CAUTION, add_data_args, alpha_arg, category_notice, load_study, table
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -79,6 +79,10 @@ def run(args: argparse.Namespace) -> int:
     study, tree = build_tree(args, progress)
     if progress is not None:
         sys.stderr.write("\r" + " " * 72 + "\r")
+    sug_id = tree.suggest(args.rule).node
+    notice = None if sug_id is None else category_notice(study, tree.nodes[sug_id].spec)
+    if notice:
+        sys.stderr.write(f"bendwise: the suggested {sug_id}: {notice}\n")
     stab = None
     if args.stability:
         from engine.tree.stability import selection_stability
