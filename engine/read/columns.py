@@ -35,7 +35,7 @@ def resolve_column(frame: pd.DataFrame, name: str, role: str = "column") -> str:
     close = difflib.get_close_matches(key, list(folded), n=1, cutoff=0.6)
     hint = f"did you mean {folded[close[0]]!r}? " if close else ""
     listing = ", ".join(cols[:12]) + (", …" if len(cols) > 12 else "")
-    others = frame.attrs.get("other_sheets") or []
+    others = getattr(frame, "attrs", {}).get("other_sheets") or []
     sheets = f"; the workbook's other sheets are {', '.join(repr(o) for o in others[:8])} (choose with --sheet)" if others else ""
     raise DataError(f"{role} {name!r} not found; {hint}columns are: {listing}{sheets}")
 
