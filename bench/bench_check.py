@@ -29,7 +29,7 @@ import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-import engine  # noqa: E402
+import bendwise.engine as engine  # noqa: E402
 
 
 def make_frame(n: int, levels: int, seed: int = 0) -> pd.DataFrame:
