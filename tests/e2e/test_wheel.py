@@ -13,7 +13,6 @@ import subprocess
 from pathlib import Path
 
 import pytest
-
 from test_pty import Terminal, _env, pexpect  # the same pty helpers (tests/e2e on sys.path)
 
 WHEEL_BIN = os.environ.get("BENDWISE_WHEEL_BIN")

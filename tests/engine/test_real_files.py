@@ -8,10 +8,9 @@ import subprocess
 import sys
 from pathlib import Path
 
+import bendwise.engine as engine
 import pandas as pd
 import pytest
-
-import bendwise.engine as engine
 from bendwise.engine.errors import DataError
 
 REPO = Path(__file__).resolve().parents[2]
