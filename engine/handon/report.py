@@ -230,7 +230,8 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
                 f"{study.n:,} rows (the table was read through the SQL engine).", ""]
     if spec.covariates:
         out += ["Fitted values at the reference category and the mean of numeric covariates; residuals are the "
-                "model's own (fitted scale).", ""]
+                "model's own (fitted scale), each row's own categories and covariates included — so mean y − "
+                "fitted differs from the mean residual by the covariates' effect at that level.", ""]
     elif spec.response.kind != "identity" or w["rule"] != "none":
         out += [f"Residuals on the fitted scale{' times √w' if w['rule'] != 'none' else ''}; fitted values are "
                 "back-transformed medians.", ""]
@@ -300,8 +301,9 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
         zc = predict_terms(score.terms, beta, np.asarray(spec.predictor.forward(grid_x), dtype=float), covs_ref)
         yc = np.asarray(spec.response.inverse(zc), dtype=float)
     out += ["## Charts", "", f"Data (o) and fitted curve (*) on the original scale, {_code(y)} against {_code(x)}"
-            + (" (curve at the reference category / mean covariate)" if covs_ref else "") + ":", "", "```"]
-    out += text_chart([(xs[idx], ys[idx], "o"), (grid_x, yc, "*")])
+            + (" (curve at the reference category / mean covariate)" if covs_ref else "")
+            + "; a point drawn where the curve passes hides the curve, never the reverse:", "", "```"]
+    out += text_chart([(grid_x, yc, "*"), (xs[idx], ys[idx], "o")])
     out += ["```", "", "Residuals (o) and their level means (#) against " + _code(x) + ", fitted scale:", "", "```"]
     out += text_chart([(lr.x, lr.residual, "o"), (lr.level_x, lr.level_mean, "#")], zero_line=True)
     out += ["```", ""]

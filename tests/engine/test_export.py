@@ -438,3 +438,11 @@ def test_new_data_problems_name_the_row(line_tree, tmp_path):
         new_inputs(model, frame, "x")
     with pytest.raises(DataError, match="response_au"):
         new_inputs(model, frame, "y")
+
+
+def test_report_chart_draws_points_over_the_curve():
+    from bendwise.engine.handon.report import text_chart
+
+    x = np.array([0.0, 1.0, 2.0])
+    lines = text_chart([(x, x, "*"), (x, x, "o")], width=3, height=3)
+    assert "*" not in "".join(lines[:3]) and "".join(lines[:3]).count("o") == 3
