@@ -19,7 +19,7 @@ import tempfile
 import uuid
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -28,6 +28,9 @@ from ..errors import DataError, UsageError
 from ..read.files import data_files, describe_reading, file_digest
 from ..tree.tree import RemedyTree
 from .specfile import SCHEMA_VERSION, validate_spec
+
+if TYPE_CHECKING:
+    from ..tree.stability import Stability
 
 __all__ = [
     "EXPORT_FILES",
@@ -410,8 +413,12 @@ def _remove_earlier_export(folder: Path) -> None:
 
 def export_node(tree: RemedyTree, node_id: str, out_dir: str | Path, *, data_path: str | Path | None = None,
                 reading: dict[str, Any] | None = None, rule: str = "aicc", force: bool = False,
-                max_residuals: int = MAX_RESIDUALS, now: datetime | None = None) -> list[Path]:
+                max_residuals: int = MAX_RESIDUALS, now: datetime | None = None,
+                stability: Stability | None = None) -> list[Path]:
     """Write ``spec.json``, ``reproduce.py`` and ``report.md`` for one node into ``out_dir``.
+
+    ``stability`` (from ``selection_stability`` on the same tree) adds the selection shares to the
+    spec (key ``stability``) and a table to the report.
 
     ``data_path`` is the table the tree was grown from (its SHA-256 goes into the spec and the
     script finds it relative to the export); None when it came from standard input.
@@ -428,6 +435,8 @@ def export_node(tree: RemedyTree, node_id: str, out_dir: str | Path, *, data_pat
         data_files(data_path)  # the file, or a folder's or glob's files, must be there (one-line error)
     doc = build_spec(tree, node_id, data_path=data_path, reading=reading, rule=rule,
                      max_residuals=max_residuals, now=now)
+    if stability is not None:
+        doc["stability"] = {**stability.to_dict(), "exported_node_share": stability.share(node_id)}
     validate_spec(doc)  # what we write must read back
     rel = None
     if data_path is not None:

@@ -138,6 +138,29 @@ def _md_table(header: list[str], rows: list[list[str]]) -> list[str]:
     return out
 
 
+def _stability_section(tree: RemedyTree, node_id: str, stab: dict[str, Any] | None) -> list[str]:
+    """How often the suggestion rule picks each node when the data are resampled (only when the
+    export was asked for it: ``export --stability N``)."""
+    if not stab:
+        return []
+    y, x = tree.study.y_name, tree.study.x_name
+    rows = []
+    for nid, share in list(stab["shares"].items())[:5]:
+        node = tree.nodes.get(nid)
+        label = node.spec.label(y, x) if node is not None else (
+            "not in this tree" if nid != "none" else "no node qualified")
+        mark = " (this export)" if nid == node_id else ""
+        rows.append([_code(nid, table=True) + mark, _code(label, table=True), f"{100 * share:.1f} %"])
+    out = ["## How often this choice recurs", "",
+           f"The tree was grown again on {stab['resamples']} resamples of the data (seed {stab['seed']}; "
+           f"{_free(stab['scheme'])}) and the rule {_code(stab['rule'])} applied to each. This export's node "
+           f"was picked in {100 * stab['exported_node_share']:.1f} % of them.", ""]
+    out += _md_table(["node", "model", "share of resamples"], rows)
+    if stab.get("sample_note"):
+        out += ["", _free(stab["sample_note"])]
+    return out + [""]
+
+
 def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     """The report of one exported node (``doc`` is its spec document)."""
     from ..tree.residuals import residuals_by_level
@@ -267,6 +290,8 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
             + (f"node {_code(sug['node'])} — {_free(sug['reason'])}" if sug["node"] else f"no node — {_free(sug['reason'])}"),
             "", ("This export is the suggested node." if sug["exported_is_suggested"]
                  else "This export is NOT the suggested node: it was chosen by hand."), ""]
+
+    out += _stability_section(tree, node_id, doc.get("stability"))
 
     # limits
     out += ["## Detection and quantitation limits", ""]

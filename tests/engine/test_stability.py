@@ -4,6 +4,7 @@ cases near the margin are visibly split, and a seed repeats its shares."""
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import bendwise.engine as engine
 import numpy as np
@@ -140,3 +141,24 @@ def test_sql_study_resamples_a_sample_of_its_rows(tmp_path):
     stab = selection_stability(tree, 10, depth=1, seed=2)
     assert stab.sample_note and "SQL engine" in stab.sample_note
     assert abs(sum(stab.shares.values()) - 1) < 1e-12
+
+
+def test_export_with_stability_carries_the_shares_to_spec_and_report(tmp_path):
+    """export --stability N: the spec holds the shares, the report their table; spec and report agree."""
+    import json
+    import subprocess
+    import sys
+
+    repo = Path(__file__).resolve().parents[2]
+    out = subprocess.run([sys.executable, "-m", "bendwise.tui.cli", "export", str(repo / "datasets" / "straight_line.csv"),
+                          "-y", "response_au", "-x", "dose_ug", "--suggested", "--depth", "1", "--stability", "20",
+                          "--seed", "3", "-o", str(tmp_path / "m")], capture_output=True, text=True, cwd=repo,
+                         timeout=600)
+    assert out.returncode == 0, out.stderr
+    doc = json.loads((tmp_path / "m" / "spec.json").read_text(encoding="utf-8"))
+    stab = doc["stability"]
+    assert stab["resamples"] == 20 and stab["seed"] == 3
+    assert sum(stab["shares"].values()) == pytest.approx(1.0)
+    report = (tmp_path / "m" / "report.md").read_text(encoding="utf-8")
+    assert "## How often this choice recurs" in report
+    assert f"picked in {100 * stab['exported_node_share']:.1f} %" in report

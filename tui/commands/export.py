@@ -28,6 +28,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--depth", type=int, default=2, help="moves from the straight line (default 2)")
     p.add_argument("--rule", choices=RULES, default="aicc", help="suggestion rule (default aicc)")
     p.add_argument("--alpha", type=alpha_arg, default=0.05, help="level for lack of fit (default 0.05)")
+    from .grow import add_stability_args
+
+    add_stability_args(p)
     p.set_defaults(func=run)
 
 
@@ -37,7 +40,7 @@ def run(args: argparse.Namespace) -> int:
     from bendwise.engine.handon.export import export_node
     from bendwise.engine.read.files import describe_reading
 
-    from .grow import build_tree
+    from .grow import build_tree, compute_stability
 
     study, tree = build_tree(args)
     if args.suggested:
@@ -49,8 +52,9 @@ def run(args: argparse.Namespace) -> int:
         node_id = args.node
     data_path = None if args.data == "-" else Path(args.data)
     reading = describe_reading(data_path, delimiter=args.delimiter, decimal=args.decimal, sheet=args.sheet)
+    stab = compute_stability(args, tree)
     written = export_node(tree, node_id, Path(args.out), data_path=data_path, reading=reading,
-                          rule=args.rule, force=args.force)
+                          rule=args.rule, force=args.force, stability=stab)
     label = tree.nodes[node_id].spec.label(study.y_name, study.x_name)
     notice = category_notice(study, tree.nodes[node_id].spec)
     if notice:

@@ -27,11 +27,34 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="largest departure from the line that matters in practice (y units)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--quiet", action="store_true", help="no progress on stderr")
+    add_stability_args(p)
+    p.set_defaults(func=run)
+
+
+def add_stability_args(p: argparse.ArgumentParser) -> None:
+    """``--stability N`` and ``--seed S`` (grow and export)."""
     p.add_argument("--stability", type=_resamples, metavar="N",
                    help="also regrow the tree on N resamples of the replicates and report how often each node "
                    "wins the suggestion")
     p.add_argument("--seed", type=_seed, default=0, metavar="S", help="seed of the resampling (default 0)")
-    p.set_defaults(func=run)
+
+
+def compute_stability(args: argparse.Namespace, tree):
+    """Selection stability when ``--stability N`` was given (progress on a terminal), else None."""
+    if not args.stability:
+        return None
+    from bendwise.engine.tree.stability import selection_stability
+
+    tick = None
+    if not getattr(args, "quiet", False) and sys.stderr.isatty():
+        def tick(done: int, total: int) -> None:
+            sys.stderr.write(f"\r  resampling {done}/{total}")
+            sys.stderr.flush()
+    stab = selection_stability(tree, args.stability, depth=args.depth, seed=args.seed, rule=args.rule,
+                               progress=tick)
+    if tick is not None:
+        sys.stderr.write("\r" + " " * 40 + "\r")
+    return stab
 
 
 def _resamples(text: str) -> int:
@@ -83,19 +106,7 @@ def run(args: argparse.Namespace) -> int:
     notice = None if sug_id is None else category_notice(study, tree.nodes[sug_id].spec)
     if notice:
         sys.stderr.write(f"bendwise: the suggested {sug_id}: {notice}\n")
-    stab = None
-    if args.stability:
-        from bendwise.engine.tree.stability import selection_stability
-
-        tick = None
-        if not args.quiet and sys.stderr.isatty():
-            def tick(done: int, total: int) -> None:
-                sys.stderr.write(f"\r  resampling {done}/{total}")
-                sys.stderr.flush()
-        stab = selection_stability(tree, args.stability, depth=args.depth, seed=args.seed, rule=args.rule,
-                                   progress=tick)
-        if tick is not None:
-            sys.stderr.write("\r" + " " * 40 + "\r")
+    stab = compute_stability(args, tree)
     if args.json:
         body = tree.as_json(args.rule)
         if stab is not None:
