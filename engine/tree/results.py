@@ -8,7 +8,7 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 from ..checks.results import LackOfFit, NestedTest
-from ..numfmt import fmt_num, fmt_p, p_clause
+from ..numfmt import fmt_num, p_clause
 from ..stats.results import Coefficient, Criteria, SideTest
 
 if TYPE_CHECKING:
@@ -152,7 +152,7 @@ class NodeSummary:
             return f"{head}: not scored — {self.error}"
         assert self.lack_of_fit is not None and self.criteria is not None
         lof = self.lack_of_fit
-        lof_text = f"lack of fit p {fmt_p(lof.p)}" if lof.testable else "lack of fit untestable"
+        lof_text = f"lack of fit {p_clause(lof.p)}" if lof.testable else "lack of fit untestable"
         nested = f"; nested {p_clause(self.nested.p)}" if self.nested is not None and self.nested.testable else ""
-        d = "" if self.delta_aicc is None or not math.isfinite(self.delta_aicc) else f" (Δ {fmt_num(self.delta_aicc, 3)})"
+        d = "" if self.delta_aicc is None or not math.isfinite(self.delta_aicc) else f", ΔAICc {fmt_num(self.delta_aicc, 3)}"
         return f"{head}: k {self.k}; {lof_text}{nested}; AICc {fmt_num(self.criteria.aicc, 6)}{d}"
