@@ -24,7 +24,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from engine.errors import UsageError
+from bendwise.engine.errors import UsageError
 
 __all__ = [
     "LACK_OF_FIT",

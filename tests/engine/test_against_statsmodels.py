@@ -19,10 +19,10 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from statsmodels.stats.anova import anova_lm
 
-import engine
-from engine.checks.lack_of_fit import lack_of_fit, nested_f
-from engine.stats.groups import compute_group_stats
-from engine.stats.linalg import Column, Design, fit_design, poly_map
+import bendwise.engine as engine
+from bendwise.engine.checks.lack_of_fit import lack_of_fit, nested_f
+from bendwise.engine.stats.groups import compute_group_stats
+from bendwise.engine.stats.linalg import Column, Design, fit_design, poly_map
 
 REL = 1e-9
 

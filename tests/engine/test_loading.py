@@ -12,8 +12,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import engine
-from engine.errors import DataError
+import bendwise.engine as engine
+from bendwise.engine.errors import DataError
 
 X = [0.5, 0.5, 1.5, 1.5, 2.5, 2.5]
 Y = [1.25, 1.75, 3.5, 3.0, 5.25, 4.75]

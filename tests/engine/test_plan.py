@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from engine.errors import UsageError
-from engine.plan.power import (
+from bendwise.engine.errors import UsageError
+from bendwise.engine.plan.power import (
     CURVATURE,
     LACK_OF_FIT,
     design_power,

@@ -17,11 +17,11 @@ import pytest
 import statsmodels.formula.api as smf
 from scipy import optimize, stats
 
-import engine
-from engine.handon.export import build_spec
-from engine.handon.inverse import fieller_line, inverse_predict
-from engine.handon.predict import predict_forward
-from engine.handon.specfile import validate_spec
+import bendwise.engine as engine
+from bendwise.engine.handon.export import build_spec
+from bendwise.engine.handon.inverse import fieller_line, inverse_predict
+from bendwise.engine.handon.predict import predict_forward
+from bendwise.engine.handon.specfile import validate_spec
 
 DATASETS = Path(__file__).resolve().parents[2] / "datasets"
 

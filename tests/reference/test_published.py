@@ -16,8 +16,7 @@ from scipy import stats as sps
 from statsmodels.stats.anova import anova_lm
 from statsmodels.stats.diagnostic import linear_reset
 
-import engine
-
+import bendwise.engine as engine
 REL = 1e-9
 
 

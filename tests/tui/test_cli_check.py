@@ -18,7 +18,7 @@ import statsmodels.formula.api as smf
 from statsmodels.stats import diagnostic as dg
 from statsmodels.stats.anova import anova_lm
 
-from tui.cli import main
+from bendwise.tui.cli import main
 
 REL = 1e-9
 

@@ -117,7 +117,7 @@ class CompareScreen(Screen):
     def _body(self):
         from rich.console import Group
 
-        from engine.tree.tree import POST_SEARCH_CAUTION
+        from bendwise.engine.tree.tree import POST_SEARCH_CAUTION
 
         return Group(compare_table(self.board, self.a, self.b), Text(""), Text(POST_SEARCH_CAUTION, style="italic"))
 
