@@ -50,8 +50,9 @@ import pandas as pd
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-import engine  # noqa: E402
 from bendwise.engine.tree.tree import RemedyTree  # noqa: E402
+
+import engine  # noqa: E402
 
 COVARIATES = ("t1", "t2", "batch")
 REL = 1e-8

@@ -163,9 +163,8 @@ def _child_sql_tree(path: str, profile: bool) -> dict:
 
 
 def _child_mem_tree(path: str) -> dict:
-    import pandas as pd
-
     import bendwise.engine as engine
+    import pandas as pd
     from bendwise.engine.tree.tree import RemedyTree
 
     t0 = time.perf_counter()

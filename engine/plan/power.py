@@ -23,7 +23,6 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-
 from bendwise.engine.errors import UsageError
 
 __all__ = [

@@ -19,7 +19,6 @@ import shutil
 from pathlib import Path
 
 import pytest
-
 from bendwise.tui.cli import main
 
 ROOT = Path(__file__).resolve().parents[2]

@@ -10,11 +10,10 @@ import subprocess
 import sys
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import bendwise.engine as engine
 from bendwise.engine.errors import SpecError
 from bendwise.engine.handon.export import export_node
 from bendwise.engine.handon.inverse import inverse_predict

@@ -11,11 +11,10 @@ import json
 import math
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import bendwise.engine as engine
 from bendwise.engine.handon.confirm import confirm, model_spec_from_doc
 from bendwise.engine.handon.export import build_spec
 from bendwise.engine.handon.specfile import validate_spec

@@ -16,12 +16,11 @@ import textwrap
 from datetime import UTC, datetime
 from pathlib import Path
 
+import bendwise.engine as engine
 import jsonschema
 import numpy as np
 import pandas as pd
 import pytest
-
-import bendwise.engine as engine
 from bendwise.engine.errors import SpecError, UsageError
 from bendwise.engine.handon.export import (
     ExportExists,

@@ -6,10 +6,9 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-import pytest
-
 import bendwise.engine as engine
 import bendwise.engine.handon.export as export_mod
+import pytest
 from bendwise.engine.errors import UsageError
 from bendwise.engine.handon.export import EXPORT_FILES, export_node
 

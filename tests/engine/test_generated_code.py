@@ -17,12 +17,11 @@ import sys
 import tokenize
 from pathlib import Path
 
+import bendwise.engine as engine
 import jsonschema
 import numpy as np
 import pandas as pd
 import pytest
-
-import bendwise.engine as engine
 from bendwise.engine.handon.export import export_node
 from bendwise.engine.handon.specfile import schema_path, validate_spec
 

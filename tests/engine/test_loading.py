@@ -8,11 +8,10 @@ from __future__ import annotations
 
 import io
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import bendwise.engine as engine
 from bendwise.engine.errors import DataError
 
 X = [0.5, 0.5, 1.5, 1.5, 2.5, 2.5]

@@ -7,11 +7,10 @@ import math
 
 import numpy as np
 import pytest
-from hypothesis import given, settings
-from hypothesis import strategies as st
-
 from bendwise.engine.stats.numerics import CubicSpline as EngineSpline
 from bendwise.engine.stats.numerics import brentq as engine_brentq
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 
 @given(st.integers(4, 40), st.integers(0, 10_000))

@@ -15,16 +15,15 @@ import math
 from fractions import Fraction
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-from hypothesis import HealthCheck, given, settings
-from hypothesis import strategies as st
-
-import bendwise.engine as engine
 from bendwise.engine.errors import BendwiseError
 from bendwise.engine.handon.export import export_node
 from bendwise.engine.tree.tree import RemedyTree
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 FUZZ = settings(max_examples=120, deadline=None, derandomize=True, database=None,
                 suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])

@@ -10,8 +10,6 @@ import math
 
 import numpy as np
 import pytest
-from scipy import stats
-
 from bendwise.engine.errors import UsageError
 from bendwise.engine.plan.power import (
     CURVATURE,
@@ -22,6 +20,7 @@ from bendwise.engine.plan.power import (
     sigma_from_pure_error,
     spaced_levels,
 )
+from scipy import stats
 
 # ---------------------------------------------------------------- simulation of the real tests
 

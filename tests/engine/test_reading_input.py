@@ -12,11 +12,10 @@ import subprocess
 import sys
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import bendwise.engine as engine
 from bendwise.engine.errors import DataError, UsageError
 
 REPO = Path(__file__).resolve().parents[2]

@@ -11,11 +11,9 @@ import dataclasses
 import math
 from pathlib import Path
 
+import bendwise.engine as engine
 import pandas as pd
 import pytest
-from scipy import stats as sps
-
-import bendwise.engine as engine
 from bendwise.engine.checks.lack_of_fit import nested_f, nested_test
 from bendwise.engine.checks.results import LackOfFit, NestedTest
 from bendwise.engine.numfmt import count, fmt_num, p_clause
@@ -23,6 +21,7 @@ from bendwise.engine.stats.results import SideTest
 from bendwise.engine.tree.results import MoveDetail, NodeSummary
 from bendwise.engine.tree.suggestion import Evidence, Suggestion
 from bendwise.engine.tree.tree import grow
+from scipy import stats as sps
 
 DATA = Path(__file__).resolve().parents[2] / "datasets"
 

@@ -20,15 +20,12 @@ import re
 import warnings
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
-from hypothesis import HealthCheck, Phase, given, seed, settings
-from hypothesis import strategies as st
-
-import bendwise.engine as engine
 from bendwise.engine.backends.duckdb import (
     SqlStudy,
     aggregate_sql,
@@ -42,6 +39,8 @@ from bendwise.engine.tree.model_spec import ModelSpec, WeightRule
 from bendwise.engine.tree.scoring import score_spec
 from bendwise.engine.tree.tree import RemedyTree
 from bendwise.tui.cli import main
+from hypothesis import HealthCheck, Phase, given, seed, settings
+from hypothesis import strategies as st
 
 duckdb = pytest.importorskip("duckdb")
 
@@ -992,9 +991,8 @@ def test_series_sql_runs_unchanged_on_datafusion(tmp_path):
 
 def test_bartlett_from_groups_matches_scipy():
     # reference: scipy.stats.bartlett on the same groups
-    from scipy import stats
-
     from bendwise.engine.stats.spread import bartlett_from_groups
+    from scipy import stats
 
     rng = np.random.default_rng(4)
     groups = [rng.normal(0, s, k) for s, k in ((1.0, 5), (1.5, 8), (0.7, 3), (2.0, 12))]

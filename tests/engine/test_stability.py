@@ -5,11 +5,10 @@ from __future__ import annotations
 
 import json
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import bendwise.engine as engine
 from bendwise.engine.tree.stability import _generator, _resampled, form_key, selection_stability
 from bendwise.tui.cli import main
 

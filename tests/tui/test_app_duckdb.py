@@ -7,7 +7,6 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-
 from bendwise.engine.tree.tree import RemedyTree
 from bendwise.tui.cli import main
 from bendwise.tui.screens.data import DataRequest
@@ -122,7 +121,6 @@ def test_export_over_files_hands_on_the_same_model(tmp_path, capsys):
     import sys
 
     import jsonschema
-
     from bendwise.engine.handon.specfile import schema_path
 
     folder = _files(tmp_path)

@@ -8,7 +8,6 @@ import math
 from pathlib import Path
 
 import pytest
-
 from bendwise.engine import load_table, make_study
 from bendwise.engine.handon.specfile import schema_path
 from bendwise.engine.tree.tree import POST_SEARCH_CAUTION, RemedyTree

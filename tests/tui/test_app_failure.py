@@ -6,7 +6,6 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-
 from bendwise.engine.tree.tree import RemedyTree
 from bendwise.tui.app import make_app
 

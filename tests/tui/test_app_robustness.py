@@ -9,7 +9,6 @@ import time
 from pathlib import Path
 
 import pytest
-
 from bendwise.tui.app import make_app
 
 REPO = Path(__file__).resolve().parents[2]

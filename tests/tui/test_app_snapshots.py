@@ -6,7 +6,6 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-
 from bendwise.tui.app import make_app
 
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"

@@ -9,7 +9,6 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-
 from bendwise.engine import check, load_table, make_study
 from bendwise.engine.tree.tree import RemedyTree
 from bendwise.tui.app import make_app

@@ -8,7 +8,6 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
 from bendwise.engine.handon.specfile import load_spec
 from bendwise.tui.cli import main
 

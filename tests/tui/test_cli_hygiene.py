@@ -6,11 +6,10 @@ import subprocess
 import sys
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import bendwise.engine as engine
 from bendwise.engine.tree.tree import RemedyTree
 from bendwise.tui.cli import main
 from bendwise.tui.messages import TreeSummary

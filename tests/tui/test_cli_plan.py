@@ -7,7 +7,6 @@ import math
 
 import numpy as np
 import pytest
-
 from bendwise.engine.plan.power import design_power, search_designs
 from bendwise.tui.cli import main
 

@@ -4,9 +4,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import pandas as pd
-
 import bendwise.engine as engine
+import pandas as pd
 from bendwise.engine.numfmt import fmt_num, p_clause
 from bendwise.engine.tree.tree import RemedyTree
 from bendwise.tui.messages import TreeSummary

@@ -3,11 +3,10 @@ Bartlett from level variances with the SQL engine."""
 
 from __future__ import annotations
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import bendwise.engine as engine
 from bendwise.engine.tree.tree import RemedyTree
 from bendwise.tui.messages import TreeSummary
 from bendwise.tui.widgets.detail import render_node

@@ -27,9 +27,8 @@ from ..messages import (
 from .data import DataRequest, build_study
 
 if TYPE_CHECKING:
-    from textual.message import Message
-
     from bendwise.engine.stats.study import Study
+    from textual.message import Message
 
 __all__ = ["TreeWork"]
 
@@ -155,7 +154,6 @@ class TreeWork:
     @work(thread=True, exclusive=True, exit_on_error=False, group="charts")
     def _compute_charts(self, nid: str) -> None:
         import numpy as np
-
         from bendwise.engine.errors import BendwiseError
         from bendwise.engine.handon.chart_data import curve_chart, residual_chart
 
