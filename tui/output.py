@@ -1,4 +1,4 @@
-"""Small printing helpers shared by the line-mode commands (formatting only)."""
+"""Small printing helpers shared by the line-mode commands (numbers come from ``engine.numfmt``)."""
 
 from __future__ import annotations
 
@@ -6,6 +6,10 @@ import json
 import math
 import sys
 from typing import Any
+
+from bendwise.engine.numfmt import count, fmt_num, fmt_p, p_clause
+
+__all__ = ["emit_json", "fmt_num", "fmt_p", "p_clause", "count", "collinear_words"]
 
 
 def _clean(obj: Any) -> Any:
@@ -24,29 +28,6 @@ def _clean(obj: Any) -> Any:
 def emit_json(obj: Any) -> None:
     """Print one JSON object on stdout."""
     sys.stdout.write(json.dumps(_clean(obj), indent=2, allow_nan=False) + "\n")
-
-
-def fmt_num(v: float | None, digits: int = 4) -> str:
-    """Format a number with ``digits`` significant digits; '—' for a missing value."""
-    if v is None or (isinstance(v, float) and not math.isfinite(v)):
-        return "—"
-    if v == 0:
-        return "0"
-    a = abs(v)
-    if a >= 1e6 or a < 1e-4:
-        return f"{v:.{digits - 1}e}"
-    return f"{v:.{digits}g}"
-
-
-def fmt_p(p: float | None) -> str:
-    """Format a p-value; tiny values as '<1e-12'."""
-    if p is None or not math.isfinite(p):
-        return "—"
-    if p < 1e-12:
-        return "<1e-12"
-    if p < 1e-4:
-        return f"{p:.1e}"
-    return f"{p:.4f}"
 
 
 def collinear_words(aliased: tuple[str, ...] | list[str], weighted: bool) -> str:

@@ -10,9 +10,9 @@ import math
 from ..stats.dist import f_sf
 from ..stats.groups import GroupStats
 from ..stats.results import Fit
-from .results import LackOfFit
+from .results import LackOfFit, NestedTest
 
-__all__ = ["lack_of_fit", "nested_f"]
+__all__ = ["lack_of_fit", "nested_f", "nested_test"]
 
 
 def nested_f(sse_r: float, df_r: int, sse_f: float, df_f: int, kind: str, approximate: bool = False,
@@ -35,6 +35,15 @@ def nested_f(sse_r: float, df_r: int, sse_f: float, df_f: int, kind: str, approx
     ss = max(sse_r - sse_f, 0.0)
     f = (ss / (df_r - df_f)) / (sse_f / df_f)
     return LackOfFit(True, None, kind, ss, sse_f, df_r - df_f, df_f, f, f_sf(f, df_r - df_f, df_f), approximate)
+
+
+def nested_test(sse_r: float, df_r: int, sse_f: float, df_f: int, kind: str = "nested F",
+                approximate: bool = False, floor: float = 0.0) -> NestedTest:
+    """``nested_f`` as a test between two models (its own type, not a lack-of-fit result)."""
+    t = nested_f(sse_r, df_r, sse_f, df_f, kind, approximate, floor)
+    if not t.testable:
+        return NestedTest(False, t.reason, kind)
+    return NestedTest(True, None, kind, t.ss_lack, t.ss_pure, t.df_lack, t.df_pure, t.f, t.p, t.approximate)
 
 
 def lack_of_fit(stats: GroupStats, fit: Fit, *, approximate: bool = False) -> LackOfFit:

@@ -14,6 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import DataError
+from ..numfmt import count, fmt_p
 from ..stats.design import poly_design
 from ..stats.dist import f_sf
 from ..stats.groups import GroupStats
@@ -53,6 +54,7 @@ def _mandel(fit1: Fit, fit2: Fit | None, n: int, c: int) -> SideTest:
     return SideTest(
         name, True, pg, (1, n - 3), f_sf(pg, 1, n - 3),
         reason="partial F for adding x²; ISO 8466-1 judges it at the 99% level", alpha=MANDEL_ALPHA,
+        method="Mandel",
     )
 
 
@@ -105,7 +107,7 @@ class CheckResult:
     lack_found: bool | None
     """True when lack of fit is significant at alpha; None when untestable."""
 
-    def as_json(self) -> dict:
+    def to_dict(self) -> dict:
         """Stable JSON shape (names documented in the README)."""
         return {
             "source": self.source,
@@ -144,6 +146,18 @@ class CheckResult:
             "replicate_free": [t.as_json() for t in self.replicate_free],
             "criteria": self.criteria.as_json(),
         }
+
+    as_json = to_dict
+
+    def summary(self) -> str:
+        """Plain text: the data, the lack-of-fit test and the verdict (the CLI's closing lines)."""
+        lines = [f"{self.y_name} against {self.x_name} · {count(self.n, 'row')} · {count(self.levels, 'level')} "
+                 f"({self.replicated_levels} replicated)"]
+        lines.append(f"lack of fit ({self.lack_of_fit.kind}): {self.lack_of_fit.summary()}")
+        for t in (self.mandel, self.spread):
+            lines.append(f"{t.name}: {t.summary()}")
+        lines.append(self.verdict)
+        return "\n".join(lines)
 
 
 def _line_and_quadratic(study: Study) -> tuple[GroupStats, Fit, Fit | None, LackOfFit]:
@@ -275,7 +289,7 @@ def _verdict(lof: LackOfFit, alpha: float, study: Study) -> str:
     approx = " (approximate: settings were grouped by a tolerance)" if lof.approximate else ""
     if not lof.testable:
         return f"The lack-of-fit test cannot be run: {lof.reason}."
-    stat = f"F = {lof.f:.4g} on {lof.df_lack} and {lof.df_pure} df, p = {_p(lof.p)}"
+    stat = f"F = {lof.f:.4g} on {lof.df_lack} and {lof.df_pure} df, p = {fmt_p(lof.p)}"
     if lof.p < alpha:  # type: ignore[operator]
         return (
             f"NOT A STRAIGHT LINE: the level means depart from the line by more than the replicates "
@@ -287,7 +301,3 @@ def _verdict(lof: LackOfFit, alpha: float, study: Study) -> str:
     )
 
 
-def _p(p: float | None) -> str:
-    if p is None:
-        return "—"
-    return "<1e-12" if p < 1e-12 else f"{p:.3g}"

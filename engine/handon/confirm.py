@@ -24,7 +24,6 @@ holds, curve moved``, ``form rejected``, or ``untestable`` with the reason.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
@@ -33,6 +32,7 @@ import numpy as np
 from ..cautions import CAUTION
 from ..checks.results import LackOfFit
 from ..errors import SpecError, UsageError
+from ..numfmt import fmt_num, p_clause
 from ..stats.transforms import Transform, canonical_response
 from ..tree.model_spec import ModelSpec, WeightRule
 
@@ -144,13 +144,13 @@ class Confirmation:
                "", f"Verdict: {self.verdict.upper()} — {self.reason}", ""]
         f = self.form
         if f.testable:
-            out.append(f"  form (refitted, lack of fit)   F = {f.f:.4g} on {f.df_lack} and {f.df_pure} df, "
-                       f"p {_p(f.p)}   [{f.reason}]")
+            out.append(f"  form (refitted, lack of fit)   F = {fmt_num(f.f, 4)} on {f.df_lack} and {f.df_pure} df, "
+                       f"{p_clause(f.p)}   [{f.reason}]")
         else:
             out.append(f"  form (refitted, lack of fit)   not testable — {f.reason}")
         t = self.transfer
         if t.testable:
-            out.append(f"  transfer (exported curve)      F = {t.f:.4g} on {t.df1} and {t.df2} df, p {_p(t.p)}")
+            out.append(f"  transfer (exported curve)      F = {fmt_num(t.f, 4)} on {t.df1} and {t.df2} df, {p_clause(t.p)}")
         else:
             out.append(f"  transfer (exported curve)      not testable — {t.reason}")
         if t.max_deviation is not None:
@@ -158,18 +158,11 @@ class Confirmation:
             if self.allowable_deviation is not None:
                 judge = (f"; allowable {self.allowable_deviation:g}: "
                          f"{'every setting within' if t.within_allowable else 'beyond it'}")
-            out.append(f"  largest departure from the curve: {t.max_deviation:.4g} (at {t.max_deviation_at}){judge}")
+            out.append(f"  largest departure from the curve: {fmt_num(t.max_deviation, 4)} (at {t.max_deviation_at}){judge}")
         if self.dropped:
             out.append(f"  rows dropped: {'; '.join(self.dropped)}")
         out += ["", "No search ran on these data: these p-values are not optimistic.", CAUTION]
         return out
-
-
-def _p(p: float | None) -> str:
-    """'= 0.453' or '< 1e-12' (to follow a 'p')."""
-    if p is None or not math.isfinite(p):
-        return "= —"
-    return "< 1e-12" if p < 1e-12 else f"= {p:.3g}"
 
 
 def model_spec_from_doc(doc: dict[str, Any], model: HandedModel) -> ModelSpec:
@@ -320,20 +313,20 @@ def _verdict(form: FormTest, transfer: TransferTest, alpha: float, allowable: fl
     if not form.testable:
         return "untestable", f"the form cannot be tested on this run: {form.reason}"
     if form.p is not None and form.p < alpha:
-        return "form rejected", (f"the frozen form does not fit the new run (lack of fit p {_p(form.p)} < α = "
+        return "form rejected", (f"the frozen form does not fit the new run (lack of fit {p_clause(form.p)} < α = "
                                  f"{alpha:g}): search again on more data, or look for what changed")
     if not transfer.testable:
-        return "untestable", f"the form holds (p {_p(form.p)}), but the curve cannot be tested: {transfer.reason}"
+        return "untestable", f"the form holds ({p_clause(form.p)}), but the curve cannot be tested: {transfer.reason}"
     moved = transfer.p is not None and transfer.p < alpha
     beyond = transfer.within_allowable is False
     if moved or beyond:
         why = []
         if moved:
-            why.append(f"the settings depart from the exported curve (p {_p(transfer.p)} < α = {alpha:g})")
+            why.append(f"the settings depart from the exported curve ({p_clause(transfer.p)} < α = {alpha:g})")
         if beyond:
             why.append(f"a setting lies {transfer.max_deviation:.4g} from it, beyond the allowable {allowable:g}")
-        return "form holds, curve moved", (f"the form fits (p {_p(form.p)}), but " + " and ".join(why)
+        return "form holds, curve moved", (f"the form fits ({p_clause(form.p)}), but " + " and ".join(why)
                                            + ": refit the coefficients on this run before using them")
-    return "confirmed", (f"the form fits the new run (p {_p(form.p)}) and the new settings follow the exported "
-                         f"curve (p {_p(transfer.p)})"
+    return "confirmed", (f"the form fits the new run ({p_clause(form.p)}) and the new settings follow the exported "
+                         f"curve ({p_clause(transfer.p)})"
                          + (f", every one within {allowable:g}" if allowable is not None else ""))

@@ -245,7 +245,7 @@ def build_spec(tree: RemedyTree, node_id: str, *, data_path: str | Path | None =
                               "spread": line.spread.as_json(), "verdict": line.verdict},
             "path": [
                 {"node": n.id, "move": n.move, "label": n.spec.label(y, x),
-                 "nested": n.nested.as_json() if n.nested is not None else None}
+                 "nested": n.nested.to_spec_dict() if n.nested is not None else None}
                 for n in tree.path(node.id)[1:]
             ],
             "warnings": list(score.warnings),

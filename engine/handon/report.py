@@ -19,6 +19,7 @@ from typing import Any
 
 import numpy as np
 
+from ..numfmt import fmt_num, fmt_p, p_clause
 from ..tree.tree import RemedyTree
 
 __all__ = ["report_markdown", "text_chart"]
@@ -76,33 +77,22 @@ def text_chart(series: Sequence[tuple[np.ndarray, np.ndarray, str]], *, width: i
 
 
 def _n(v: float | None, digits: int = 5) -> str:
-    if v is None or not math.isfinite(v):
-        return "—"
-    if v == 0:
-        return "0"
-    if abs(v) >= 1e6 or abs(v) < 1e-4:
-        return f"{v:.{digits - 1}e}"
-    return f"{v:.{digits}g}"
-
-
-def _p(p: float | None) -> str:
-    if p is None or not math.isfinite(p):
-        return "—"
-    return "<1e-12" if p < 1e-12 else f"{p:.4g}"
+    """A quantity in the report: five significant digits unless told (``engine.numfmt``)."""
+    return fmt_num(v, digits)
 
 
 def _test_line(t: dict[str, Any], alpha: float | None = None) -> str:
     if not t.get("testable"):
         return f"not testable — {_free(str(t.get('reason')))}"
     if "f" in t:
-        out = f"F = {_n(t['f'])} on {t['df_lack']} and {t['df_pure']} df, p = {_p(t['p'])}"
+        out = f"F = {_n(t['f'])} on {t['df_lack']} and {t['df_pure']} df, {p_clause(t['p'])}"
         if alpha is not None:
             out += f" — {'passes' if t['p'] >= alpha else 'fails'} at α = {alpha:g}"
         if t.get("approximate"):
             out += " (approximate)"
         return out
     df = f" on ({', '.join(_n(d, 4) for d in t.get('df', []))})" if t.get("df") else ""
-    return f"statistic {_n(t['statistic'])}{df}, p = {_p(t['p'])}" + (f"; {_free(t['note'])}" if t.get("note") else "")
+    return f"statistic {_n(t['statistic'])}{df}, {p_clause(t['p'])}" + (f"; {_free(t['note'])}" if t.get("note") else "")
 
 
 def _visible(text: str) -> str:
@@ -212,7 +202,7 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     if w["rule"] != "none":
         out.append(f"- Weights: {spec.weights.describe() if spec.weights else w['rule']}")
     out.append("")
-    coef_rows = [[_code(c["name"], table=True), _n(c["estimate"], 8), _n(c["se"], 4), _p(c["p"])] for c in fit["coefficients"]]
+    coef_rows = [[_code(c["name"], table=True), _n(c["estimate"], 8), _n(c["se"], 4), fmt_p(c["p"])] for c in fit["coefficients"]]
     out += _md_table(["term", "estimate", "standard error", "p"], coef_rows)
     scale = "" if spec.response.kind == "identity" else f" (on the scale of {_code(spec.response.short(y))})"
     out += ["", f"- Residual SD σ̂ = {_n(fit['sigma'], 6)} on {fit['df_resid']} df{scale}; n = {fit['n']}",

@@ -5,7 +5,9 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-__all__ = ["Coefficient", "Fit", "Criteria", "criteria_from", "AnovaRow", "LevelRow", "SideTest", "test_method"]
+from ..numfmt import fmt_num, p_clause
+
+__all__ = ["Coefficient", "Fit", "Criteria", "criteria_from", "AnovaRow", "LevelRow", "SideTest"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -156,8 +158,18 @@ class SideTest:
     """True when the test is only indicative (no exact replicates)."""
     alpha: float | None = None
     """Level used for this test's own verdict (e.g. 0.01 for Mandel by ISO 8466-1)."""
+    method: str | None = None
+    """The method run, e.g. 'Brown–Forsythe' or 'Bartlett' (not part of the JSON; the name says it too)."""
 
-    def as_json(self) -> dict:
+    def summary(self) -> str:
+        """One line: 'statistic 2.31 on (3, 20), p = 0.107' or 'not run — reason'."""
+        if not self.testable:
+            return f"not run — {self.reason or 'no reason given'}"
+        df = f" on ({', '.join(fmt_num(d, 4) for d in self.df)})" if self.df else ""
+        return f"statistic {fmt_num(self.statistic, 4)}{df}, {p_clause(self.p)}" + (
+            " (approximate)" if self.approximate else "")
+
+    def to_dict(self) -> dict:
         """JSON shape."""
         out = {"name": self.name, "testable": self.testable}
         if self.testable:
@@ -168,12 +180,7 @@ class SideTest:
             out["reason" if not self.testable else "note"] = self.reason
         return out
 
-
-def test_method(name: str, default: str = "test") -> str:
-    """The method in a side test's name: 'Bartlett' from 'equal spread (Bartlett)'."""
-    if "(" in name and name.endswith(")"):
-        return name[name.rindex("(") + 1:-1]
-    return default
+    as_json = to_dict
 
 
 def criteria_from(loglik: float, k: int, n: int) -> Criteria:

@@ -65,7 +65,7 @@ def spread_test(z: np.ndarray, codes: np.ndarray, c: int, order: np.ndarray | No
         return SideTest(name, False, reason="the absolute deviations do not vary within levels (e.g. two "
                         "replicates per level): the spread test needs three or more replicates somewhere")
     f = (ssb / (k - 1)) / (ssw / (total - k))
-    return SideTest(name, True, f, (k - 1, total - k), f_sf(f, k - 1, total - k))
+    return SideTest(name, True, f, (k - 1, total - k), f_sf(f, k - 1, total - k), method="Brown–Forsythe")
 
 
 def bartlett_from_groups(count: np.ndarray, ss: np.ndarray, name: str = "equal spread (Bartlett)") -> SideTest:
@@ -87,4 +87,4 @@ def bartlett_from_groups(count: np.ndarray, ss: np.ndarray, name: str = "equal s
     stat /= 1.0 + (float((1.0 / (nk - 1.0)).sum()) - 1.0 / dof) / (3.0 * (k - 1))
     note = ("one pass over level variances, assumes normal errors within levels; Brown–Forsythe "
             "needs the rows: --engine memory")
-    return SideTest(name, True, stat, (k - 1,), chi2_sf(stat, k - 1), reason=note)
+    return SideTest(name, True, stat, (k - 1,), chi2_sf(stat, k - 1), reason=note, method="Bartlett")

@@ -466,7 +466,8 @@ def _row_diagnostics(study, spec, fr, stats, design, fit, big):
                 else:
                     press, note = float(np.sum((study.y - loo) ** 2)), None
         spread = spread_test(np.sqrt(w) * e, study.x_codes, study.c)
-        spread = SideTest(name, spread.testable, spread.statistic, spread.df, spread.p, spread.reason)
+        spread = SideTest(name, spread.testable, spread.statistic, spread.df, spread.p, spread.reason,
+                          method=spread.method)
         return press, note, rmax, spread
     # large tables: group-level shortcuts where exact, else a stated omission
     group_only = all(col.base is None for col in design.columns) and study.weights_name is None
@@ -491,7 +492,8 @@ def _row_diagnostics(study, spec, fr, stats, design, fit, big):
               else "computed on the response, not the residuals (no row pass here)")
     # the study names its test (Brown–Forsythe from rows, Bartlett from level variances in SQL)
     name = sp.name.replace("equal spread (", "equal spread of residuals (")
-    spread = SideTest(name, sp.testable, sp.statistic, sp.df, sp.p, "; ".join(r for r in (sp.reason, reason) if r) or None)
+    spread = SideTest(name, sp.testable, sp.statistic, sp.df, sp.p, "; ".join(r for r in (sp.reason, reason) if r) or None,
+                      method=sp.method)
     return press, note, rmax, spread
 
 

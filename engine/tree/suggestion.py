@@ -31,6 +31,7 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 from ..errors import UsageError
+from ..numfmt import fmt_num, fmt_p, p_clause
 from .model_spec import ModelSpec
 
 if TYPE_CHECKING:
@@ -91,10 +92,20 @@ class Evidence:
     reason: str | None = None
     """Why the test cannot be run, or a note."""
 
-    def as_json(self) -> dict:
+    def to_dict(self) -> dict:
         """JSON description."""
         return {"family": self.family, "test": self.test, "p": self.p, "threshold": self.threshold,
                 "established": self.established, "reason": self.reason}
+
+    as_json = to_dict
+
+    def summary(self) -> str:
+        """One line: family, test, p against its threshold, and whether it opens moves."""
+        if self.p is None:
+            return f"{self.family}: {self.test} — not run ({self.reason or 'no reason given'})"
+        bar = "" if self.threshold is None else f" (needed < {fmt_num(self.threshold, 3)})"
+        word = "established" if self.established else "not established"
+        return f"{self.family}: {self.test}, {p_clause(self.p)}{bar} — {word}"
 
 
 @dataclass(frozen=True, slots=True)
@@ -109,6 +120,17 @@ class Suggestion:
     """The reason in words."""
     evidence: tuple[Evidence, ...] = ()
     """The evidence weighed before any remedy was considered."""
+
+    def to_dict(self) -> dict:
+        """``{"suggested", "reason", "rule", "evidence"}`` as in ``grow --json``."""
+        return {"suggested": self.node, "reason": self.reason, "rule": self.rule,
+                "evidence": [e.to_dict() for e in self.evidence]}
+
+    def summary(self) -> str:
+        """Plain text: the suggested node (or none) and why, then one line per evidence test."""
+        lines = [f"{self.node or 'none'} — {self.reason}"]
+        lines += [f"  {e.summary()}" for e in self.evidence]
+        return "\n".join(lines)
 
 
 def move_family(parent: ModelSpec, child: ModelSpec) -> str:
@@ -256,8 +278,8 @@ def _evidence_words(evidence: tuple[Evidence, ...]) -> str:
             continue
         fam = e.family.replace("covariate:", "")
         mark = "<" if e.established else "≥"
-        shown.append(f"{fam} p = {_fp(e.p)} {mark} {e.threshold:.3g}" if e.threshold is not None
-                     else f"{fam} p = {_fp(e.p)}")
+        shown.append(f"{fam} p = {fmt_p(e.p)} {mark} {e.threshold:.3g}" if e.threshold is not None
+                     else f"{fam} p = {fmt_p(e.p)}")
     return "; ".join(shown)
 
 
@@ -266,7 +288,7 @@ def _no_candidate_reason(tree: RemedyTree, rule: str, alpha: float, evidence: tu
     opened = [e for e in evidence if e.established]
     if not line_passes and not opened:
         shape = evidence[0]
-        return (f"the straight line fails lack of fit at α = {alpha:g} (p = {_fp(shape.p)}), but with "
+        return (f"the straight line fails lack of fit at α = {alpha:g} (p = {fmt_p(shape.p)}), but with "
                 f"{sum(e.p is not None for e in evidence)} kinds of evidence weighed (Holm) that is not enough "
                 f"to justify a remedy ({_evidence_words(evidence)}). Measure more replicates (bendwise plan) "
                 "and look at the candidates yourself.")
@@ -282,7 +304,7 @@ def _reason(tree: RemedyTree, node: Node, rule: str, alpha: float, evidence: tup
     assert s is not None
     lab = node.spec.label(tree.study.y_name, tree.study.x_name)
     lof = s.lack_of_fit
-    part = f"passes lack of fit (p = {_fp(lof.p)})" if lof.testable else f"lack of fit untestable ({lof.reason})"
+    part = f"passes lack of fit (p = {fmt_p(lof.p)})" if lof.testable else f"lack of fit untestable ({lof.reason})"
     shown = _evidence_words(evidence)
     if node.id == "root":
         if not any(e.established for e in evidence):
@@ -317,12 +339,6 @@ def _reason(tree: RemedyTree, node: Node, rule: str, alpha: float, evidence: tup
         rs += (f"; its largest departure from the line is {s.max_deviation:.4g} (allowable {dev:g}: "
                f"{'within' if s.max_deviation <= dev else 'beyond'} it)")
     return rs
-
-
-def _fp(p: float | None) -> str:
-    if p is None or not math.isfinite(p):
-        return "—"
-    return "<1e-12" if p < 1e-12 else f"{p:.3g}"
 
 
 

@@ -9,6 +9,7 @@ The same model reached by two paths is one node.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -16,9 +17,10 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..cautions import POST_SEARCH_CAUTION
-from ..checks.lack_of_fit import nested_f
-from ..checks.results import LackOfFit
+from ..checks.lack_of_fit import nested_test
+from ..checks.results import NestedTest
 from ..errors import BendwiseError, UsageError
+from ..numfmt import fmt_p as _fp
 from ..stats.groups import GroupStats
 from ..stats.study import Study
 from ..stats.transforms import IDENTITY, LOG, RECIPROCAL, SQRT, Transform, boxcox, power
@@ -26,6 +28,7 @@ from ..stats.variance import VarianceTrend, variance_trend
 from .boxcox import profile_boxcox
 from .model_spec import ModelSpec, WeightRule
 from .powers import box_tidwell
+from .results import MoveDetail, NodeSummary
 from .scoring import NodeScore, _frame, build_design, score_spec
 from .suggestion import RULES, Suggestion, SuggestionPolicy
 from .suggestion import suggest as _suggest
@@ -60,7 +63,7 @@ class Node:
     """Scores (None when scoring failed: see ``error``)."""
     error: str | None = None
     """Why the node could not be scored."""
-    nested: LackOfFit | None = None
+    nested: NestedTest | None = None
     """Nested F against the parent, or the reason there is none."""
     children: list[str] = field(default_factory=list)
     """Child ids in creation order."""
@@ -70,24 +73,24 @@ class Node:
     """(node id, move) of other paths that reach the same model."""
     expanded: bool = False
     """True once its moves were generated."""
-    detail: dict = field(default_factory=dict)
+    detail: MoveDetail = field(default_factory=MoveDetail)
     """Move details (Box–Cox profile, Box–Tidwell search, variance fit)."""
 
 
-def _nested(parent: Node, child: Node) -> LackOfFit:
+def _nested(parent: Node, child: Node) -> NestedTest:
     kind = "nested F"
     ps, cs = parent.spec, child.spec
     if ps.response != cs.response:
-        return LackOfFit(False, f"different response scale ({ps.response.short('y')} vs {cs.response.short('y')}): "
+        return NestedTest(False, f"different response scale ({ps.response.short('y')} vs {cs.response.short('y')}): "
                          "compare AICc, not F", kind)
     if ps.weights != cs.weights:
-        return LackOfFit(False, "different weights: compare AICc, not F", kind)
+        return NestedTest(False, "different weights: compare AICc, not F", kind)
     if ps.predictor != cs.predictor:
-        return LackOfFit(False, "not nested: the predictor transform changes the x columns", kind)
+        return NestedTest(False, "not nested: the predictor transform changes the x columns", kind)
     if parent.score is None or child.score is None:
-        return LackOfFit(False, "a model could not be scored", kind)
+        return NestedTest(False, "a model could not be scored", kind)
     pf, cf = parent.score.fit, child.score.fit
-    return nested_f(pf.sse, pf.df_resid, cf.sse, cf.df_resid, kind, approximate=cs.weights is not None)
+    return nested_test(pf.sse, pf.df_resid, cf.sse, cf.df_resid, kind, approximate=cs.weights is not None)
 
 
 class RemedyTree:
@@ -257,7 +260,7 @@ class RemedyTree:
                     self.nodes[hit].also_from.append((node_id, move))
                 continue
             self._counter += 1
-            child = Node(f"n{self._counter}", node_id, move, spec, node.depth + 1, detail=detail)
+            child = Node(f"n{self._counter}", node_id, move, spec, node.depth + 1, detail=MoveDetail(**detail))
             self._add(child)
             node.children.append(child.id)
             self._score(child)
@@ -342,28 +345,28 @@ class RemedyTree:
                 self._aside[spec] = None
         return self._aside[spec]
 
-    def curvature_test(self) -> LackOfFit:
+    def curvature_test(self) -> NestedTest:
         """The straight line against line + x² (nested F; Mandel's test without the 99% level)."""
         kind = "curvature (line + x²)"
         root = self.root.score
         if root is None:
-            return LackOfFit(False, self.root.error or "the straight line could not be scored", kind)
+            return NestedTest(False, self.root.error or "the straight line could not be scored", kind)
         if self.study.c < 3:
-            return LackOfFit(False, f"needs at least 3 levels of x ({self.study.c} here)", kind)
+            return NestedTest(False, f"needs at least 3 levels of x ({self.study.c} here)", kind)
         quad = self._scored_spec(ModelSpec(degree=2))
         if quad is None:
-            return LackOfFit(False, "the quadratic could not be fitted", kind)
-        return nested_f(root.fit.sse, root.fit.df_resid, quad.fit.sse, quad.fit.df_resid, kind,
+            return NestedTest(False, "the quadratic could not be fitted", kind)
+        return nested_test(root.fit.sse, root.fit.df_resid, quad.fit.sse, quad.fit.df_resid, kind,
                         floor=quad.fit.rounding)
 
-    def covariate_test(self, name: str) -> LackOfFit:
+    def covariate_test(self, name: str) -> NestedTest:
         """Line + covariate against the line (nested F)."""
         kind = "nested F"
         root = self.root.score
         other = self._scored_spec(ModelSpec(covariates=(name,)))
         if root is None or other is None:
-            return LackOfFit(False, "a model could not be scored", kind)
-        return nested_f(root.fit.sse, root.fit.df_resid, other.fit.sse, other.fit.df_resid, kind,
+            return NestedTest(False, "a model could not be scored", kind)
+        return nested_test(root.fit.sse, root.fit.df_resid, other.fit.sse, other.fit.df_resid, kind,
                         floor=other.fit.rounding)
 
     def variance(self, response: Transform) -> VarianceTrend:
@@ -439,55 +442,32 @@ class RemedyTree:
             cur = self.nodes[cur].parent
         return out[::-1]
 
-    def node_json(self, node: Node) -> dict:
-        """The stable JSON shape of a node (documented in the README)."""
+    def node_summary(self, node: Node) -> NodeSummary:
+        """Everything reported about a node, typed (scores None when it failed)."""
         st = self.study
         kinds = {c.name: c.kind for c in st.covariates}
-        s = node.score
-        best = self.best_aicc()
-        out: dict = {
-            "id": node.id,
-            "parent": node.parent,
-            "move": node.move,
-            "depth": node.depth,
-            "label": node.spec.label(st.y_name, st.x_name),
-            "formula": node.spec.formula(st.y_name, st.x_name, kinds),
-            "spec": node.spec.as_json(),
-            "children": list(node.children),
-            "pruned": [{"move": m, "reason": r} for m, r in node.pruned],
-            "also_reached_from": [{"node": i, "move": m} for i, m in node.also_from],
-        }
-        if s is None:
-            out.update(k=None, error=node.error, lack_of_fit={"testable": False, "reason": node.error})
-            return out
-        out.update(
-            k=s.k,
-            coefficients={c.name: {"estimate": c.estimate, "se": c.se, "p": c.p} for c in s.fit.coefficients},
-            sigma=s.fit.sigma,
-            lack_of_fit=s.lack_of_fit.as_json(),
-            lack_of_fit_pure=s.lack_of_fit_pure.as_json(),
-            passes=self.passes(node),
-            nested=(_nested_json(node.nested) if node.nested is not None else {"reason": "the root has no parent"}),
-            chosen_from_data=list(node.spec.data_choices(st.y_name, st.x_name)),
-            criteria={**s.criteria.as_json(),
-                      "delta_aicc": (s.criteria.aicc - best) if (best is not None and s.criteria.aicc is not None) else None},
-            press=s.press,
-            press_note=s.press_note,
-            max_studentized_residual=s.max_studentized,
-            spread=s.spread.as_json(),
-            max_deviation_from_line=s.max_deviation,
-            deviation_note=s.deviation_note,
-            warnings=list(s.warnings),
+        head = NodeSummary(
+            id=node.id, parent=node.parent, move=node.move, depth=node.depth,
+            label=node.spec.label(st.y_name, st.x_name), formula=node.spec.formula(st.y_name, st.x_name, kinds),
+            spec=node.spec.as_json(), children=tuple(node.children), pruned=tuple(node.pruned),
+            also_from=tuple(node.also_from), error=node.error, detail=node.detail,
         )
-        if "boxcox" in node.detail:
-            out["boxcox"] = node.detail["boxcox"].as_json()
-        if "variance" in node.detail:
-            out["variance_function"] = node.detail["variance"].as_json()
-        if "box_tidwell" in node.detail:
-            ps = node.detail["box_tidwell"]
-            out["box_tidwell"] = {"alpha_hat": ps.alpha_hat, "low": ps.low, "high": ps.high, "chosen": ps.chosen,
-                                  "estimated": ps.estimated, "p_alpha_is_1": ps.p_alpha1}
-        return out
+        s = node.score
+        if s is None:
+            return head
+        best = self.best_aicc()
+        return dataclasses.replace(
+            head, k=s.k, coefficients=s.fit.coefficients, sigma=s.fit.sigma, lack_of_fit=s.lack_of_fit,
+            lack_of_fit_pure=s.lack_of_fit_pure, passes=self.passes(node), nested=node.nested,
+            chosen_from_data=tuple(node.spec.data_choices(st.y_name, st.x_name)), criteria=s.criteria,
+            delta_aicc=(s.criteria.aicc - best) if (best is not None and s.criteria.aicc is not None) else None,
+            press=s.press, press_note=s.press_note, max_studentized=s.max_studentized, spread=s.spread,
+            max_deviation=s.max_deviation, deviation_note=s.deviation_note, warnings=tuple(s.warnings),
+        )
+
+    def node_json(self, node: Node) -> dict:
+        """The stable JSON shape of a node (documented in the README): ``node_summary(node).to_dict()``."""
+        return self.node_summary(node).to_dict()
 
     def as_json(self, rule: str = "aicc") -> dict:
         """``{"suggested", "reason", "rule", "alpha", "caution", "nodes"}``."""
@@ -497,16 +477,10 @@ class RemedyTree:
             "reason": sug.reason,
             "rule": rule,
             "alpha": self.alpha,
-            "evidence": [e.as_json() for e in sug.evidence],
+            "evidence": sug.to_dict()["evidence"],
             "caution": POST_SEARCH_CAUTION,
             "nodes": [self.node_json(n) for n in self.nodes.values()],
         }
-
-
-def _nested_json(t: LackOfFit) -> dict:
-    if not t.testable:
-        return {"reason": t.reason}
-    return {"f": t.f, "df_num": t.df_lack, "df_den": t.df_pure, "p": t.p, "approximate": t.approximate}
 
 
 def _order(node_id: str) -> int:
@@ -517,12 +491,6 @@ def _iv(lo: float | None, hi: float | None) -> str:
     a = "−∞" if lo is None else f"{lo:.3g}"
     b = "∞" if hi is None else f"{hi:.3g}"
     return f"({a}, {b})"
-
-
-def _fp(p: float | None) -> str:
-    if p is None or not math.isfinite(p):
-        return "—"
-    return "<1e-12" if p < 1e-12 else f"{p:.3g}"
 
 
 def grow(study: Study, *, depth: int = 2, alpha: float = 0.05, allowable_deviation: float | None = None,

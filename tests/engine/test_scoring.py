@@ -305,8 +305,8 @@ def _check_nested(frame, study, tree) -> set[str]:
         res_c, _ = _node_fit(frame, study, node.spec)
         ref = _anova(res_p, res_c)  # reference: anova_lm(parent, child)
         t = node.nested
-        assert t.df_lack == int(ref["df_diff"]), node.id
-        assert t.df_pure == int(ref["df_resid"]), node.id
+        assert t.df_num == int(ref["df_diff"]), node.id
+        assert t.df_den == int(ref["df_resid"]), node.id
         assert close(t.f, ref["F"], 1e-8, 1e-10), (node.id, t.f, ref["F"])
         assert close(t.p, ref["Pr(>F)"], 1e-8, 1e-300), node.id
         ps, cs = parent.spec, node.spec

@@ -798,7 +798,7 @@ def _same_tree_fits(tm: RemedyTree, ts: RemedyTree) -> int:
         _same_fits(_score_json(node.score), _score_json(other.score), f"tree[{label}]", node.spec)
         assert (node.nested is None) == (other.nested is None)
         if node.nested is not None:
-            _same_json(node.nested.as_json(), other.nested.as_json(), f"nested[{label}]")
+            _same_json(node.nested.to_dict(), other.nested.to_dict(), f"nested[{label}]")
     return common
 
 
@@ -814,7 +814,7 @@ def test_tree_on_a_large_table_matches_memory(tmp_path):
     assert _same_tree_fits(tm, ts) > 20
     # Box–Cox profiles from the two grids, matched by the node they grow from
     def profiles(t: RemedyTree) -> dict:
-        return {t.nodes[n.parent].spec: n.detail["boxcox"] for n in t.nodes.values() if "boxcox" in n.detail}
+        return {t.nodes[n.parent].spec: n.detail.boxcox for n in t.nodes.values() if n.detail.boxcox is not None}
 
     pm, ps = profiles(tm), profiles(ts)
     assert pm and set(pm) == set(ps)

@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-
 from bendwise.engine.checks.replicate_free import harvey_collier
 
 

@@ -112,7 +112,7 @@ async def test_root_shows_the_check_anova_and_path_shows_nested_tests(engine_tre
         await pilot.pause()
         text = _detail(app).replace("\n", " ")
         nested = engine_tree.nodes["n6"].nested
-        assert "+ x²" in text and f"F = {fmt_num(nested.f, 4)} on {nested.df_lack} and {nested.df_pure} df" in text
+        assert "+ x²" in text and f"F = {fmt_num(nested.f, 4)} on {nested.df_num} and {nested.df_den} df" in text
         # pruned moves are listed with their reasons, never hidden
         for move, reason in engine_tree.nodes["n6"].pruned:
             assert move in text and reason[:30] in text

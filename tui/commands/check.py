@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from ..output import collinear_words, emit_json, fmt_num, fmt_p
+from ..output import collinear_words, count, emit_json, fmt_num, fmt_p
 from .common import CAUTION, add_data_args, alpha_arg, load_study, table
 
 
@@ -29,7 +29,7 @@ def run(args: argparse.Namespace) -> int:
     study = load_study(args)
     result = check(study, alpha=args.alpha)
     if args.json:
-        emit_json(result.as_json())
+        emit_json(result.to_dict())
     else:
         print("\n".join(render(result, study.describe_design())))
     return 1 if args.strict and result.lack_found else 0
@@ -39,11 +39,11 @@ def render(r, design: str) -> list[str]:
     """The text report (our own layout)."""
     out = [f"bendwise check · {r.source}"]
     out.append(f"  response {r.y_name}   predictor {r.x_name}   {'weights ' + r.weights if r.weights else 'unweighted'}")
-    out.append(f"  {design}; {r.replicated_levels} level(s) replicated")
+    out.append(f"  {design}; {count(r.replicated_levels, 'level')} replicated")
     if r.tolerance:
         out.append(f"  settings within {r.tolerance} grouped together"
                    + (" — the test is approximate" if r.grouped_approximately else " (no values merged)"))
-    out.append(f"  rows dropped: {r.n_dropped}" + ("" if not r.cleaning else ""))
+    out.append(f"  rows dropped: {r.n_dropped}")
     for line in r.cleaning:
         out.append(f"    {line}")
     out += ["", "Verdict", f"  {r.verdict}", ""]
@@ -63,9 +63,9 @@ def render(r, design: str) -> list[str]:
     out += table(rows, ["part", "df", "SS", "MS", "F", "p"])
     lof = r.lack_of_fit
     if not lof.testable:
-        out.append(f"  lack of fit: not testable — {lof.reason}")
+        out.append(f"  lack of fit: {lof.summary()}")
     elif lof.kind != "pure error":
-        out.append(f"  lack of fit here is the {lof.kind} test")
+        out.append(f"  lack of fit here is the {lof.kind} test: {lof.summary()}")
     out += ["", "Levels"]
     rows = [[lv.level, str(lv.n), fmt_num(lv.mean, 6), fmt_num(lv.sd, 4), fmt_num(lv.fitted, 6), fmt_num(lv.residual, 4)]
             for lv in r.level_rows[:60]]
@@ -75,15 +75,13 @@ def render(r, design: str) -> list[str]:
     out += ["", "Supporting checks"]
     for t in (r.mandel, r.spread, *r.replicate_free):
         if t.testable:
-            df = f" on ({', '.join(fmt_num(d, 4) for d in t.df)})" if t.df else ""
             lvl = t.alpha if t.alpha is not None else r.alpha
             word = "flagged" if (t.p is not None and t.p < lvl) else "not flagged"
-            approx = ", approximate" if t.approximate else ""
-            out.append(f"  {t.name}: {fmt_num(t.statistic, 4)}{df}, p {fmt_p(t.p)} — {word} at {lvl:g}{approx}")
+            out.append(f"  {t.name}: {t.summary()} — {word} at {lvl:g}")
             if t.reason:  # a note on how to read it (e.g. the SQL engine's one-pass spread test)
                 out.append(f"    ({t.reason})")
         else:
-            out.append(f"  {t.name}: not run — {t.reason}")
+            out.append(f"  {t.name}: {t.summary()}")
     if r.replicate_free:
         out.append("  (no level is replicated, so these replicate-free checks stand in for the exact test)")
     c = r.criteria

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from ..output import emit_json, fmt_num, fmt_p
+from ..output import count, emit_json, fmt_num, fmt_p
 from .common import CAUTION, add_data_args, alpha_arg, category_notice, load_study, table
 
 
@@ -155,9 +155,11 @@ def render(study, tree, rule: str) -> list[str]:
     out = [f"bendwise grow · {study.source} · {study.describe_design()}"]
     if study.report.n_dropped:
         out.append(f"  rows dropped: {study.report.n_dropped} ({'; '.join(study.report.lines())})")
-    out.append(f"  {len(tree.nodes)} models scored; rule {rule}; lack of fit at α = {tree.alpha:g}")
+    out.append(f"  {count(len(tree.nodes), 'model')} scored; rule {rule}; lack of fit at α = {tree.alpha:g}")
     out += ["", "Suggestion"]
-    out.append(f"  {sug.node or 'none'} — {sug.reason}")
+    out += ["  " + line for line in sug.summary().splitlines()]
+    if sug.node is not None:
+        out.append(f"  {tree.node_summary(tree.nodes[sug.node]).summary()}")
     out += ["", f"Candidates, best first by {rule}"]
     best = tree.best_aicc()
     rows = []

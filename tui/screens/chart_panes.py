@@ -43,7 +43,7 @@ class ChartPanes(_Base):
     def _show_charts(self, nid: str) -> None:
         """Box–Cox profile at once (its data are in the node); the other charts on request."""
         assert self.board is not None
-        prof = self.board.nodes[nid].detail.get("boxcox")
+        prof = self.board.nodes[nid].detail.boxcox
         box = self.query_one("#boxcox", PlotView)
         if prof is not None:
             box.show(*boxcox_figure(prof, self.markers))

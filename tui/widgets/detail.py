@@ -3,7 +3,8 @@ criteria, the path of moves with each nested test, warnings and pruned moves."""
 
 from __future__ import annotations
 
-from typing import Any, ClassVar
+import math
+from typing import TYPE_CHECKING, Any, ClassVar
 
 from rich.text import Text
 from textual.binding import Binding, BindingType
@@ -12,8 +13,11 @@ from textual.scroll_view import ScrollView
 from textual.strip import Strip
 
 from ..messages import TreeSummary
-from ..output import collinear_words
-from .formatting import VERDICT_STYLE, fmt_p, glyph, num, test_words, verdict_sentence, verdict_word
+from ..output import collinear_words, count, fmt_p, p_clause
+from .formatting import VERDICT_STYLE, glyph, num, verdict_sentence, verdict_word
+
+if TYPE_CHECKING:
+    from bendwise.engine.tree.results import MoveDetail
 
 __all__ = ["NodeDetail", "render_node"]
 
@@ -116,15 +120,14 @@ def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
         cells += [num(r.f, 4) if r.f is not None else "", fmt_p(r.p) if r.p is not None else ""]
         _row(t, *cells)
     parts.append(t.text())
-    lof = j["lack_of_fit"]
-    if not lof.get("testable"):
-        parts.append(Text(f"lack of fit ({lof.get('kind')}): not testable — {lof.get('reason')}"))
+    lof = s.lack_of_fit
+    if not lof.testable:
+        parts.append(Text(f"lack of fit ({lof.kind}): not testable — {lof.reason}"))
     else:
-        parts.append(Text(f"lack of fit here is the {lof.get('kind')} test", style="dim"))
-    pure = j.get("lack_of_fit_pure")
-    if node.spec.covariates and pure is not None:
+        parts.append(Text(f"lack of fit here is the {lof.kind} test", style="dim"))
+    if node.spec.covariates:
         parts.append(Text(f"classical pure-error test (grouping by {', '.join((x, *node.spec.covariates))}): "
-                          f"{test_words(pure)}"))
+                          f"{s.lack_of_fit_pure.summary()}"))
 
     # coefficients
     parts.append(_heading("Coefficients (raw basis)"))
@@ -145,43 +148,40 @@ def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
         parts.append(Text(collinear_words(s.fit.aliased, weighted)))
 
     # criteria
-    crit = j["criteria"]
+    crit = s.criteria
+    delta = j["criteria"]["delta_aicc"]  # distance to the tree's best when the picture was taken
     parts.append(_heading(f"Criteria (original {y} scale)"))
+    loglik = crit.loglik if math.isfinite(crit.loglik) else None
     if narrow:
-        parts.append(Text(f"k {crit['k']} · AICc {num(crit['aicc'], 6)} · ΔAICc {num(crit['delta_aicc'], 3)}"))
-        parts.append(Text(f"BIC {num(crit['bic'], 6)} · AIC {num(crit['aic'], 6)} · log-lik {num(crit['loglik'], 6)}"))
+        parts.append(Text(f"k {crit.k} · AICc {num(crit.aicc, 6)} · ΔAICc {num(delta, 3)}"))
+        parts.append(Text(f"BIC {num(crit.bic, 6)} · AIC {num(crit.aic, 6)} · log-lik {num(loglik, 6)}"))
     else:
         t = _table("k", "log-lik", "AIC", "AICc", "ΔAICc", "BIC", right_from=0)
-        _row(t, str(crit["k"]), num(crit["loglik"], 6), num(crit["aic"], 6), num(crit["aicc"], 6),
-                  num(crit["delta_aicc"], 3), num(crit["bic"], 6))
+        _row(t, str(crit.k), num(loglik, 6), num(crit.aic, 6), num(crit.aicc, 6), num(delta, 3), num(crit.bic, 6))
         parts.append(t.text())
     parts.append(Text("ΔAICc is the distance to the lowest AICc in the tree", style="dim"))
-    chosen = j.get("chosen_from_data") or []
+    chosen = node.spec.data_choices(y, x)
     if chosen:
-        parts.append(Text(f"k counts {len(chosen)} choice(s) made from the data as parameters: "
+        parts.append(Text(f"k counts {count(len(chosen), 'choice')} made from the data as parameters: "
                           + "; ".join(chosen), style="dim"))
-    lines = [f"PRESS {num(j['press'], 5)}" + (f" ({j['press_note']})" if j.get("press_note") else ""),
-             f"largest |studentized residual| {num(j['max_studentized_residual'], 3)}"]
-    spread = j["spread"]
-    if spread.get("testable"):
-        from bendwise.engine.stats.results import test_method  # the test the engine ran
-
-        lines.append(f"equal spread across levels ({test_method(spread.get('name') or '')}): p = "
-                     f"{fmt_p(spread.get('p'))}")
+    lines = [f"PRESS {num(s.press, 5)}" + (f" ({s.press_note})" if s.press_note else ""),
+             f"largest |studentized residual| {num(s.max_studentized, 3)}"]
+    if s.spread.testable:
+        lines.append(f"equal spread across levels ({s.spread.method or 'test'}): {p_clause(s.spread.p)}")
     else:
-        lines.append(f"equal spread: not testable — {spread.get('reason')}")
-    dev = j.get("max_deviation_from_line")
-    lines.append(f"largest departure from the straight line: {num(dev, 4)} {y}" if dev is not None
-                 else f"departure from the straight line: {j.get('deviation_note') or '—'}")
+        lines.append(f"equal spread: not testable — {s.spread.reason}")
+    lines.append(f"largest departure from the straight line: {num(s.max_deviation, 4)} {y}"
+                 if s.max_deviation is not None
+                 else f"departure from the straight line: {s.deviation_note or '—'}")
     parts += [Text(ln) for ln in lines]
 
     if nid == "root" and board.check is not None:
         parts += _check_section(board.check)
-    parts += _move_detail(j)
+    parts += _move_detail(node.detail)
     parts += _path_section(board, nid)
-    if j.get("warnings"):
+    if s.warnings:
         parts.append(_heading("Warnings"))
-        parts += [Text(f"! {w}") for w in j["warnings"]]
+        parts += [Text(f"! {w}") for w in s.warnings]
     parts += _pruned_section(node, j)
     return Text("\n").join(parts)
 
@@ -192,25 +192,25 @@ def _check_section(chk: Any) -> list[Text]:
         if t.testable:
             lvl = t.alpha if t.alpha is not None else chk.alpha
             word = "flagged" if (t.p is not None and t.p < lvl) else "not flagged"
-            out.append(Text(f"{t.name}: {num(t.statistic, 4)}, p = {fmt_p(t.p)} — {word} at {lvl:g}"))
+            out.append(Text(f"{t.name}: {num(t.statistic, 4)}, {p_clause(t.p)} — {word} at {lvl:g}"))
         else:
             out.append(Text(f"{t.name}: not run — {t.reason}"))
     return out
 
 
-def _move_detail(j: dict) -> list[Text]:
+def _move_detail(detail: MoveDetail) -> list[Text]:
     out: list[Text] = []
-    bc = j.get("boxcox")
-    if bc:
+    bc = detail.boxcox
+    if bc is not None:
         out.append(_heading("Box–Cox λ"))
-        out.append(Text(f"λ̂ = {num(bc['lambda_hat'], 4)}, 95% interval ({num(bc['low'], 3)}, {num(bc['high'], 3)}); "
-                        f"λ used = {num(bc['chosen'], 3)}{' (estimated: counts as a parameter)' if bc['estimated'] else ''}"
+        out.append(Text(f"λ̂ = {num(bc.lam_hat, 4)}, 95% interval ({num(bc.low, 3)}, {num(bc.high, 3)}); "
+                        f"λ used = {num(bc.chosen, 3)}{' (estimated: counts as a parameter)' if bc.estimated else ''}"
                         " — profile in the Box–Cox view (key 4)"))
-    bt = j.get("box_tidwell")
-    if bt:
+    bt = detail.box_tidwell
+    if bt is not None:
         out.append(_heading("Box–Tidwell power of x"))
-        out.append(Text(f"α̂ = {num(bt['alpha_hat'], 4)}, 95% interval ({num(bt['low'], 3)}, {num(bt['high'], 3)}); "
-                        f"α used = {num(bt['chosen'], 3)}; test of α = 1: p = {fmt_p(bt['p_alpha_is_1'])}"))
+        out.append(Text(f"α̂ = {num(bt.alpha_hat, 4)}, 95% interval ({num(bt.low, 3)}, {num(bt.high, 3)}); "
+                        f"α used = {num(bt.chosen, 3)}; test of α = 1: {p_clause(bt.p_alpha1)}"))
     return out
 
 
@@ -227,8 +227,8 @@ def _path_section(board: TreeSummary, nid: str) -> list[Text]:
         line.append(word, VERDICT_STYLE.get(word, ""))
         line.append(f"  {n.spec.label('y', 'x')}")
         out.append(line)
-        if n.parent is not None and j is not None:
-            out.append(Text("  " * i + f"  nested test against {n.parent}: {test_words(j.get('nested'))}", style="dim"))
+        if n.nested is not None:
+            out.append(Text("  " * i + f"  nested test against {n.parent}: {n.nested.summary()}", style="dim"))
     return out
 
 

@@ -6,13 +6,12 @@ symbol that also reads in monochrome.
 
 from __future__ import annotations
 
-import math
 import os
 from typing import Any
 
 from rich.text import Text
 
-from ..output import fmt_num, fmt_p
+from ..output import fmt_num, fmt_p, p_clause
 
 __all__ = [
     "fmt_num",
@@ -58,8 +57,7 @@ def test_words(t: dict | None) -> str:
     df1 = t.get("df_lack", t.get("df_num"))
     df2 = t.get("df_pure", t.get("df_den"))
     approx = ", approximate" if t.get("approximate") else ""
-    p = fmt_p(t.get("p"))
-    return f"F = {fmt_num(t.get('f'), 4)} on {df1} and {df2} df, p {p if p.startswith('<') else '= ' + p}{approx}"
+    return f"F = {fmt_num(t.get('f'), 4)} on {df1} and {df2} df, {p_clause(t.get('p'))}{approx}"
 
 
 def verdict_sentence(json: dict, alpha: float) -> Text:
@@ -95,9 +93,5 @@ def tree_label(node: Any, json: dict, alpha: float, *, suggested: bool, marked: 
 
 
 def num(v: float | None, digits: int = 4) -> str:
-    """A number for a table cell ('—' when missing or not finite)."""
-    if v is None or (isinstance(v, float) and not math.isfinite(v)):
-        return "—"
-    if 10**digits <= abs(v) < 1e9:
-        return f"{v:.0f}"  # 882773 reads better than 8.8277e+05 in a narrow table
+    """A number for a table cell ('—' when missing or not finite): ``engine.numfmt.fmt_num``."""
     return fmt_num(v, digits)
