@@ -497,3 +497,8 @@ def _row_diagnostics(study, spec, fr, stats, design, fit, big):
     return press, note, rmax, spread
 
 
+
+
+def model_frame(study: Study, spec: ModelSpec) -> _Frame:
+    """The grouping and within-group bases of ``spec``'s design on ``study`` (for the moves)."""
+    return _frame(study, spec)

@@ -20,23 +20,19 @@ from ..cautions import POST_SEARCH_CAUTION
 from ..checks.lack_of_fit import nested_test
 from ..checks.results import NestedTest
 from ..errors import BendwiseError, UsageError
-from ..numfmt import fmt_p as _fp
-from ..stats.groups import GroupStats
 from ..stats.study import Study
-from ..stats.transforms import IDENTITY, LOG, RECIPROCAL, SQRT, Transform, boxcox, power
+from ..stats.transforms import IDENTITY, Transform
 from ..stats.variance import VarianceTrend, variance_trend
-from .boxcox import profile_boxcox
-from .model_spec import ModelSpec, WeightRule
-from .powers import box_tidwell
+from .model_spec import ModelSpec
+from .moves import MAX_DEGREE, MOVES, Offer
 from .results import MoveDetail, NodeSummary
-from .scoring import NodeScore, _frame, build_design, score_spec
+from .scoring import NodeScore, score_spec
 from .suggestion import RULES, Suggestion, SuggestionPolicy
 from .suggestion import suggest as _suggest
 
 __all__ = ["Node", "RemedyTree", "Suggestion", "RULES", "grow", "POST_SEARCH_CAUTION", "MAX_DEGREE"]
 
 
-MAX_DEGREE = 3
 
 
 ProgressFn = Callable[[int, int, str], None]
@@ -133,112 +129,18 @@ class RemedyTree:
         """The straight line."""
         return self.nodes["root"]
 
-    def _moves(self, node: Node) -> tuple[list[tuple[str, ModelSpec, dict]], list[tuple[str, str]]]:
-        """(move, child spec, detail) for applicable moves; (move, reason) for pruned ones."""
-        st, sp = self.study, node.spec
-        ok: list[tuple[str, ModelSpec, dict]] = []
+    def _moves(self, node: Node) -> tuple[list[Offer], list[tuple[str, str]]]:
+        """The offers of every registered move family (``engine.tree.moves.MOVES``) for ``node``,
+        and (move, reason) for the moves that do not apply."""
+        offers: list[Offer] = []
         pruned: list[tuple[str, str]] = []
-        xlab = st.x_name
-        # response transforms
-        if sp.response == IDENTITY and sp.weights is None:
-            for t, move in ((LOG, "log y"), (SQRT, "√y"), (RECIPROCAL, "1/y")):
-                prob = st.domain_problem(t, "y")
-                if prob:
-                    pruned.append((move, prob))
+        for family in MOVES:
+            for item in family.propose(self, node):
+                if isinstance(item, Offer):
+                    offers.append(item)
                 else:
-                    ok.append((move, sp.with_(response=t), {}))
-            prob = st.domain_problem(Transform("boxcox", 0.5), "y")
-            if prob:
-                pruned.append(("Box–Cox y", prob))
-            else:
-                try:
-                    fr = _frame(st, sp)
-                    design, _ = build_design(st, sp, fr)
-                    codes, c = st.group_codes(fr.by)
-
-                    def provider(lams: np.ndarray, fr=fr) -> list[GroupStats]:
-                        return st.boxcox_stats(lams, fr.by, fr.bases, fr.bases_key)
-
-                    if st.has_rows:
-                        prof = profile_boxcox(st.y, codes, c, design, weights=st.weights, bases=fr.bases,
-                                              grid_provider=provider)
-                    else:
-                        prof = profile_boxcox(None, codes, c, design, grid_provider=provider, n=st.n,
-                                              sum_log_y=st.sum_log_y())
-                except (BendwiseError, ValueError, RuntimeError, FloatingPointError, np.linalg.LinAlgError) as exc:
-                    pruned.append(("Box–Cox y", f"the profile cannot be computed here ({exc})"
-                                   if not isinstance(exc, BendwiseError) else str(exc)))
-                else:
-                    interval = f"λ̂ = {prof.lam_hat:.3g}, 95% interval {_iv(prof.low, prof.high)}"
-                    t = boxcox(prof.chosen)
-                    if t == IDENTITY:
-                        pruned.append(("Box–Cox y", f"no transform needed: λ = 1 lies inside ({interval})"))
-                    else:
-                        move = f"Box–Cox y (λ = {prof.chosen:.3g}{', estimated' if prof.estimated else ''}; {interval})"
-                        ok.append((move, sp.with_(response=t, response_estimated=prof.estimated),
-                                   {"boxcox": prof}))
-        elif sp.response != IDENTITY:
-            pruned.append(("response transform", f"the response is already transformed ({sp.response.short('y')})"))
-        else:
-            pruned.append(("response transform", "weights were estimated for the untransformed response; "
-                           "transform first, then weight"))
-        # predictor transforms
-        if sp.predictor == IDENTITY and not sp.interactions:
-            for t, move in ((LOG, "log x"), (SQRT, "√x"), (RECIPROCAL, "1/x")):
-                prob = st.domain_problem(t, "x")
-                if prob:
-                    pruned.append((move, prob))
-                else:
-                    ok.append((move, sp.with_(predictor=t), {}))
-            if sp.degree != 1:
-                pruned.append(("power of x (Box–Tidwell)", "only for a straight line in x (degree 1)"))
-            elif st.approximate_groups:
-                pruned.append(("power of x (Box–Tidwell)", "not available when settings are grouped by a tolerance"))
-            elif st.x_min <= 0:
-                pruned.append(("power of x (Box–Tidwell)", f"a power of x needs x > 0; {xlab!r} goes down to {st.x_min:g}"))
-            else:
-                try:
-                    ps = box_tidwell(st, sp)
-                except (BendwiseError, ValueError, ZeroDivisionError, FloatingPointError, RuntimeError,
-                        np.linalg.LinAlgError) as exc:
-                    pruned.append(("power of x (Box–Tidwell)", f"did not converge ({exc})"))
-                else:
-                    t = power(ps.chosen)
-                    iv = f"α̂ = {ps.alpha_hat:.3g}, 95% interval {_iv(ps.low, ps.high)}, test of α = 1 p = {ps.p_alpha1:.3g}"
-                    if t == IDENTITY or ps.p_alpha1 >= self.alpha:
-                        pruned.append(("power of x (Box–Tidwell)", f"no evidence the power differs from 1 ({iv})"))
-                    else:
-                        move = f"x^α (α = {ps.chosen:.3g}{', estimated' if ps.estimated else ''}; {iv})"
-                        ok.append((move, sp.with_(predictor=t, predictor_estimated=ps.estimated), {"box_tidwell": ps}))
-        elif sp.predictor != IDENTITY:
-            pruned.append(("predictor transform", f"the predictor is already transformed ({sp.predictor.short('x')})"))
-        else:
-            pruned.append(("predictor transform", "this model has interactions with x; transform x before adding them"))
-        # polynomial degree
-        nd = sp.degree + 1
-        if nd > MAX_DEGREE:
-            pruned.append((f"degree {nd}", f"bendwise stops at degree {MAX_DEGREE}: higher degrees chase noise"))
-        elif nd > st.c - 2:
-            pruned.append((f"degree {nd}", f"{st.c} levels of x: degree {nd} would leave no degree of freedom for lack of fit"))
-        else:
-            ok.append((f"+ {'x²' if nd == 2 else 'x³'}", sp.with_(degree=nd), {}))
-        # covariates and interactions
-        for cov in st.covariates:
-            if cov.name not in sp.covariates:
-                ok.append((f"+ {cov.name}", sp.with_(covariates=sp.covariates + (cov.name,)), {}))
-        for name in sp.covariates:
-            if name in sp.interactions:
-                continue
-            if st.approximate_groups:
-                pruned.append((f"+ x:{name}", "not available when settings are grouped by a tolerance"))
-            else:
-                ok.append((f"+ x:{name}", sp.with_(interactions=sp.interactions + (name,)), {}))
-        # weights
-        if sp.weights is None and node.score is not None:
-            self._weights_move(node, ok, pruned)
-        elif sp.weights is not None:
-            pruned.append(("weights", "already weighted"))
-        return ok, pruned
+                    pruned.append((item.label, item.reason))
+        return offers, pruned
 
     def expand(self, node_id: str, progress: ProgressFn | None = None, cancel: CancelFn | None = None) -> list[str]:
         """Generate and score the children of one node (best-first growth); returns new ids."""
@@ -248,7 +150,8 @@ class RemedyTree:
         moves, pruned = self._moves(node)
         node.pruned = pruned
         new: list[str] = []
-        for i, (move, spec, detail) in enumerate(moves):
+        for i, offer in enumerate(moves):
+            move, spec, detail = offer.label, offer.spec, offer.detail
             if cancel is not None and cancel():
                 return new
             if spec == node.spec:
@@ -260,7 +163,7 @@ class RemedyTree:
                     self.nodes[hit].also_from.append((node_id, move))
                 continue
             self._counter += 1
-            child = Node(f"n{self._counter}", node_id, move, spec, node.depth + 1, detail=MoveDetail(**detail))
+            child = Node(f"n{self._counter}", node_id, move, spec, node.depth + 1, detail=detail)
             self._add(child)
             node.children.append(child.id)
             self._score(child)
@@ -418,21 +321,6 @@ class RemedyTree:
         (``variance_of``; default) or from the replicates alone."""
         return self.variance_of(self.root, alpha) if residuals else self.variance(IDENTITY)
 
-    def _weights_move(self, node: Node, ok: list, pruned: list) -> None:
-        """Offer power-of-mean weights when the node's residuals show the spread following the mean."""
-        sp = node.spec
-        vt = self.variance_of(node)
-        if not vt.available:
-            pruned.append(("weights", vt.reason))
-            return
-        iv = f"θ̂ = {vt.theta_hat:.3g}, 95% interval {_iv(vt.low, vt.high)}, test of θ = 0 p = {_fp(vt.p)}"
-        if vt.p >= self.alpha or vt.chosen == 0:
-            pruned.append(("weights", f"no evidence that the spread follows the mean ({iv})"))
-            return
-        how = "a round value inside the interval" if vt.snapped else "estimated"
-        ok.append((f"weights ∝ mean^(−2θ), θ = {vt.chosen:.3g} ({how}; {iv}; θ counts as a parameter)",
-                   sp.with_(weights=WeightRule("power-of-mean", vt.chosen, not vt.snapped)), {"variance": vt}))
-
     def path(self, node_id: str) -> list[Node]:
         """Nodes from the root to ``node_id``."""
         out = []
@@ -485,12 +373,6 @@ class RemedyTree:
 
 def _order(node_id: str) -> int:
     return 0 if node_id == "root" else int(node_id[1:])
-
-
-def _iv(lo: float | None, hi: float | None) -> str:
-    a = "−∞" if lo is None else f"{lo:.3g}"
-    b = "∞" if hi is None else f"{hi:.3g}"
-    return f"({a}, {b})"
 
 
 def grow(study: Study, *, depth: int = 2, alpha: float = 0.05, allowable_deviation: float | None = None,
