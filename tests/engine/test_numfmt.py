@@ -94,3 +94,13 @@ def test_the_check_catches_an_ad_hoc_formatter():
     assert _P_FIELD.search('f"{t.p_value:.2e}"')
     assert not _P_FIELD.search('f"{theta:.3g}"') and not _P_FIELD.search('f"{p:g}"')
     assert _P_BOUND.search('return "<1e-12" if p < 1e-12 else x')
+
+
+def test_numfmt_sits_in_the_base_layer():
+    # every layer may use it, so it must import nothing from the engine (or any UI library)
+    import ast
+
+    tree = ast.parse((ROOT / "engine" / "numfmt.py").read_text(encoding="utf-8"))
+    imported = {a.name.split(".")[0] for n in ast.walk(tree) if isinstance(n, ast.Import) for a in n.names}
+    imported |= {(n.module or "").split(".")[0] or "." for n in ast.walk(tree) if isinstance(n, ast.ImportFrom)}
+    assert imported <= {"__future__", "math"}, imported
