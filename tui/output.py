@@ -7,7 +7,7 @@ import math
 import sys
 from typing import Any
 
-from engine.numfmt import count, fmt_num, fmt_p, p_clause
+from bendwise.engine.numfmt import count, fmt_num, fmt_p, p_clause
 
 __all__ = ["emit_json", "fmt_num", "fmt_p", "p_clause", "count", "collinear_words"]
 

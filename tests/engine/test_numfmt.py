@@ -7,8 +7,7 @@ import re
 from pathlib import Path
 
 import pytest
-
-from engine.numfmt import MISSING, count, fmt_num, fmt_p, p_clause
+from bendwise.engine.numfmt import MISSING, count, fmt_num, fmt_p, p_clause
 
 ROOT = Path(__file__).resolve().parents[2]
 

@@ -11,18 +11,17 @@ import dataclasses
 import math
 from pathlib import Path
 
+import bendwise.engine as engine
 import pandas as pd
 import pytest
+from bendwise.engine.checks.lack_of_fit import nested_f, nested_test
+from bendwise.engine.checks.results import LackOfFit, NestedTest
+from bendwise.engine.numfmt import count, fmt_num, p_clause
+from bendwise.engine.stats.results import SideTest
+from bendwise.engine.tree.results import MoveDetail, NodeSummary
+from bendwise.engine.tree.suggestion import Evidence, Suggestion
+from bendwise.engine.tree.tree import grow
 from scipy import stats as sps
-
-import engine
-from engine.checks.lack_of_fit import nested_f, nested_test
-from engine.checks.results import LackOfFit, NestedTest
-from engine.numfmt import count, fmt_num, p_clause
-from engine.stats.results import SideTest
-from engine.tree.results import MoveDetail, NodeSummary
-from engine.tree.suggestion import Evidence, Suggestion
-from engine.tree.tree import grow
 
 DATA = Path(__file__).resolve().parents[2] / "datasets"
 
@@ -182,7 +181,7 @@ def test_evidence_and_suggestion_round_trip(tree):
 
 
 def test_grow_text_uses_the_summaries(tmp_path, capsys):
-    from tui.cli import main
+    from bendwise.tui.cli import main
 
     rc = main(["grow", str(DATA / "sensor_calibration.csv"), "-y", "signal_mv", "-x", "conc_mg_l"])
     out = capsys.readouterr().out

@@ -4,13 +4,12 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import bendwise.engine as engine
 import pandas as pd
-
-import engine
-from engine.numfmt import fmt_num, p_clause
-from engine.tree.tree import RemedyTree
-from tui.messages import TreeSummary
-from tui.widgets.detail import render_node
+from bendwise.engine.numfmt import fmt_num, p_clause
+from bendwise.engine.tree.tree import RemedyTree
+from bendwise.tui.messages import TreeSummary
+from bendwise.tui.widgets.detail import render_node
 
 DATA = Path(__file__).resolve().parents[2] / "datasets"
 

@@ -17,7 +17,7 @@ from ..output import collinear_words, count, fmt_p, p_clause
 from .formatting import VERDICT_STYLE, glyph, num, verdict_sentence, verdict_word
 
 if TYPE_CHECKING:
-    from engine.tree.results import MoveDetail
+    from bendwise.engine.tree.results import MoveDetail
 
 __all__ = ["NodeDetail", "render_node"]
 
@@ -75,7 +75,7 @@ def render_node(board: TreeSummary, nid: str, width: int = 100) -> Text:
 
 
 def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
-    from engine.handon.chart_data import node_anova
+    from bendwise.engine.handon.chart_data import node_anova
 
     tree = board.tree
     node = board.nodes[nid]
