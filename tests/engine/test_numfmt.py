@@ -55,9 +55,9 @@ def test_counts_agree_with_their_noun():
 _P_FIELD = re.compile(r"\{([^{}:]*?(?:\bp(?:_\w+)?|\.p|pval\w*))\s*:\s*\.\d+[efg%]\}")
 _P_BOUND = re.compile(r"""["']<\s?1e-12""")
 _ALLOWED = {
-    # the Box–Tidwell move's words are built in RemedyTree._moves, which another change is turning
-    # into objects; its text is held byte for byte by the golden JSON
-    ("engine/tree/tree.py", "test of α = 1 p = {ps.p_alpha1:.3g}"),
+    # the Box–Tidwell move's label (engine/tree/moves/box_tidwell.py) is held byte for byte by the
+    # golden JSON; it keeps Python's 3-significant-digit spelling
+    ("engine/tree/moves/box_tidwell.py", "test of α = 1 p = {ps.p_alpha1:.3g}"),
 }
 
 
@@ -93,3 +93,13 @@ def test_the_check_catches_an_ad_hoc_formatter():
     assert _P_FIELD.search('f"{t.p_value:.2e}"')
     assert not _P_FIELD.search('f"{theta:.3g}"') and not _P_FIELD.search('f"{p:g}"')
     assert _P_BOUND.search('return "<1e-12" if p < 1e-12 else x')
+
+
+def test_numfmt_sits_in_the_base_layer():
+    # every layer may use it, so it must import nothing from the engine (or any UI library)
+    import ast
+
+    tree = ast.parse((ROOT / "engine" / "numfmt.py").read_text(encoding="utf-8"))
+    imported = {a.name.split(".")[0] for n in ast.walk(tree) if isinstance(n, ast.Import) for a in n.names}
+    imported |= {(n.module or "").split(".")[0] or "." for n in ast.walk(tree) if isinstance(n, ast.ImportFrom)}
+    assert imported <= {"__future__", "math"}, imported
