@@ -65,19 +65,10 @@ def lit(text: str) -> str:
 
 def transform_sql(t: Transform, col: str = "y") -> str:
     """Standard-SQL expression of g(col)."""
-    k = t.kind
-    if k == "identity":
-        return col
-    if k == "log":
-        return f"LN({col})"
-    if k == "sqrt":
-        return f"SQRT({col})"
-    if k == "reciprocal":
-        return f"(1.0 / {col})"
-    if k == "boxcox":
-        lam = float(t.param)  # type: ignore[arg-type]
-        return f"LN({col})" if lam == 0 else f"((EXP({lam!r} * LN({col})) - 1.0) / {lam!r})"
-    raise UsageError(f"transform {t.kind} has no SQL form")
+    try:
+        return t.sql(col)
+    except ValueError as exc:
+        raise UsageError(str(exc)) from None
 
 
 def aggregate_sql(source: str, keys: Sequence[str], nums: Sequence[str], zs: Sequence[str]) -> str:
@@ -259,24 +250,9 @@ class SqlStudy(Study):
         return np.bincount(self.x_codes, weights=self._info["unit_n"], minlength=self.c).astype(np.int64)
 
     def domain_problem(self, t: Transform, role: str) -> str | None:
-        if t.kind == "identity":
-            return None
         info = self._info
         col = self.y_name if role == "y" else self.x_name
-        le0, eq0, lt0 = info[f"{role}_le0"], info[f"{role}_eq0"], info[f"{role}_lt0"]
-        if t.kind == "sqrt" and role == "x":
-            return f"√x needs x ≥ 0: {lt0} row(s) of {col!r} are negative" if lt0 else None
-        if t.kind == "reciprocal":
-            if eq0:
-                return f"1/{role} needs {role} ≠ 0: {eq0} row(s) of {col!r} are 0"
-            if lt0 and lt0 < self.n:
-                return f"1/{role} needs {role} of one sign; {col!r} has both positive and negative values"
-            return None
-        if t.kind == "power" and float(t.param).is_integer():  # type: ignore[arg-type]
-            return None
-        if le0:
-            return f"{t.short(role)} needs {role} > 0: {le0} row(s) of {col!r} have {role} ≤ 0"
-        return None
+        return t.count_problem(role, col, self.n, info[f"{role}_le0"], info[f"{role}_eq0"], info[f"{role}_lt0"])
 
     def transformed(self, t: Transform) -> tuple[None, float]:
         problem = self.domain_problem(t, "y")

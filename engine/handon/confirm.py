@@ -33,7 +33,7 @@ from ..cautions import CAUTION
 from ..checks.results import LackOfFit
 from ..errors import SpecError, UsageError
 from ..numfmt import fmt_num, p_clause
-from ..stats.transforms import Transform, canonical_response
+from ..stats.transforms import Transform
 from ..tree.model_spec import ModelSpec, WeightRule
 
 if TYPE_CHECKING:
@@ -184,15 +184,13 @@ def model_spec_from_doc(doc: dict[str, Any], model: HandedModel) -> ModelSpec:
     if model.weight_theta is not None:
         weights = WeightRule("power-of-mean", float(model.weight_theta), True)
     resp = model.response
-    resp = canonical_response(resp) if resp.kind == "boxcox" else resp
+    resp = resp.canonical()
     return ModelSpec(response=resp, predictor=_predictor(model.predictor), degree=degree,
                      covariates=tuple(sorted(names)), interactions=tuple(sorted(inter)), weights=weights)
 
 
 def _predictor(t: Transform) -> Transform:
-    from ..stats.transforms import power
-
-    return power(float(t.param)) if t.kind == "power" else t  # type: ignore[arg-type]
+    return t.canonical()
 
 
 def confirm(doc: dict[str, Any], model: HandedModel, frame: pd.DataFrame, *, alpha: float = 0.05,

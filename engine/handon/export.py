@@ -211,7 +211,7 @@ def build_spec(tree: RemedyTree, node_id: str, *, data_path: str | Path | None =
             "formula_note": "for reading only: bendwise rebuilds the model from the terms and never evaluates this text",
         },
         "fit": {
-            "scale": "fitted" if spec.response.kind != "identity" else "original",
+            "scale": "fitted" if not spec.response.is_identity else "original",
             "coefficients": [{"name": c.name, "estimate": c.estimate, "se": c.se, "t": c.t, "p": c.p}
                              for c in fit.coefficients],
             "covariance": [list(r) for r in fit.cov],

@@ -243,8 +243,7 @@ def _numeric_row(model: HandedModel, y0: float, m: int, tq: float, covs: dict[st
         a, b = i0, i1
         notes.append("the fitted curve is not monotone over the calibrated range: several x can give one "
                      "response, so only the calibrated range was searched")
-    inc = model.predictor.kind not in ("reciprocal",) and not (
-        model.predictor.kind == "power" and float(model.predictor.param) < 0)  # type: ignore[arg-type]
+    inc = not model.predictor.decreasing
 
     def to_x(t: float) -> float:
         return float(model.predictor.inverse(np.array([t]))[0])
@@ -307,7 +306,7 @@ def _numeric_row(model: HandedModel, y0: float, m: int, tq: float, covs: dict[st
         kind = "finite"
     if model.weight_theta is not None:
         notes.append("weights estimated from the replicates: the interval is approximate")
-    if tr.kind != "identity" and m > 1:
+    if not tr.is_identity and m > 1:
         notes.append(f"the mean of {m} readings is treated as a mean on the fitted scale (approximate)")
     lo, hi = _ends(kind, tuple(pieces))
     return InverseResult(
@@ -341,7 +340,7 @@ def inverse_predict(model: HandedModel, y: np.ndarray, *, replicates: int = 1,
     for cov in model.covariates:
         if cov.name not in covs:
             raise DataError(f"covariate {cov.name!r} is needed for inverse predictions; add the column to the table")
-    if model.response.kind != "identity":
+    if not model.response.is_identity:
         problem = model.response.domain_problem(ys, model.response_name, "y")
         if problem:
             raise DataError(problem.replace(" of those used", "") + "; the model's response transform needs them")

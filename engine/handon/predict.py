@@ -127,7 +127,7 @@ def lost_to_range(tr: Transform, z: np.ndarray, y: np.ndarray, y_sign: int = 1) 
     inside the image of g, yet y is ±inf, or (under a transform) 0 or subnormal."""
     z = np.asarray(z, dtype=float)
     y = np.asarray(y, dtype=float)
-    if tr.kind == "identity":
+    if tr.is_identity:
         return np.isfinite(z) & np.isinf(y), np.zeros(z.shape, dtype=bool)
     z_lo, z_hi, _, _ = _z_limits(tr, y_sign)
     strictly = np.isfinite(z) & (z > z_lo) & (z < z_hi)
@@ -365,7 +365,7 @@ def smear_mean(model: HandedModel, zhat: np.ndarray, w0: np.ndarray) -> np.ndarr
     tr = model.response
     if zhat.shape[0] == 0:
         return np.empty(0)
-    if (tr.kind == "log" or (tr.kind == "boxcox" and tr.param == 0)) and np.all(w0 == w0[0]):
+    if tr.is_log and np.all(w0 == w0[0]):
         # exp(ẑ + e) = exp(ẑ)·exp(e): one smearing factor serves every row (same estimator, exact)
         with np.errstate(over="ignore"):
             return np.exp(zhat) * float(np.mean(np.exp(r / np.sqrt(w0[0]))))
@@ -410,7 +410,7 @@ def predict_forward(model: HandedModel, x: np.ndarray, covs: dict[str, np.ndarra
     defined = in_image(tr, z, model.y_sign)
     with np.errstate(all="ignore"):
         median = np.where(defined, np.asarray(tr.inverse(z), dtype=float), np.nan)
-    mean = median.copy() if tr.kind == "identity" else smear_mean(model, z, w0)
+    mean = median.copy() if tr.is_identity else smear_mean(model, z, w0)
     # over- and underflow: the point, the smearing mean (its "z" is ẑ) and each interval end
     over, under = lost_to_range(tr, z, median, model.y_sign)
     checks = [(z, mean)]
@@ -459,19 +459,10 @@ def predict_forward(model: HandedModel, x: np.ndarray, covs: dict[str, np.ndarra
     return ForwardPrediction(
         x=x, z_fit=z, z_se=se, fit=mean, median=median, ci_low=ci_lo, ci_high=ci_hi,
         pi_low=pi_lo, pi_high=pi_hi, outside_range=outside(model, x), level=level,
-        notes=tuple(notes), ci_of="mean" if tr.kind == "identity" else "median", flags=tuple(flags),
+        notes=tuple(notes), ci_of="mean" if tr.is_identity else "median", flags=tuple(flags),
     )
 
 
 def _beyond(tr: Transform, y_sign: int) -> str:
     """Where an ẑ without a back-transform lies, in words."""
-    if tr.kind == "reciprocal":
-        return "past the pole of 1/y (1/y = 0, where y is infinite)"
-    if tr.kind == "sqrt":
-        return "below 0, which √y never is"
-    if tr.kind == "boxcox":
-        lam = float(tr.param)  # type: ignore[arg-type]
-        edge = -1.0 / lam
-        side = "below" if lam > 0 else "above"
-        return f"{side} {edge:.6g}, which {tr.short('y')} never is"
-    return f"outside the range of {tr.short('y')}"
+    return tr.beyond_words("y")

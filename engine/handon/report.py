@@ -204,11 +204,11 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     out.append("")
     coef_rows = [[_code(c["name"], table=True), _n(c["estimate"], 8), _n(c["se"], 4), fmt_p(c["p"])] for c in fit["coefficients"]]
     out += _md_table(["term", "estimate", "standard error", "p"], coef_rows)
-    scale = "" if spec.response.kind == "identity" else f" (on the scale of {_code(spec.response.short(y))})"
+    scale = "" if spec.response.is_identity else f" (on the scale of {_code(spec.response.short(y))})"
     out += ["", f"- Residual SD σ̂ = {_n(fit['sigma'], 6)} on {fit['df_resid']} df{scale}; n = {fit['n']}",
             f"- r² = {fit['r2']:.6f}; adjusted r² = {fit['r2_adj']:.6f}",
             f"- Residual sum of squares = {_n(fit['sse'], 8)}{' (weighted)' if w['rule'] != 'none' or w['user_column'] else ''}"]
-    is_line = (spec.response.kind == "identity" and spec.predictor.kind == "identity" and spec.degree == 1
+    is_line = (spec.response.is_identity and spec.predictor.is_identity and spec.degree == 1
                and not spec.covariates)
     if is_line:
         b0 = next(c for c in fit["coefficients"] if c["name"] == "intercept")["estimate"]
@@ -245,10 +245,10 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
         out += ["Fitted values at the reference category and the mean of numeric covariates; residuals are the "
                 "model's own (fitted scale), each row's own categories and covariates included — so mean y − "
                 "fitted differs from the mean residual by the covariates' effect at that level.", ""]
-    elif spec.response.kind != "identity" or w["rule"] != "none":
+    elif not spec.response.is_identity or w["rule"] != "none":
         out += [f"Residuals on the fitted scale{' times √w' if w['rule'] != 'none' else ''}; fitted values are "
                 "back-transformed medians.", ""]
-    if spec.response.kind != "identity":  # past the pole of 1/y (or outside g's range): no fitted y
+    if not spec.response.is_identity:  # past the pole of 1/y (or outside g's range): no fitted y
         from .predict import in_image
 
         with np.errstate(all="ignore"):
@@ -324,7 +324,7 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     out += ["```", ""]
 
     out += ["## Cautions", "", f"- {doc['cautions']['post_search']}", f"- {doc['cautions']['use']}"]
-    if spec.response.kind != "identity":
+    if not spec.response.is_identity:
         out.append("- Predictions back-transformed from the fitted scale: the naive back-transform is a median; "
                    "bendwise apply also gives the smearing mean (Duan 1983).")
     out.append("")

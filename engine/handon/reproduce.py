@@ -36,7 +36,7 @@ def statsmodels_names(spec: ModelSpec, terms: tuple[Term, ...], x: str, kinds: d
     with ``alias``, of the formula written on the aliased columns."""
     name = (lambda c: alias[c]) if alias is not None else quote_name
     tx = spec.predictor.formula(name(x))
-    base = tx if spec.predictor.kind == "identity" else f"({tx[2:-1] if tx.startswith('I(') else tx})"
+    base = tx if spec.predictor.is_identity else f"({tx[2:-1] if tx.startswith('I(') else tx})"
 
     def cov(c: str) -> str:
         q = name(c)

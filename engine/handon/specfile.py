@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import SpecError
-from ..stats.transforms import Transform
+from ..stats.transforms import PARAMETRIC_KINDS, Transform
 from ..tree.scoring import Term
 
 __all__ = [
@@ -108,8 +108,8 @@ class HandedModel:
         """True for y = b0 + b1·x with no transform, no covariate and no estimated weights."""
         kinds = sorted((t.kind, t.power) for t in self.terms)
         return (
-            self.response.kind == "identity"
-            and self.predictor.kind == "identity"
+            self.response.is_identity
+            and self.predictor.is_identity
             and kinds == [("const", 0), ("tpow", 1)]
             and self.weight_theta is None
         )
@@ -211,17 +211,11 @@ def _transform(block: dict, where: str, kinds: tuple[str, ...]) -> Transform:
     tr = _obj(block, "transform", where)
     kind = _str(tr.get("kind"), f"{where}.transform.kind", choices=kinds)
     param = tr.get("param")
-    if kind in ("boxcox", "power"):
-        p = _num(param, f"{where}.transform.param")
-        assert p is not None
-        if not -10 <= p <= 10:
-            raise _fail(f"{where}.transform.param", f"is {p:g}; expected a power between −10 and 10")
-        if kind == "power" and p == 0:
-            raise _fail(f"{where}.transform.param", "is 0; a power of 0 is written as the log transform")
-        return Transform(kind, p)
-    if param is not None:
-        raise _fail(f"{where}.transform.param", f"must be null for {kind}")
-    return Transform(kind)  # type: ignore[arg-type]
+    p = _num(param, f"{where}.transform.param") if kind in PARAMETRIC_KINDS else param
+    try:
+        return Transform.from_parts(kind, p)
+    except ValueError as exc:
+        raise _fail(f"{where}.transform.param", str(exc)) from None
 
 
 PSD_TOL = 1e-8

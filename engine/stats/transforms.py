@@ -14,6 +14,9 @@ import numpy as np
 __all__ = ["Transform", "IDENTITY", "LOG", "SQRT", "RECIPROCAL", "boxcox", "power", "canonical_response"]
 
 # Round Box–Cox λ values inside the interval are preferred in this order of plainness.
+PARAMETRIC_KINDS = ("boxcox", "power")
+"""Kinds whose ``param`` carries a value."""
+
 CONVENTIONAL_LAMBDAS = (1.0, 0.0, 0.5, -1.0, 2.0, -0.5, 1 / 3, -2.0)
 
 
@@ -147,6 +150,104 @@ class Transform:
         if k == "power":
             return f"I({col} ** {float(self.param)!r})"
         raise ValueError(k)
+
+    # ---- what callers ask instead of comparing kinds -----------------------------------
+    @property
+    def is_identity(self) -> bool:
+        """No transform."""
+        return self.kind == "identity"
+
+    @property
+    def is_log(self) -> bool:
+        """log, or Box–Cox at λ = 0 (the same function)."""
+        return self.kind == "log" or (self.kind == "boxcox" and self.param == 0)
+
+    @property
+    def is_named(self) -> bool:
+        """One of the fixed transforms (identity, log, √, 1/·), not a power read from the data."""
+        return self.kind in ("identity", "log", "sqrt", "reciprocal")
+
+    @property
+    def decreasing(self) -> bool:
+        """g decreases on its domain (1/v, v^α with α < 0)."""
+        return self.kind == "reciprocal" or (self.kind == "power" and float(self.param) < 0)  # type: ignore[arg-type]
+
+    @property
+    def has_parameter(self) -> bool:
+        """Box–Cox λ or power α (a value in ``param``)."""
+        return self.kind in PARAMETRIC_KINDS
+
+    def canonical(self) -> Transform:
+        """The one representative of equal functions (``canonical_response`` for Box–Cox λ,
+        ``power`` for x^α), so specs read back compare equal to the tree's."""
+        if self.kind == "boxcox":
+            return canonical_response(self)
+        if self.kind == "power":
+            return power(float(self.param))  # type: ignore[arg-type]
+        return self
+
+    def sql(self, col: str = "y") -> str:
+        """Standard-SQL expression of g(col) (``col`` is already a quoted identifier or expression)."""
+        k = self.kind
+        if k == "identity":
+            return col
+        if k == "log":
+            return f"LN({col})"
+        if k == "sqrt":
+            return f"SQRT({col})"
+        if k == "reciprocal":
+            return f"(1.0 / {col})"
+        if k == "boxcox":
+            lam = float(self.param)  # type: ignore[arg-type]
+            return f"LN({col})" if lam == 0 else f"((EXP({lam!r} * LN({col})) - 1.0) / {lam!r})"
+        raise ValueError(f"transform {self.kind} has no SQL form")
+
+    def count_problem(self, role: str, column: str, n: int, le0: int, eq0: int, lt0: int) -> str | None:
+        """``domain_problem`` from counts of values ≤ 0, = 0 and < 0 (what an SQL scan returns)."""
+        k = self.kind
+        if k == "identity":
+            return None
+        if k == "sqrt" and role == "x":
+            return f"√x needs x ≥ 0: {lt0} row(s) of {column!r} are negative" if lt0 else None
+        if k == "reciprocal":
+            if eq0:
+                return f"1/{role} needs {role} ≠ 0: {eq0} row(s) of {column!r} are 0"
+            if lt0 and lt0 < n:
+                return f"1/{role} needs {role} of one sign; {column!r} has both positive and negative values"
+            return None
+        if k == "power" and float(self.param).is_integer():  # type: ignore[arg-type]
+            return None
+        if le0:
+            return f"{self.short(role)} needs {role} > 0: {le0} row(s) of {column!r} have {role} ≤ 0"
+        return None
+
+    def beyond_words(self, var: str = "y") -> str:
+        """Where a value of g without a back-transform lies, in words."""
+        if self.kind == "reciprocal":
+            return f"past the pole of 1/{var} (1/{var} = 0, where {var} is infinite)"
+        if self.kind == "sqrt":
+            return f"below 0, which √{var} never is"
+        if self.kind == "boxcox":
+            lam = float(self.param)  # type: ignore[arg-type]
+            side = "below" if lam > 0 else "above"
+            return f"{side} {-1.0 / lam:.6g}, which {self.short(var)} never is"
+        return f"outside the range of {self.short(var)}"
+
+    @classmethod
+    def from_parts(cls, kind: str, param: float | None) -> Transform:
+        """A transform from its JSON parts (already type-checked): ValueError with the reason when
+        the parameter does not fit the kind."""
+        if kind in PARAMETRIC_KINDS:
+            if param is None:
+                raise ValueError("needs a number")
+            if not -10 <= param <= 10:
+                raise ValueError(f"is {param:g}; expected a power between −10 and 10")
+            if kind == "power" and param == 0:
+                raise ValueError("is 0; a power of 0 is written as the log transform")
+            return cls(kind, float(param))
+        if param is not None:
+            raise ValueError(f"must be null for {kind}")
+        return cls(kind)
 
     def key(self) -> tuple:
         """Hashable identity used in caches."""

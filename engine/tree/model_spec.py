@@ -92,7 +92,7 @@ class ModelSpec:
     def label(self, y: str = "y", x: str = "x") -> str:
         """Short label, e.g. 'log y ~ x + x²  + day'."""
         t = self.predictor.short(x)
-        tt = f"({t})" if self.predictor.kind != "identity" else t
+        tt = f"({t})" if not self.predictor.is_identity else t
         terms = [t] + [power_label(tt, k) for k in range(2, self.degree + 1)]
         terms += list(self.covariates)
         terms += [f"{t}:{c}" for c in self.interactions]
@@ -108,7 +108,7 @@ class ModelSpec:
         lhs = self.response.formula(qy)
         tx = self.predictor.formula(qx)
         terms = [tx]
-        base = tx if self.predictor.kind == "identity" else f"({tx[2:-1] if tx.startswith('I(') else tx})"
+        base = tx if self.predictor.is_identity else f"({tx[2:-1] if tx.startswith('I(') else tx})"
         for k in range(2, self.degree + 1):
             terms.append(f"I({base} ** {k})")
 

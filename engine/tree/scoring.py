@@ -203,7 +203,7 @@ def build_design(study: Study, spec: ModelSpec, fr: _Frame) -> tuple[Design, tup
     names = ["intercept"]
     terms = [Term("const")]
     tname = spec.predictor.short(study.x_name)
-    tpar = f"({tname})" if spec.predictor.kind != "identity" else tname
+    tpar = f"({tname})" if not spec.predictor.is_identity else tname
     tol = study.approximate_groups
     for k in range(1, spec.degree + 1):
         cols.append(Column(ones, len(fr.nums) + k - 1) if tol else Column(u_g**k))
@@ -480,7 +480,7 @@ def _row_diagnostics(study, spec, fr, stats, design, fit, big):
         hg = wg * np.asarray(fit.group_leverage)
         emax = np.maximum(np.abs(stats.zmax - fitted), np.abs(stats.zmin - fitted))
         rmax = float(np.max(np.sqrt(wg) * emax / (sigma * np.sqrt(np.clip(1 - hg, 1e-300, None)))))
-        if spec.response.kind == "identity":
+        if spec.response.is_identity:
             if (1 - hg <= 1e-10).any():
                 note = "a row is fitted exactly (leverage 1): leave-one-out is undefined"
             else:

@@ -117,13 +117,10 @@ class Stability:
                 "other_forms": dict(sorted(self.other_forms.items(), key=lambda kv: (-kv[1], kv[0])))}
 
 
-_NAMED = ("identity", "log", "sqrt", "reciprocal")
-
-
 def _kind_key(t) -> tuple:
     # named transforms match exactly; a Box–Cox λ or Box–Tidwell α is a power read from the data,
     # which a resample reads afresh: any such power matches any other of its kind
-    return (t.kind, t.param) if t.kind in _NAMED else (t.kind, "power from the data")
+    return t.key() if t.is_named else (t.kind, "power from the data")
 
 
 def form_key(spec: ModelSpec) -> tuple:

@@ -139,7 +139,7 @@ def _render_forward(model, rows: list[dict], level: float, label: str, ci_of: st
     pct = f"{level * 100:g}%"
     out = [f"bendwise apply · {label}", f"  {len(rows)} row(s); {pct} intervals; calibrated {model.predictor_name} "
            f"{fmt_num(model.x_min, 6)} … {fmt_num(model.x_max, 6)}"]
-    transformed = model.response.kind != "identity"
+    transformed = not model.response.is_identity
     names = [c.name for c in model.covariates]
     header = [model.predictor_name, *names, "mean" if not transformed else "mean (smearing)"]
     if transformed:
