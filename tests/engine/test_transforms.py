@@ -4,8 +4,15 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-
-from bendwise.engine.stats.transforms import IDENTITY, LOG, RECIPROCAL, SQRT, Transform, boxcox, power
+from bendwise.engine.stats.transforms import (
+    IDENTITY,
+    LOG,
+    RECIPROCAL,
+    SQRT,
+    Transform,
+    boxcox,
+    power,
+)
 
 ALL = [IDENTITY, LOG, SQRT, RECIPROCAL, boxcox(0.5), boxcox(-0.75), boxcox(0.0), boxcox(2.0), power(0.37), power(-1.5),
        power(2.0)]
