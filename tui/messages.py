@@ -1,8 +1,9 @@
 """Messages the workers post back to the UI thread, named in the past tense.
 
-Chain: TableLoaded (start screen) → StudyBuilt → NodeScored… → TreeGrown; NodeExpanded after
-best-first growth of one node; ChartsComputed after a selection. Payloads are engine values
-(frozen results, node ids, JSON dicts) computed in the worker, so the UI thread only formats.
+The start screen's chain: TableLoaded → StudyBuilt (or LoadFailed). The main screen's widgets
+define their own messages (``TreeGrower.Grown``, ``ChartMaker.Ready`` …). ``TreeSummary`` is
+the picture of the tree they pass around; payloads are engine values computed in the worker,
+so the UI thread only formats.
 """
 
 from __future__ import annotations
@@ -21,11 +22,6 @@ __all__ = [
     "TableLoaded",
     "StudyBuilt",
     "LoadFailed",
-    "ScoringProgressed",
-    "NodeScored",
-    "TreeGrown",
-    "GrowthFailed",
-    "ChartsComputed",
 ]
 
 
@@ -100,50 +96,6 @@ class LoadFailed(Message):
         self.error = error
 
 
-class ScoringProgressed(Message):
-    """Progress of the running expansion (later messages replace earlier ones)."""
-
-    def __init__(self, done: int | None, total: int | None, label: str, scored: int) -> None:
-        super().__init__()
-        self.done = done
-        self.total = total
-        self.label = label
-        self.scored = scored
-
-    def can_replace(self, message: Message) -> bool:
-        return isinstance(message, ScoringProgressed)
-
-
-class NodeScored(Message):
-    """One more node was scored while the tree grows (shown at once); the root carries the tree."""
-
-    def __init__(self, node: Node, json: dict, tree: RemedyTree | None = None) -> None:
-        super().__init__()
-        self.node = node
-        self.json = json
-        self.tree = tree
-
-
-class TreeGrown(Message):
-    """Growth (breadth-first, best-first or an α/rule change) finished or was cancelled."""
-
-    def __init__(self, summary: TreeSummary, new_ids: tuple[str, ...] = (), focus: str | None = None) -> None:
-        super().__init__()
-        self.summary = summary
-        self.new_ids = new_ids
-        self.focus = focus
-
-
-class GrowthFailed(Message):
-    """Growing, scoring or judging stopped on an error (one line in words)."""
-
-    def __init__(self, error: str, node_id: str | None = None) -> None:
-        super().__init__()
-        self.error = error
-        self.node_id = node_id
-        """The node being grown when it failed (None: the first growth or a judgement)."""
-
-
 def failure_line(exc: BaseException) -> str:
     """One line for an error in a worker: the engine's own words, or the kind of failure."""
     from engine.errors import BendwiseError
@@ -154,12 +106,3 @@ def failure_line(exc: BaseException) -> str:
     return f"internal error ({type(exc).__name__}: {text[:200]}); the tree so far is kept"
 
 
-class ChartsComputed(Message):
-    """Chart data of one node are ready."""
-
-    def __init__(self, node_id: str, residuals: Any, curve: Any, error: str | None = None) -> None:
-        super().__init__()
-        self.node_id = node_id
-        self.residuals = residuals
-        self.curve = curve
-        self.error = error

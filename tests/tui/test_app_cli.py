@@ -43,7 +43,7 @@ def test_depth_is_checked_by_the_parser(capsys):
 
 
 def test_demo_without_datasets_is_one_clear_line(capsys, monkeypatch, tmp_path, terminal):
-    import tui.screens.data as data
+    import tui.reading as data
 
     monkeypatch.setattr(data, "datasets_dir", lambda: tmp_path / "datasets")
     assert main(["demo"]) == 2

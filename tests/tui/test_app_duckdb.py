@@ -10,7 +10,7 @@ import pytest
 
 from engine.tree.tree import RemedyTree
 from tui.cli import main
-from tui.screens.data import DataRequest
+from tui.reading import DataRequest
 
 duckdb = pytest.importorskip("duckdb")
 
@@ -85,7 +85,7 @@ async def test_scans_during_work_go_to_the_status_row(tmp_path):
     from engine.backends.duckdb import make_sql_study
     from engine.stats.transforms import Transform
     from tui.app import make_app
-    from tui.messages import ScoringProgressed
+    from tui.widgets.grower import TreeGrower
 
     folder = _files(tmp_path)
     study = make_sql_study(str(folder), y="signal", x="conc", exact=True)
@@ -94,13 +94,13 @@ async def test_scans_during_work_go_to_the_status_row(tmp_path):
     async with app.run_test(size=(100, 30)) as pilot:
         await app.workers.wait_for_complete()
         await pilot.pause()
-        screen = app.screen
+        grower = app.screen.query_one(TreeGrower)
         posted: list = []
-        real_post = screen.post_message
-        screen.post_message = lambda m: posted.append(m) or real_post(m)  # type: ignore[method-assign]
-        with screen._scans_reported():
+        real_post = grower.post_message
+        grower.post_message = lambda m: posted.append(m) or real_post(m)  # type: ignore[method-assign]
+        with grower._scans_reported(study):
             study._scan([Transform("boxcox", 0.3)])
-        labels = [m.label for m in posted if isinstance(m, ScoringProgressed)]
+        labels = [m.label for m in posted if isinstance(m, TreeGrower.Progressed)]
         assert any(lb.startswith("scanning 480 rows") for lb in labels), labels
         assert study.progress is None and study.exact_scans >= 1
 

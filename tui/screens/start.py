@@ -16,8 +16,9 @@ from textual.screen import Screen
 from textual.widgets import DataTable, Footer, Static
 
 from ..messages import LoadFailed, StudyBuilt, TableLoaded
+from ..reading import DataRequest, build_study, read_frame
 from ..widgets.formatting import num
-from .data import DataRequest, build_study, read_frame
+from ..widgets.status import MessageLine
 
 __all__ = ["StartScreen"]
 
@@ -54,6 +55,7 @@ class StartScreen(Screen):
         yield Static("", id="preview")
         yield Static("", id="choice")
         yield Static(f"reading {self.request.source}…", id="start-message")
+        yield MessageLine(id="message")
         yield Footer(compact=True)
 
     def on_mount(self) -> None:

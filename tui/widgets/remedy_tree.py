@@ -1,4 +1,8 @@
-"""The remedy tree as a Textual Tree: one line per engine node, payload = node id."""
+"""The remedy tree as a Textual Tree: one line per engine node, payload = node id.
+
+The widget owns what it shows: the board (a TreeSummary), the sibling order, the filter and the
+marked node are reactives; changing any of them redraws the lines.
+"""
 
 from __future__ import annotations
 
@@ -6,6 +10,7 @@ from collections.abc import Callable
 from typing import ClassVar
 
 from textual.binding import Binding, BindingType
+from textual.reactive import reactive
 from textual.widgets import Tree
 from textual.widgets.tree import TreeNode
 
@@ -22,6 +27,13 @@ class RemedyTreeView(Tree[str]):
     """Keyboard tree of candidate models; every line says its verdict in a word."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("up", "cursor_up", "Up", show=False, id="tree.up.arrow", tooltip="Move to the line above"),
+        Binding("down", "cursor_down", "Down", show=False, id="tree.down.arrow", tooltip="Move to the line below"),
+        Binding("pageup", "page_up", "Page up", show=False, id="tree.page.up", tooltip="Move up a screenful"),
+        Binding("pagedown", "page_down", "Page down", show=False, id="tree.page.down",
+                tooltip="Move down a screenful"),
+        Binding("enter", "toggle_node", "Open / close", show=False, id="tree.toggle",
+                tooltip="Show or hide the children of the highlighted node (a node not grown yet grows)"),
         Binding("right", "expand_or_child", "Open / to first child", show=False, id="tree.open",
                 tooltip="Show the children of the highlighted node, or move to its first child"),
         Binding("left", "collapse_or_parent", "Close / to parent", show=False, id="tree.close",
@@ -31,18 +43,32 @@ class RemedyTreeView(Tree[str]):
         Binding("home", "cursor_root", "To the root", show=False, id="tree.root", tooltip="Move to the root"),
     ]
 
+    board: reactive[TreeSummary | None] = reactive(None, always_update=True, init=False)
+    """What the lines show (None until the root is scored)."""
+    sort: reactive[str] = reactive("moves", init=False)
+    """Sibling order: one of SORTS."""
+    only_passing: reactive[bool] = reactive(False, init=False)
+    """Show only nodes that pass lack of fit (and the nodes leading to them)."""
+    marked: reactive[str | None] = reactive(None, init=False)
+    """The node marked for comparison."""
+
     def __init__(self, *, id: str | None = None) -> None:
         super().__init__("remedies", id=id)
         self.show_root = True
         self.guide_depth = 2
-        if plain_glyphs():
-            self.ICON_NODE = "+ "
-            self.ICON_NODE_EXPANDED = "- "
+        self.ICON_NODE, self.ICON_NODE_EXPANDED = self.icons()
         self._lines: dict[str, TreeNode[str]] = {}
         self._collapsed: set[str] = set()
         self.on_cursor: Callable[[str], None] | None = None
         """Called at once when the cursor lands on a node, so the detail is drawn in the same
         frame as the cursor (the NodeHighlighted message arrives a frame later)."""
+
+    @classmethod
+    def icons(cls) -> tuple[str, str]:
+        """(closed, open) marks in front of a line that has (or can grow) children."""
+        if plain_glyphs():
+            return "+ ", "- "
+        return Tree.ICON_NODE, Tree.ICON_NODE_EXPANDED
 
     def watch_cursor_line(self, previous_line: int, line: int) -> None:
         super().watch_cursor_line(previous_line, line)
@@ -52,8 +78,24 @@ class RemedyTreeView(Tree[str]):
             callback(node.data)
 
     # ---- building -----------------------------------------------------------------
-    def rebuild(self, board: TreeSummary, *, sort: str, only_passing: bool, marked: str | None) -> None:
+    def watch_board(self) -> None:
+        self.redraw()
+
+    def watch_sort(self) -> None:
+        self.redraw()
+
+    def watch_only_passing(self) -> None:
+        self.redraw()
+
+    def watch_marked(self) -> None:
+        self.redraw()
+
+    def redraw(self) -> None:
         """Redraw every line from the board, keeping the cursor on the same node."""
+        if self.board is not None:
+            self._rebuild(self.board, sort=self.sort, only_passing=self.only_passing, marked=self.marked)
+
+    def _rebuild(self, board: TreeSummary, *, sort: str, only_passing: bool, marked: str | None) -> None:
         keep = self.highlighted_id
         self._remember_collapsed()
         self.clear()
@@ -112,7 +154,8 @@ class RemedyTreeView(Tree[str]):
         getattr(self, "_tree_lines", None)
 
     def start(self, board: TreeSummary) -> None:
-        """Show the root alone (growth has just begun)."""
+        """Show the root alone (growth has just begun); the board fills as nodes are scored."""
+        self.set_reactive(RemedyTreeView.board, board)
         self.clear()
         self._lines = {"root": self.root}
         self.root.data = "root"
