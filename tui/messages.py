@@ -1,9 +1,8 @@
-"""Messages the workers post back to the UI thread, named in the past tense.
+"""What the workers hand back to the UI thread.
 
-The start screen's chain: TableLoaded → StudyBuilt (or LoadFailed). The main screen's widgets
-define their own messages (``TreeGrower.Grown``, ``ChartMaker.Ready`` …). ``TreeSummary`` is
-the picture of the tree they pass around; payloads are engine values computed in the worker,
-so the UI thread only formats.
+Messages live in the class that sends them (``StartScreen.TableLoaded``, ``TreeGrower.Grown``,
+``ChartMaker.Ready`` …). Here: ``TreeSummary``, the picture of the tree they pass around
+(engine values computed in the worker, so the UI thread only formats), and ``failure_line``.
 """
 
 from __future__ import annotations
@@ -11,17 +10,11 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
-from textual.message import Message
-
 if TYPE_CHECKING:
-    from engine.stats.study import Study
     from engine.tree.tree import Node, RemedyTree, Suggestion
 
 __all__ = [
     "TreeSummary",
-    "TableLoaded",
-    "StudyBuilt",
-    "LoadFailed",
 ]
 
 
@@ -68,32 +61,6 @@ class TreeSummary:
             check=check,
             complete=complete,
         )
-
-
-class TableLoaded(Message):
-    """The table was read; its columns are described (start screen)."""
-
-    def __init__(self, frame: Any, columns: tuple, previews: dict) -> None:
-        super().__init__()
-        self.frame = frame
-        self.columns = columns
-        self.previews = previews
-
-
-class StudyBuilt(Message):
-    """Response, predictor and covariates were chosen and cleaned into a Study."""
-
-    def __init__(self, study: Study) -> None:
-        super().__init__()
-        self.study = study
-
-
-class LoadFailed(Message):
-    """Reading the table or building the study was refused by the engine (one line)."""
-
-    def __init__(self, error: str) -> None:
-        super().__init__()
-        self.error = error
 
 
 def failure_line(exc: BaseException) -> str:
