@@ -191,3 +191,21 @@ async def test_status_and_caution_lines_are_not_cut(terminal):
         caution = app.screen.query_one(CautionLine)
         drawn = " ".join(s.text.strip() for s in caution.render_lines(caution.region.reset_offset))
         assert drawn.endswith("(? for more)") and "p-values after a search are optimistic" in drawn
+
+
+async def test_a_toast_over_a_dialog_stays_inside_the_screen(terminal):
+    """Dialogs have no message line: their rare notices are toasts, kept inside 80×24."""
+    from textual.widgets._toast import Toast
+
+    app = make_app(DATA, **ARGS)
+    async with app.run_test(size=(80, 24), notifications=True) as pilot:
+        await _ready(app, pilot)
+        await pilot.press("a")  # the α dialog
+        await pilot.pause()
+        app.notify("a notice long enough to wrap over several lines of the toast " * 3, title="notice")
+        await pilot.pause(0.2)
+        toasts = list(app.screen.query(Toast))
+        assert toasts
+        for toast in toasts:
+            r = toast.region
+            assert r.width > 0 and r.x >= 0 and r.right <= 80 and r.bottom <= 24, r
