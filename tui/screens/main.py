@@ -8,7 +8,6 @@ messages to one another and turns keys into requests.
 
 from __future__ import annotations
 
-import time
 from pathlib import Path
 from typing import TYPE_CHECKING, ClassVar
 
@@ -19,7 +18,6 @@ from textual.binding import Binding, BindingType
 from textual.containers import Horizontal, Vertical
 from textual.reactive import reactive
 from textual.screen import Screen
-from textual.timer import Timer
 from textual.widgets import Footer, Static, TabbedContent, TabPane, Tabs, Tree
 
 from ..messages import TreeSummary
@@ -93,12 +91,6 @@ class MainScreen(Screen):
         self.set_reactive(MainScreen.alpha, alpha)
         self.set_reactive(MainScreen.rule, rule)
         self.markers = Markers(plain_glyphs())
-        self._flush_timer: Timer | None = None
-        self._progress_timer: Timer | None = None
-        self._progress: TreeGrower.Progressed | None = None
-        self._pending: list[str] = []
-        self._pending_since = 0.0
-        self._last_move = 0.0
         self._shown_id: str | None = None
 
     # ---- the widgets' state, read through them ---------------------------------------
@@ -234,17 +226,10 @@ class MainScreen(Screen):
 
     @on(TreeGrower.Progressed)
     def _progressed(self, event: TreeGrower.Progressed) -> None:
-        # at most ten repaints a second for progress: the keys come first
-        self._progress = event
-        if self._progress_timer is None:
-            self._progress_timer = self.set_timer(0.1, self._show_progress)
-
-    def _show_progress(self) -> None:
-        self._progress_timer = None
-        event, grower = self._progress, self.query_one(TreeGrower)
-        if grower.busy and event is not None:
+        grower = self.query_one(TreeGrower)
+        if grower.busy:
             label = "cancelling after this step…" if grower.cancelling else event.label
-            self.query_one(StatusPanel).busy(label, event.done, event.total)
+            self.query_one(StatusPanel).progress(label, event.done, event.total)
 
     @on(TreeGrower.NodeScored)
     def _node_scored(self, event: TreeGrower.NodeScored) -> None:
@@ -254,43 +239,10 @@ class MainScreen(Screen):
                                    self.rule, self.alpha, None, complete=False))
             self._show(view.highlighted_id)
             return
-        board = self.board
-        if board is None or board.complete:
-            return
-        node = event.node
-        board.nodes[node.id] = node
-        board.json[node.id] = event.json
-        board.children[node.id] = ()
-        if node.parent is not None:
-            board.children[node.parent] = (*board.children.get(node.parent, ()), node.id)
-        if not view.only_passing:
-            # Adding a line re-lays out the screen; batch the lines so keys stay quick while
-            # hundreds of nodes arrive.
-            if not self._pending:
-                self._pending_since = time.monotonic()
-            self._pending.append(node.id)
-            if self._flush_timer is None:
-                self._flush_timer = self.set_timer(0.25, self._flush_pending)
-
-    def _flush_pending(self) -> None:
-        self._flush_timer = None
-        now = time.monotonic()
-        if now - self._last_move < 0.4 and now - self._pending_since < 2.0:
-            # the user is moving through the tree: keep the lines still and the keys quick
-            self._flush_timer = self.set_timer(0.25, self._flush_pending)
-            return
-        board, ids = self.board, self._pending
-        self._pending = []
-        if board is None or board.complete:
-            return
-        self.query_one(RemedyTreeView).add_scored_many(board, ids)
+        view.add_scored(event.node, event.json)
 
     @on(TreeGrower.Grown)
     def _tree_grown(self, event: TreeGrower.Grown) -> None:
-        if self._flush_timer is not None:
-            self._flush_timer.stop()
-            self._flush_timer = None
-        self._pending = []
         old = self.board
         if old is not None and old.tree is event.summary.tree:
             for nid, err in old.errors.items():  # errors stay with their node until it grows
@@ -343,7 +295,6 @@ class MainScreen(Screen):
 
     def _cursor_moved(self, nid: str | None) -> None:
         """From the tree's cursor watcher (same frame) and from NodeHighlighted (a frame later)."""
-        self._last_move = time.monotonic()
         if nid is not None and nid == self._shown_id:
             return
         self._show(nid)

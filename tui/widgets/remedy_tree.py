@@ -6,8 +6,9 @@ marked node are reactives; changing any of them redraws the lines.
 
 from __future__ import annotations
 
+import time
 from collections.abc import Callable
-from typing import ClassVar
+from typing import TYPE_CHECKING, ClassVar
 
 from textual.binding import Binding, BindingType
 from textual.reactive import reactive
@@ -16,6 +17,11 @@ from textual.widgets.tree import TreeNode
 
 from ..messages import TreeSummary
 from .formatting import plain_glyphs, tree_label, verdict_word
+
+if TYPE_CHECKING:
+    from textual.timer import Timer
+
+    from engine.tree.tree import Node
 
 __all__ = ["RemedyTreeView", "SORTS"]
 
@@ -59,6 +65,11 @@ class RemedyTreeView(Tree[str]):
         self.ICON_NODE, self.ICON_NODE_EXPANDED = self.icons()
         self._lines: dict[str, TreeNode[str]] = {}
         self._collapsed: set[str] = set()
+        self._queued: list[str] = []
+        """Nodes scored during the first growth and not drawn yet (lines are added in batches)."""
+        self._queued_since = 0.0
+        self._queue_timer: Timer | None = None
+        self._last_move = 0.0
         self.on_cursor: Callable[[str], None] | None = None
         """Called at once when the cursor lands on a node, so the detail is drawn in the same
         frame as the cursor (the NodeHighlighted message arrives a frame later)."""
@@ -72,6 +83,7 @@ class RemedyTreeView(Tree[str]):
 
     def watch_cursor_line(self, previous_line: int, line: int) -> None:
         super().watch_cursor_line(previous_line, line)
+        self._last_move = time.monotonic()
         node = self.cursor_node
         callback = getattr(self, "on_cursor", None)  # the watcher also runs inside __init__
         if callback is not None and node is not None and node.data is not None:
@@ -79,6 +91,7 @@ class RemedyTreeView(Tree[str]):
 
     # ---- building -----------------------------------------------------------------
     def watch_board(self) -> None:
+        self._drop_queued()
         self.redraw()
 
     def watch_sort(self) -> None:
@@ -133,6 +146,46 @@ class RemedyTreeView(Tree[str]):
         self._settle()
         self.select_id(keep if keep in self._lines else "root")
 
+    def add_scored(self, node: Node, json: dict) -> None:
+        """A node scored during the first growth: into the board now, onto the screen in a batch.
+
+        Adding a line re-lays out the screen; batching keeps keys quick while hundreds of nodes
+        arrive, and the lines stay still while the cursor moves.
+        """
+        board = self.board
+        if board is None or board.complete:
+            return
+        board.nodes[node.id] = node
+        board.json[node.id] = json
+        board.children[node.id] = ()
+        if node.parent is not None:
+            board.children[node.parent] = (*board.children.get(node.parent, ()), node.id)
+        if self.only_passing:
+            return
+        if not self._queued:
+            self._queued_since = time.monotonic()
+        self._queued.append(node.id)
+        if self._queue_timer is None:
+            self._queue_timer = self.set_timer(0.25, self._draw_queued)
+
+    def _draw_queued(self) -> None:
+        self._queue_timer = None
+        now = time.monotonic()
+        if now - self._last_move < 0.4 and now - self._queued_since < 2.0:
+            # the user is moving through the tree: keep the lines still and the keys quick
+            self._queue_timer = self.set_timer(0.25, self._draw_queued)
+            return
+        board, ids = self.board, self._queued
+        self._queued = []
+        if board is not None and not board.complete:
+            self.add_scored_many(board, ids)
+
+    def _drop_queued(self) -> None:
+        if self._queue_timer is not None:
+            self._queue_timer.stop()
+            self._queue_timer = None
+        self._queued = []
+
     def add_scored_many(self, board: TreeSummary, ids: list[str]) -> None:
         """Append freshly scored nodes under their parents (during growth), in one go."""
         for nid in ids:
@@ -156,6 +209,7 @@ class RemedyTreeView(Tree[str]):
     def start(self, board: TreeSummary) -> None:
         """Show the root alone (growth has just begun); the board fills as nodes are scored."""
         self.set_reactive(RemedyTreeView.board, board)
+        self._drop_queued()
         self.clear()
         self._lines = {"root": self.root}
         self.root.data = "root"

@@ -12,6 +12,7 @@ from textual.app import ComposeResult
 from textual.containers import Horizontal, Vertical
 from textual.reactive import reactive
 from textual.renderables.bar import Bar as BarRenderable
+from textual.timer import Timer
 from textual.widgets import Label, ProgressBar, Static
 
 from .formatting import glyph, plain_glyphs
@@ -102,6 +103,8 @@ class StatusPanel(Vertical):
     def __init__(self, caution: str, *, id: str | None = None) -> None:
         super().__init__(id=id)
         self._caution = caution
+        self._latest: tuple[str, int | None, int | None] | None = None
+        self._timer: Timer | None = None
 
     def compose(self) -> ComposeResult:
         yield Static("Suggested: growing the tree…", id="suggestion")
@@ -124,8 +127,20 @@ class StatusPanel(Vertical):
         # one fixed line: no need to lay the screen out again for each progress message
         self.query_one("#progress-label", Label).update(f" Esc cancels · {label}", layout=False)
 
+    def progress(self, label: str, done: int | None = None, total: int | None = None) -> None:
+        """Like ``busy`` while the row is shown, at most ten times a second (the keys come first)."""
+        self._latest = (label, done, total)
+        if self._timer is None:
+            self._timer = self.set_timer(0.1, self._show_latest)
+
+    def _show_latest(self) -> None:
+        self._timer = None
+        if self._latest is not None and self.is_busy:
+            self.busy(*self._latest)
+
     def idle(self) -> None:
         """Hide the progress row."""
+        self._latest = None
         self.query_one("#progress-row").remove_class("-busy")
 
     @property
