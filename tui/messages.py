@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
-    from engine.tree.tree import Node, RemedyTree, Suggestion
+    from bendwise.engine.tree.tree import Node, RemedyTree, Suggestion
 
 __all__ = [
     "TreeSummary",
@@ -65,7 +65,7 @@ class TreeSummary:
 
 def failure_line(exc: BaseException) -> str:
     """One line for an error in a worker: the engine's own words, or the kind of failure."""
-    from engine.errors import BendwiseError
+    from bendwise.engine.errors import BendwiseError
 
     text = " ".join(str(exc).split()) or type(exc).__name__
     if isinstance(exc, BendwiseError):

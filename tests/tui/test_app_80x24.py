@@ -11,8 +11,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-
-from tui.app import make_app
+from bendwise.tui.app import make_app
 
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"
 ARGS = dict(y="signal_mv", x="conc_mg_l", covariates=("run_day", "temp_c"))
@@ -39,7 +38,7 @@ async def _ready(app, pilot) -> None:
 
 
 def _view(app):
-    from tui.widgets.remedy_tree import RemedyTreeView
+    from bendwise.tui.widgets.remedy_tree import RemedyTreeView
 
     return app.screen.query_one(RemedyTreeView)
 
@@ -62,9 +61,8 @@ async def test_tree_lines_name_the_move_and_the_detail_the_model(terminal):
         await _ready(app, pilot)
         board = app.screen.board
         half = "0.5" if terminal == "linux" else "½"
+        from bendwise.tui.widgets.detail import NodeDetail
         from rich.style import Style
-
-        from tui.widgets.detail import NodeDetail
 
         view = _view(app)
         for nid, move in (("n1", "log y"), ("n7", "+ run_day"), ("n9", f"w θ={half}"), ("n4", "bc λ=1.31")):
@@ -84,7 +82,7 @@ async def test_tree_lines_name_the_move_and_the_detail_the_model(terminal):
 
 
 async def test_verdicts_and_cursor_read_without_colour(terminal):
-    from tui.widgets.formatting import tree_label
+    from bendwise.tui.widgets.formatting import tree_label
 
     app = make_app(DATA, **ARGS)
     async with app.run_test(size=(80, 24)) as pilot:
@@ -113,10 +111,9 @@ async def test_verdicts_and_cursor_read_without_colour(terminal):
 
 
 async def test_messages_stay_in_the_status_lines(terminal):
+    from bendwise.tui.widgets.detail import NodeDetail
+    from bendwise.tui.widgets.status import MessageLine
     from textual.widgets._toast import Toast
-
-    from tui.widgets.detail import NodeDetail
-    from tui.widgets.status import MessageLine
 
     app = make_app(DATA, **ARGS)
     async with app.run_test(size=(80, 24)) as pilot:
@@ -136,9 +133,8 @@ async def test_messages_stay_in_the_status_lines(terminal):
 
 
 async def test_help_lists_our_keys_and_the_marks_the_tree_draws(terminal):
+    from bendwise.tui.screens.help import help_renderable
     from rich.console import Console
-
-    from tui.screens.help import help_renderable
 
     app = make_app(DATA, **ARGS)
     async with app.run_test(size=(80, 24)) as pilot:
@@ -159,7 +155,7 @@ async def test_help_lists_our_keys_and_the_marks_the_tree_draws(terminal):
 
 @pytest.mark.parametrize("size", [(80, 24), (150, 40)], ids=["80x24", "150x40"])
 async def test_width_advice_comes_from_the_real_width(terminal, size):
-    from tui.widgets.detail import WIDE_PANE, NodeDetail
+    from bendwise.tui.widgets.detail import WIDE_PANE, NodeDetail
 
     app = make_app(DATA, **ARGS)
     async with app.run_test(size=size) as pilot:
@@ -177,7 +173,7 @@ async def test_width_advice_comes_from_the_real_width(terminal, size):
 
 
 async def test_status_and_caution_lines_are_not_cut(terminal):
-    from tui.widgets.status import CautionLine
+    from bendwise.tui.widgets.status import CautionLine
 
     app = make_app(DATA, **ARGS)
     async with app.run_test(size=(80, 24)) as pilot:

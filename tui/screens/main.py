@@ -32,7 +32,7 @@ from ..widgets.remedy_tree import SORTS, RemedyTreeView
 from ..widgets.status import MessageLine, StatusPanel
 
 if TYPE_CHECKING:
-    from engine.stats.study import Study
+    from bendwise.engine.stats.study import Study
 
 __all__ = ["MainScreen", "RULES"]
 
@@ -121,7 +121,7 @@ class MainScreen(Screen):
 
     # ---- layout ---------------------------------------------------------------------
     def compose(self) -> ComposeResult:
-        from engine.tree.tree import POST_SEARCH_CAUTION
+        from bendwise.engine.tree.tree import POST_SEARCH_CAUTION
 
         study, depth = self._start
         yield TreeGrower(self.request, study, depth, id="grower")
@@ -513,7 +513,7 @@ class MainScreen(Screen):
             return
         try:
             req = self.request
-            from engine.read.files import describe_reading
+            from bendwise.engine.read.files import describe_reading
 
             reading = None if req.path == "-" else describe_reading(
                 req.path, delimiter=getattr(req, "delimiter", None), decimal=getattr(req, "decimal", None),

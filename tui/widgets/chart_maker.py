@@ -72,9 +72,8 @@ class ChartMaker(Widget):
     @work(thread=True, exclusive=True, exit_on_error=False, group="charts")
     def _compute(self, board: TreeSummary, nid: str) -> ChartData | None:
         import numpy as np
-
-        from engine.errors import BendwiseError
-        from engine.handon.chart_data import curve_chart, residual_chart
+        from bendwise.engine.errors import BendwiseError
+        from bendwise.engine.handon.chart_data import curve_chart, residual_chart
 
         if nid in self._kept or nid not in board.nodes:
             return None

@@ -25,8 +25,8 @@ from ..messages import TreeSummary, failure_line
 from ..reading import DataRequest, build_study
 
 if TYPE_CHECKING:
-    from engine.stats.study import Study
-    from engine.tree.tree import Node, RemedyTree
+    from bendwise.engine.stats.study import Study
+    from bendwise.engine.tree.tree import Node, RemedyTree
 
 __all__ = ["TreeGrower", "Growth"]
 
@@ -178,8 +178,8 @@ class TreeGrower(Widget):
     # ---- workers ----------------------------------------------------------------------------
     @work(thread=True, exclusive=True, exit_on_error=False, group="tree")
     def _grow(self, alpha: float, rule: str) -> Growth:
-        from engine import check
-        from engine.tree.tree import RemedyTree
+        from bendwise.engine import check
+        from bendwise.engine.tree.tree import RemedyTree
 
         worker = get_current_worker()
         say = self.post_message
@@ -236,7 +236,7 @@ class TreeGrower(Widget):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="tree")
     def _rejudge(self, board: TreeSummary, alpha: float, rule: str) -> Growth:
-        from engine import check
+        from bendwise.engine import check
 
         tree = board.tree
         with self._lock:

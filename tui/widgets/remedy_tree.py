@@ -19,9 +19,8 @@ from ..messages import TreeSummary
 from .formatting import plain_glyphs, tree_label, verdict_word
 
 if TYPE_CHECKING:
+    from bendwise.engine.tree.tree import Node
     from textual.timer import Timer
-
-    from engine.tree.tree import Node
 
 __all__ = ["RemedyTreeView", "SORTS"]
 
