@@ -9,7 +9,7 @@ from typing import Any, ClassVar
 from textual.app import App
 from textual.binding import Binding, BindingType
 
-from .screens.data import DataRequest
+from .reading import DataRequest
 
 __all__ = ["BendwiseApp", "make_app"]
 
@@ -37,6 +37,19 @@ class BendwiseApp(App[int]):
         self.export_dir = Path(export_dir) if export_dir is not None else Path.cwd()
         if os.environ.get("TERM") == "linux" or os.environ.get("BENDWISE_PLAIN"):
             self.add_class("-plain")
+        if os.environ.get("TERM") == "linux" or "NO_COLOR" in os.environ:
+            self.add_class("-mono")  # colour carries nothing: the cursor row is reverse video
+
+    def notify(self, message: str, *, title: str = "", severity: str = "information", **kwargs: Any) -> None:
+        """Messages go to the screen's message line when it has one (a toast would cover the numbers
+        and run off an 80-column screen); otherwise a toast kept inside the screen (see app.tcss)."""
+        from .widgets.status import MessageLine
+
+        lines = self.screen.query(MessageLine) if self.is_running else []
+        if lines:
+            lines.first().say(f"{title}: {message}" if title else message, warning=severity != "information")
+            return
+        super().notify(message, title=title, severity=severity, **kwargs)  # type: ignore[arg-type]
 
     def on_mount(self) -> None:
         from .screens.main import MainScreen
@@ -82,7 +95,7 @@ def make_app(
     """
     if request is None:
         if data is None:
-            from .screens.data import demo_request
+            from .reading import demo_request
 
             request = demo_request()
         else:

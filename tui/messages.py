@@ -1,8 +1,8 @@
-"""Messages the workers post back to the UI thread, named in the past tense.
+"""What the workers hand back to the UI thread.
 
-Chain: TableLoaded (start screen) → StudyBuilt → NodeScored… → TreeGrown; NodeExpanded after
-best-first growth of one node; ChartsComputed after a selection. Payloads are engine values
-(frozen results, node ids, JSON dicts) computed in the worker, so the UI thread only formats.
+Messages live in the class that sends them (``StartScreen.TableLoaded``, ``TreeGrower.Grown``,
+``ChartMaker.Ready`` …). Here: ``TreeSummary``, the picture of the tree they pass around
+(engine values computed in the worker, so the UI thread only formats), and ``failure_line``.
 """
 
 from __future__ import annotations
@@ -10,22 +10,11 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
-from textual.message import Message
-
 if TYPE_CHECKING:
-    from bendwise.engine.stats.study import Study
     from bendwise.engine.tree.tree import Node, RemedyTree, Suggestion
 
 __all__ = [
     "TreeSummary",
-    "TableLoaded",
-    "StudyBuilt",
-    "LoadFailed",
-    "ScoringProgressed",
-    "NodeScored",
-    "TreeGrown",
-    "GrowthFailed",
-    "ChartsComputed",
 ]
 
 
@@ -74,76 +63,6 @@ class TreeSummary:
         )
 
 
-class TableLoaded(Message):
-    """The table was read; its columns are described (start screen)."""
-
-    def __init__(self, frame: Any, columns: tuple, previews: dict) -> None:
-        super().__init__()
-        self.frame = frame
-        self.columns = columns
-        self.previews = previews
-
-
-class StudyBuilt(Message):
-    """Response, predictor and covariates were chosen and cleaned into a Study."""
-
-    def __init__(self, study: Study) -> None:
-        super().__init__()
-        self.study = study
-
-
-class LoadFailed(Message):
-    """Reading the table or building the study was refused by the engine (one line)."""
-
-    def __init__(self, error: str) -> None:
-        super().__init__()
-        self.error = error
-
-
-class ScoringProgressed(Message):
-    """Progress of the running expansion (later messages replace earlier ones)."""
-
-    def __init__(self, done: int | None, total: int | None, label: str, scored: int) -> None:
-        super().__init__()
-        self.done = done
-        self.total = total
-        self.label = label
-        self.scored = scored
-
-    def can_replace(self, message: Message) -> bool:
-        return isinstance(message, ScoringProgressed)
-
-
-class NodeScored(Message):
-    """One more node was scored while the tree grows (shown at once); the root carries the tree."""
-
-    def __init__(self, node: Node, json: dict, tree: RemedyTree | None = None) -> None:
-        super().__init__()
-        self.node = node
-        self.json = json
-        self.tree = tree
-
-
-class TreeGrown(Message):
-    """Growth (breadth-first, best-first or an α/rule change) finished or was cancelled."""
-
-    def __init__(self, summary: TreeSummary, new_ids: tuple[str, ...] = (), focus: str | None = None) -> None:
-        super().__init__()
-        self.summary = summary
-        self.new_ids = new_ids
-        self.focus = focus
-
-
-class GrowthFailed(Message):
-    """Growing, scoring or judging stopped on an error (one line in words)."""
-
-    def __init__(self, error: str, node_id: str | None = None) -> None:
-        super().__init__()
-        self.error = error
-        self.node_id = node_id
-        """The node being grown when it failed (None: the first growth or a judgement)."""
-
-
 def failure_line(exc: BaseException) -> str:
     """One line for an error in a worker: the engine's own words, or the kind of failure."""
     from bendwise.engine.errors import BendwiseError
@@ -154,12 +73,3 @@ def failure_line(exc: BaseException) -> str:
     return f"internal error ({type(exc).__name__}: {text[:200]}); the tree so far is kept"
 
 
-class ChartsComputed(Message):
-    """Chart data of one node are ready."""
-
-    def __init__(self, node_id: str, residuals: Any, curve: Any, error: str | None = None) -> None:
-        super().__init__()
-        self.node_id = node_id
-        self.residuals = residuals
-        self.curve = curve
-        self.error = error

@@ -161,3 +161,39 @@ def test_table_piped_in_then_keys_from_the_terminal(tmp_path):
         assert term.child.exitstatus == 0
     finally:
         term.close()
+
+
+def _reversed_words(term: Terminal, row: int) -> str:
+    """The characters of one screen row drawn in reverse video."""
+    line = term.screen.buffer[row]
+    return "".join(line[x].data if line[x].reverse else " " for x in range(term.screen.columns))
+
+
+@pytest.mark.parametrize("extra", [{"NO_COLOR": "1"}, {"TERM": "linux"}], ids=["no-color", "linux"])
+def test_without_colour_the_cursor_and_fail_are_reverse_video(tmp_path, extra):
+    """The real terminal at 80×24 without colour: the cursor row and every FAIL are in reverse
+    video, tree lines end with the move, and no message box covers the detail."""
+    term = Terminal([_bendwise(), "demo"], tmp_path, _env(**extra))
+    try:
+        def painted(t: str) -> bool:  # the tree and its cursor row drawn (not a frame caught mid-paint)
+            rows = t.splitlines()
+            if "Suggested (aicc" not in t or not any(" n1 " in r and "FAIL log y" in r for r in rows):
+                return False
+            root = next((i for i, r in enumerate(rows) if " root " in r), None)
+            return root is not None and "root FAIL y ~ x" in _reversed_words(term, root)
+
+        screen = term.wait_for(painted, "the grown tree with its cursor row", timeout=20)
+        rows = screen.splitlines()
+        root = next(i for i, r in enumerate(rows) if " root " in r)
+        assert "root FAIL y ~ x" in _reversed_words(term, root)  # the cursor row
+        n1 = next(i for i, r in enumerate(rows) if " n1 " in r)
+        assert "FAIL" in _reversed_words(term, n1) and "log y" not in _reversed_words(term, n1)
+        assert rows[n1].split("│")[1].rstrip().endswith("FAIL log y")
+        term.send("s")
+        screen = term.wait_for(lambda t: "siblings ordered by aicc" in t, "the message line")
+        message = next(r for r in screen.splitlines() if "siblings ordered" in r)
+        assert "│" not in message  # a line of its own, under the panes, not over the detail
+        term.send("q")
+        term.child.expect(pexpect.EOF, timeout=10)
+    finally:
+        term.close()

@@ -42,7 +42,7 @@ def test_depth_is_checked_by_the_parser(capsys):
 
 
 def test_demo_without_datasets_is_one_clear_line(capsys, monkeypatch, tmp_path, terminal):
-    import bendwise.tui.screens.data as data
+    import bendwise.tui.reading as data
     monkeypatch.setattr(data, "datasets_dir", lambda: tmp_path / "datasets")
     assert main(["demo"]) == 2
     err = capsys.readouterr().err

@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 from bendwise.engine.tree.tree import RemedyTree
 from bendwise.tui.cli import main
-from bendwise.tui.screens.data import DataRequest
+from bendwise.tui.reading import DataRequest
 
 duckdb = pytest.importorskip("duckdb")
 
@@ -83,7 +83,7 @@ async def test_scans_during_work_go_to_the_status_row(tmp_path):
     from bendwise.engine.backends.duckdb import make_sql_study
     from bendwise.engine.stats.transforms import Transform
     from bendwise.tui.app import make_app
-    from bendwise.tui.messages import ScoringProgressed
+    from bendwise.tui.widgets.grower import TreeGrower
 
     folder = _files(tmp_path)
     study = make_sql_study(str(folder), y="signal", x="conc", exact=True)
@@ -92,13 +92,13 @@ async def test_scans_during_work_go_to_the_status_row(tmp_path):
     async with app.run_test(size=(100, 30)) as pilot:
         await app.workers.wait_for_complete()
         await pilot.pause()
-        screen = app.screen
+        grower = app.screen.query_one(TreeGrower)
         posted: list = []
-        real_post = screen.post_message
-        screen.post_message = lambda m: posted.append(m) or real_post(m)  # type: ignore[method-assign]
-        with screen._scans_reported():
+        real_post = grower.post_message
+        grower.post_message = lambda m: posted.append(m) or real_post(m)  # type: ignore[method-assign]
+        with grower._scans_reported(study):
             study._scan([Transform("boxcox", 0.3)])
-        labels = [m.label for m in posted if isinstance(m, ScoringProgressed)]
+        labels = [m.label for m in posted if isinstance(m, TreeGrower.Progressed)]
         assert any(lb.startswith("scanning 480 rows") for lb in labels), labels
         assert study.progress is None and study.exact_scans >= 1
 

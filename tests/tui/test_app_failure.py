@@ -41,7 +41,7 @@ async def test_first_growth_failing_frees_the_keys(monkeypatch):
     async with app.run_test(size=(80, 24)) as pilot:
         await _ready(app, pilot)
         screen = app.screen
-        assert not screen._busy, "the screen still thinks it is growing"
+        assert not screen.busy, "the screen still thinks it is growing"
         assert "Could not grow the tree" in _status(app) and "ValueError" in _status(app)
         assert "\n" not in _status(app).strip()
         assert "Could not grow the tree" in _detail(app)
@@ -74,7 +74,7 @@ async def test_expand_failing_is_reported_under_the_node_and_growth_stops(monkey
         monkeypatch.setattr(RemedyTree, "expand", broken)
         await pilot.press("g")
         await _ready(app, pilot)
-        assert not screen._busy
+        assert not screen.busy
         assert f"Could not grow {target}" in _status(app) and "RuntimeError" in _status(app)
         assert f"Growing {target} stopped" in _detail(app)
         # the keys work again: growing another node is accepted once the engine behaves
@@ -104,6 +104,6 @@ async def test_rejudge_failing_keeps_alpha(monkeypatch, size):
         monkeypatch.setattr(RemedyTree, "suggest", broken)
         await pilot.press("r")
         await _ready(app, pilot)
-        assert not screen._busy
+        assert not screen.busy
         assert "FloatingPointError" in _status(app)
         assert screen.board.tree.alpha == before

@@ -45,9 +45,12 @@ def _settle(*keys: str, node: str | None = None):
             await pilot.press(*keys)
             await app.workers.wait_for_complete()
         screen = app.screen
-        if hasattr(screen, "_charts_visible") and screen._charts_visible():
+        if hasattr(screen, "charts_visible") and screen.charts_visible():
+            from bendwise.tui.widgets.chart_maker import ChartMaker
+            from bendwise.tui.widgets.remedy_tree import RemedyTreeView
+
             for _ in range(500):  # chart data are computed once the cursor rests
-                if screen._current() in screen._charts:
+                if screen.query_one(ChartMaker).kept(screen.query_one(RemedyTreeView).highlighted_id):
                     break
                 await pilot.pause(0.02)
                 await app.workers.wait_for_complete()

@@ -321,18 +321,18 @@ async def test_keys_answer_while_scoring_and_escape_cancels(monkeypatch, engine_
         deadline = time.monotonic() + 30
         while len(_view(app).shown_ids) < 4 and time.monotonic() < deadline:
             await asyncio.sleep(0.01)
-        assert app.screen._busy
+        assert app.screen.busy
         _key(app, "down")
         _key(app, "down")
         while _view(app).highlighted_id in (None, "root") and time.monotonic() < deadline:
             await asyncio.sleep(0.01)
         assert _view(app).highlighted_id not in (None, "root")
-        assert app.screen._busy  # still scoring while the cursor moved
+        assert app.screen.busy  # still scoring while the cursor moved
         moved_to = _view(app).highlighted_id
         _key(app, "escape")
-        while app.screen._busy and time.monotonic() < deadline:
+        while app.screen.busy and time.monotonic() < deadline:
             await asyncio.sleep(0.01)
         board = app.screen.board
-        assert not app.screen._busy
+        assert not app.screen.busy
         assert not board.complete and 1 < len(board.nodes) < len(engine_tree.nodes), len(board.nodes)
         assert _view(app).highlighted_id == moved_to  # the rebuild kept the cursor on its node

@@ -26,7 +26,7 @@ def run(args: argparse.Namespace) -> int:
     """Check the demo data are present, then run the app."""
     from bendwise.engine.errors import DataError, UsageError
 
-    from ..screens.data import build_study, datasets_dir, demo_request, read_frame
+    from ..reading import build_study, datasets_dir, demo_request, read_frame
 
     problem = terminal_problem()
     if problem:

@@ -94,7 +94,7 @@ def run(args: argparse.Namespace) -> int:
     """Check the data, then run the app."""
     from bendwise.engine.errors import UsageError
 
-    from ..screens.data import DataRequest, build_study, read_frame
+    from ..reading import DataRequest, build_study, read_frame
 
     problem = terminal_problem(table_from_stdin=args.data == "-")
     if problem:

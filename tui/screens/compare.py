@@ -13,7 +13,7 @@ from textual.screen import Screen
 from textual.widgets import Footer, Static
 
 from ..messages import TreeSummary
-from ..widgets.formatting import VERDICT_STYLE, fmt_p, num, test_words, verdict_word
+from ..widgets.formatting import fmt_p, num, test_words, verdict_style, verdict_word
 
 __all__ = ["CompareScreen", "compare_table"]
 
@@ -55,7 +55,7 @@ def compare_table(board: TreeSummary, a: str, b: str) -> Table:
 
     def verdict(n: str) -> Text:
         w = verdict_word(board.json[n], board.alpha)
-        return Text(w, style=VERDICT_STYLE[w])
+        return Text(w, style=verdict_style(w))
 
     def score(n: str, fn, default: str = "—"):
         s = board.nodes[n].score

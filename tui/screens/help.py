@@ -20,15 +20,24 @@ ABOUT = (
     "bendwise tests whether a straight line fits data with repeated measurements at the same settings "
     "(the pure-error lack-of-fit F test), grows a tree of candidate remedies — transforms of y or x, "
     "polynomial terms, covariates, weights — scores every node on one scale and suggests one, with its reasons. "
-    "Verdicts are written as words (pass, FAIL, untestable), never as colour alone; in the tree '*' marks the "
-    "suggested node, '=' the node marked for comparison and '…' a node not grown yet."
+    "Verdicts are written as words (pass, FAIL, untestable), never as colour alone. Each line of the tree "
+    "names the move that made the node from its parent ('+ run_day', 'log y', 'w θ=½' for weights, "
+    "'bc λ=1.31' for Box–Cox y); the detail pane gives the whole model."
 )
+
+
+def tree_marks() -> str:
+    """What the marks in the tree mean, with the glyphs the tree draws on this terminal."""
+    from ..widgets.remedy_tree import RemedyTreeView
+
+    closed, opened = RemedyTreeView.icons()
+    return (f"In the tree '*' marks the suggested node, '=' the node marked for comparison, '{closed.strip()}' a "
+            f"node whose children are hidden or not grown yet (→ or Enter opens it; opening a node not grown yet "
+            f"grows it) and '{opened.strip()}' an open node.")
 
 
 def binding_sections(app) -> list[tuple[str, list[Binding]]]:
     """(section title, bindings) for every place the keys act, read from the classes."""
-    from textual.widgets import Tree
-
     from ..widgets.remedy_tree import RemedyTreeView
     from .compare import CompareScreen
     from .main import MainScreen
@@ -39,7 +48,7 @@ def binding_sections(app) -> list[tuple[str, list[Binding]]]:
 
     return [
         ("Everywhere", own(type(app))),
-        ("Remedy tree (moving)", own(Tree) + own(RemedyTreeView)),
+        ("Remedy tree (moving)", own(RemedyTreeView)),
         ("Main screen", own(MainScreen)),
         ("Compare screen", own(CompareScreen)),
         ("Start screen (choosing columns)", own(StartScreen)),
@@ -74,6 +83,7 @@ def help_renderable(app) -> RenderableType:
     parts += [
         Text("About", style="bold underline"),
         Text(ABOUT),
+        Text(tree_marks()),
         Text(""),
         Text(POST_SEARCH_CAUTION, style="italic"),
         Text(""),

@@ -1,13 +1,13 @@
-"""The main screen: the remedy tree, the selected node's detail and charts, the status line.
+"""The main screen: the remedy tree, the selected node's detail and charts, the status lines.
 
-Growth, scoring, α/rule changes and chart data run in thread workers that hold the tree
-lock and post past-tense messages; this screen only formats what they send.
+The screen composes widgets that own their state: ``TreeGrower`` owns the engine tree and its
+workers, ``RemedyTreeView`` the board, order, filter and mark, ``ChartMaker`` the chart data,
+``StatusPanel`` the suggestion, caution, message and progress lines. The screen routes their
+messages to one another and turns keys into requests.
 """
 
 from __future__ import annotations
 
-import threading
-import time
 from pathlib import Path
 from typing import TYPE_CHECKING, ClassVar
 
@@ -16,28 +16,20 @@ from textual import on
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Horizontal, Vertical
+from textual.reactive import reactive
 from textual.screen import Screen
-from textual.timer import Timer
 from textual.widgets import Footer, Static, TabbedContent, TabPane, Tabs, Tree
 
-from ..messages import (
-    ChartsComputed,
-    GrowthFailed,
-    NodeScored,
-    ScoringProgressed,
-    StudyBuilt,
-    TreeGrown,
-    TreeSummary,
-)
-from ..widgets.charts import Markers
+from ..messages import TreeSummary
+from ..reading import DataRequest
+from ..widgets.chart_maker import ChartData, ChartMaker
+from ..widgets.charts import Markers, boxcox_figure, curve_figure, residual_figure
 from ..widgets.detail import NodeDetail
 from ..widgets.formatting import plain_glyphs
+from ..widgets.grower import TreeGrower
 from ..widgets.plot import PlotView
 from ..widgets.remedy_tree import SORTS, RemedyTreeView
-from ..widgets.status import StatusPanel
-from .chart_panes import ChartPanes
-from .data import DataRequest
-from .work import TreeWork
+from ..widgets.status import MessageLine, StatusPanel
 
 if TYPE_CHECKING:
     from bendwise.engine.stats.study import Study
@@ -47,9 +39,10 @@ __all__ = ["MainScreen", "RULES"]
 RULES = ("aicc", "bic", "simplest", "press")  # engine.remedies.RULES, without importing the engine here
 WIDE = (150, 36)
 """From this many columns and rows the charts get their own column instead of tabs."""
+CHART_PANES = ("#residuals", "#curve", "#residuals-wide", "#curve-wide")
 
 
-class MainScreen(ChartPanes, TreeWork, Screen):
+class MainScreen(Screen):
     """Walk the remedy tree by keyboard."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
@@ -85,37 +78,55 @@ class MainScreen(ChartPanes, TreeWork, Screen):
                 tooltip="Stop growing (nodes scored so far stay)"),
     ]
 
+    alpha: reactive[float] = reactive(0.05, init=False)
+    """Level of the lack-of-fit verdicts."""
+    rule: reactive[str] = reactive("aicc", init=False)
+    """Suggestion rule."""
+
     def __init__(self, request: DataRequest, *, study: Study | None = None, depth: int = 2, alpha: float = 0.05,
                  rule: str = "aicc") -> None:
         super().__init__()
         self.request = request
-        self.study = study
-        self.depth = depth
-        self.alpha = alpha
-        self.rule = rule
-        self.sort = "moves"
-        self.only_passing = False
-        self.marked: str | None = None
-        self.board: TreeSummary | None = None
+        self._start = (study, depth)
+        self.set_reactive(MainScreen.alpha, alpha)
+        self.set_reactive(MainScreen.rule, rule)
         self.markers = Markers(plain_glyphs())
-        self._lock = threading.Lock()
-        self._charts: dict[str, ChartsComputed] = {}
-        self._busy = False
-        self._cancelling = False
-        self._chart_timer: Timer | None = None
-        self._flush_timer: Timer | None = None
-        self._progress_timer: Timer | None = None
-        self._progress: ScoringProgressed | None = None
-        self._pending: list[str] = []
-        self._pending_since = 0.0
-        self._last_move = 0.0
         self._shown_id: str | None = None
+
+    # ---- the widgets' state, read through them ---------------------------------------
+    @property
+    def board(self) -> TreeSummary | None:
+        """The tree as last shown (owned by the tree view)."""
+        return self.query_one(RemedyTreeView).board
+
+    @property
+    def busy(self) -> bool:
+        """True while the grower's worker holds the tree."""
+        return self.query_one(TreeGrower).busy
+
+    @property
+    def study(self) -> Study | None:
+        """The study once read (owned by the grower)."""
+        return self.query_one(TreeGrower).study
+
+    @property
+    def sort(self) -> str:
+        """The tree view's sibling order."""
+        return self.query_one(RemedyTreeView).sort
+
+    @property
+    def marked(self) -> str | None:
+        """The node marked for comparison (owned by the tree view)."""
+        return self.query_one(RemedyTreeView).marked
 
     # ---- layout ---------------------------------------------------------------------
     def compose(self) -> ComposeResult:
         from bendwise.engine.tree.tree import POST_SEARCH_CAUTION
 
-        yield Static(self._title(), id="title")
+        study, depth = self._start
+        yield TreeGrower(self.request, study, depth, id="grower")
+        yield ChartMaker(id="charts")
+        yield Static(self._title(study), id="title")
         with Horizontal(id="body"):
             with Vertical(id="tree-pane"):
                 yield RemedyTreeView(id="tree")
@@ -136,19 +147,28 @@ class MainScreen(ChartPanes, TreeWork, Screen):
 
     def on_mount(self) -> None:
         self.query_one("#tree-pane").border_title = "Remedy tree"
-        self._update_pane_title()
         view = self.query_one(RemedyTreeView)
         view.on_cursor = self._cursor_moved
         view.focus()
+        self.watch(view, "sort", self._order_changed, init=True)
+        self.watch(view, "only_passing", self._order_changed, init=False)
+        grower = self.query_one(TreeGrower)
+        self.watch(grower, "busy", self._busy_changed, init=False)
+        self.watch(grower, "cancelling", self._busy_changed, init=False)
         self.query_one(Tabs).can_focus = False  # views switch with 1–4; Tab goes tree ⇄ detail
         self._layout_for(self.size.width, self.size.height)
         self.query_one(StatusPanel).busy("starting…")
-        self._busy = True
-        self._grow()
+        grower.start(self.alpha, self.rule)
 
     def on_resize(self, event) -> None:
         self._layout_for(event.size.width, event.size.height)
-        self.query_one("#title", Static).update(self._title())
+        self._retitle()
+
+    def watch_alpha(self) -> None:
+        self._retitle()
+
+    def watch_rule(self) -> None:
+        self._retitle()
 
     def _layout_for(self, width: int, height: int) -> None:
         wide = width >= WIDE[0] and height >= WIDE[1]
@@ -164,8 +184,11 @@ class MainScreen(ChartPanes, TreeWork, Screen):
         if wide and nid is not None and self.board is not None and nid in self.board.nodes:
             self._request_charts(nid)
 
-    def _title(self) -> Text:
-        st = self.study
+    def _retitle(self) -> None:
+        if self.is_mounted:
+            self.query_one("#title", Static).update(self._title(self.study))
+
+    def _title(self, st: Study | None) -> Text:
         t = Text.assemble(("bendwise", "bold"), f" · {self.request.source}")
         if st is None:
             t.append(f" · reading {self.request.source}…")
@@ -177,123 +200,82 @@ class MainScreen(ChartPanes, TreeWork, Screen):
         t.append(f" · α {self.alpha:g} · rule {self.rule}")
         return t
 
-    def _update_pane_title(self) -> None:
-        pane = self.query_one("#tree-pane")
-        filt = " · only passing" if self.only_passing else ""
-        pane.border_subtitle = f"sort {self.sort}{filt}"
+    def _order_changed(self) -> None:
+        view = self.query_one(RemedyTreeView)
+        filt = " · only passing" if view.only_passing else ""
+        self.query_one("#tree-pane").border_subtitle = f"sort {view.sort}{filt}"
+        if self.is_mounted:
+            self._show(self._current())
 
-    # ---- messages from workers -------------------------------------------------------
-    @on(StudyBuilt)
-    def _study_built(self, event: StudyBuilt) -> None:
-        self.study = event.study
-        self.query_one("#title", Static).update(self._title())
+    def _busy_changed(self) -> None:
+        grower = self.query_one(TreeGrower)
+        status = self.query_one(StatusPanel)
+        if not grower.busy:
+            status.idle()
+        elif grower.cancelling:
+            status.busy("cancelling after this step…")
 
-    @on(ScoringProgressed)
-    def _progressed(self, event: ScoringProgressed) -> None:
-        # at most ten repaints a second for progress: the keys come first
-        self._progress = event
-        if self._progress_timer is None:
-            self._progress_timer = self.set_timer(0.1, self._show_progress)
+    def say(self, text: str, *, warning: bool = False) -> None:
+        """A message in the status lines (never a toast over the numbers)."""
+        self.query_one(MessageLine).say(text, warning=warning)
 
-    def _show_progress(self) -> None:
-        self._progress_timer = None
-        event = self._progress
-        if self._busy and event is not None:
-            label = "cancelling after this step…" if self._cancelling else event.label
-            self.query_one(StatusPanel).busy(label, event.done, event.total)
+    # ---- messages from the grower -----------------------------------------------------
+    @on(TreeGrower.StudyBuilt)
+    def _study_built(self) -> None:
+        self._retitle()
 
-    @on(NodeScored)
-    def _node_scored(self, event: NodeScored) -> None:
+    @on(TreeGrower.Progressed)
+    def _progressed(self, event: TreeGrower.Progressed) -> None:
+        grower = self.query_one(TreeGrower)
+        if grower.busy:
+            label = "cancelling after this step…" if grower.cancelling else event.label
+            self.query_one(StatusPanel).progress(label, event.done, event.total)
+
+    @on(TreeGrower.NodeScored)
+    def _node_scored(self, event: TreeGrower.NodeScored) -> None:
         view = self.query_one(RemedyTreeView)
         if event.tree is not None:  # first growth: a board that fills as nodes arrive
-            self.board = TreeSummary(event.tree, {"root": event.node}, {"root": event.json}, {"root": ()}, None,
-                                     self.rule, self.alpha, None, complete=False)
-            view.start(self.board)
+            view.start(TreeSummary(event.tree, {"root": event.node}, {"root": event.json}, {"root": ()}, None,
+                                   self.rule, self.alpha, None, complete=False))
             self._show(view.highlighted_id)
             return
-        board = self.board
-        if board is None or board.complete:
-            return
-        node = event.node
-        board.nodes[node.id] = node
-        board.json[node.id] = event.json
-        board.children[node.id] = ()
-        if node.parent is not None:
-            board.children[node.parent] = (*board.children.get(node.parent, ()), node.id)
-        if not self.only_passing:
-            # Adding a line re-lays out the screen; batch the lines so keys stay quick while
-            # hundreds of nodes arrive.
-            if not self._pending:
-                self._pending_since = time.monotonic()
-            self._pending.append(node.id)
-            if self._flush_timer is None:
-                self._flush_timer = self.set_timer(0.25, self._flush_pending)
+        view.add_scored(event.node, event.json)
 
-    def _flush_pending(self) -> None:
-        self._flush_timer = None
-        now = time.monotonic()
-        if now - self._last_move < 0.4 and now - self._pending_since < 2.0:
-            # the user is moving through the tree: keep the lines still and the keys quick
-            self._flush_timer = self.set_timer(0.25, self._flush_pending)
-            return
-        board, ids = self.board, self._pending
-        self._pending = []
-        if board is None or board.complete:
-            return
-        view = self.query_one(RemedyTreeView)
-        view.add_scored_many(board, ids)
-
-    @on(TreeGrown)
-    def _tree_grown(self, event: TreeGrown) -> None:
-        if self._flush_timer is not None:
-            self._flush_timer.stop()
-            self._flush_timer = None
-        self._pending = []
+    @on(TreeGrower.Grown)
+    def _tree_grown(self, event: TreeGrower.Grown) -> None:
         old = self.board
         if old is not None and old.tree is event.summary.tree:
             for nid, err in old.errors.items():  # errors stay with their node until it grows
                 if not (nid == event.focus and event.summary.complete):
                     event.summary.errors.setdefault(nid, err)
-        self.board = event.summary
         self.alpha, self.rule = event.summary.alpha, event.summary.rule
-        self._set_idle()
         view = self.query_one(RemedyTreeView)
-        view.rebuild(self.board, sort=self.sort, only_passing=self.only_passing, marked=self.marked)
+        view.board = event.summary
         if event.focus is not None:
             view.select_id(event.focus)
         self._refresh_status()
-        self.query_one("#title", Static).update(self._title())
         self._show(view.highlighted_id)
         if not event.summary.complete:
-            self.notify(f"growth stopped: {len(event.summary.nodes)} models scored; press g on a node to grow it",
-                        title="cancelled")
+            self.say(f"growth stopped: {len(event.summary.nodes)} models scored; press g on a node to grow it")
         elif event.focus is not None:
             n = len(event.new_ids)
-            self.notify(f"{event.focus}: {n} new model(s) scored" if n else f"{event.focus}: no new models "
-                        "(every move was pruned or reaches a model already in the tree)")
+            self.say(f"{event.focus}: {n} new model(s) scored" if n else f"{event.focus}: no new models "
+                     "(every move was pruned or reaches a model already in the tree)")
 
-    @on(GrowthFailed)
-    def _growth_failed(self, event: GrowthFailed) -> None:
-        self._set_idle()
+    @on(TreeGrower.Failed)
+    def _growth_failed(self, event: TreeGrower.Failed) -> None:
         what = f"Could not grow {event.node_id}" if event.node_id else "Could not grow the tree"
         board = self.board
         if event.node_id is not None and board is not None:
             # keep what was scored before the failure, and say what stopped under the node
             board.errors[event.node_id] = event.error
-            self.query_one(RemedyTreeView).rebuild(board, sort=self.sort, only_passing=self.only_passing,
-                                                   marked=self.marked)
-            self.query_one(RemedyTreeView).select_id(event.node_id)
+            view = self.query_one(RemedyTreeView)
+            view.redraw()
+            view.select_id(event.node_id)
             self._show(event.node_id)
         else:
             self.query_one(NodeDetail).show_message(Text(f"{what}: {event.error}", style="bold"))
         self.query_one(StatusPanel).set_suggestion(Text.assemble((what, "bold"), f" — {event.error}"))
-
-    def on_worker_state_changed(self, event) -> None:
-        """A worker that stopped on an error the workers did not catch still frees the keys."""
-        from textual.worker import WorkerState
-
-        if event.state == WorkerState.ERROR and event.worker.group == "tree":
-            self.post_message(GrowthFailed(f"internal error ({event.worker.error!r:.200}); the tree so far is kept"))
 
     # ---- showing a node -------------------------------------------------------------
     @on(Tree.NodeExpanded, "#tree")
@@ -302,7 +284,7 @@ class MainScreen(ChartPanes, TreeWork, Screen):
         board, nid = self.board, event.node.data
         if board is None or nid not in board.nodes or not RemedyTreeView.growable(board, nid) or not board.complete:
             return
-        if self._busy:
+        if self.busy:
             event.node.collapse()
         self.query_one(RemedyTreeView).move_cursor(event.node)
         self.action_grow(nid)
@@ -313,7 +295,6 @@ class MainScreen(ChartPanes, TreeWork, Screen):
 
     def _cursor_moved(self, nid: str | None) -> None:
         """From the tree's cursor watcher (same frame) and from NodeHighlighted (a frame later)."""
-        self._last_move = time.monotonic()
         if nid is not None and nid == self._shown_id:
             return
         self._show(nid)
@@ -341,24 +322,72 @@ class MainScreen(ChartPanes, TreeWork, Screen):
         full = spec.label(board.tree.study.y_name, board.tree.study.x_name) + ": "
         if reason.startswith(full):  # the reason repeats the model; the line already names it
             reason = reason[len(full):]
+        if "; evidence" in reason:  # the evidence is in the node's detail (n goes there)
+            reason = reason.split("; evidence")[0] + "; n shows why"
         status.set_suggestion(Text.assemble(("Suggested", "bold"), f" ({sug.rule}, α {board.alpha:g}): ",
                                             (f"{sug.node} {label}", "bold"), f" — {reason}"))
 
-    def _set_idle(self) -> None:
-        self._busy = False
-        self._cancelling = False
-        self.query_one(StatusPanel).idle()
+    # ---- charts -----------------------------------------------------------------------
+    def _show_charts(self, nid: str) -> None:
+        """Box–Cox profile at once (its data are in the node); the other charts on request."""
+        assert self.board is not None
+        prof = self.board.nodes[nid].detail.boxcox
+        box = self.query_one("#boxcox", PlotView)
+        if prof is not None:
+            box.show(*boxcox_figure(prof, self.markers))
+        else:
+            box.show(None, message=f"{nid} is not a Box–Cox node: its profile is shown on nodes made by the "
+                     "'Box–Cox y' move")
+        self._request_charts(nid)
 
+    def charts_visible(self) -> bool:
+        """True when the residual or curve chart is on screen."""
+        if self.has_class("-wide"):
+            return True
+        return self.query_one("#views", TabbedContent).active in ("tab-residuals", "tab-curve")
+
+    def _request_charts(self, nid: str) -> None:
+        """Draw kept chart data at once; ask for new data only for a visible chart."""
+        maker = self.query_one(ChartMaker)
+        kept = maker.kept(nid)
+        if kept is not None:
+            self._draw_charts(kept)
+            return
+        for pid in CHART_PANES:
+            self.query_one(pid, PlotView).show(None, message=f"drawing {nid}…")
+        if self.charts_visible() and self.board is not None:
+            maker.request(self.board, nid)
+
+    @on(ChartMaker.Ready)
+    def _charts_ready(self, event: ChartMaker.Ready) -> None:
+        if self._current() == event.data.node_id:
+            self._draw_charts(event.data)
+
+    def on_tabbed_content_tab_activated(self, event: TabbedContent.TabActivated) -> None:
+        nid = self._current()
+        if nid is not None and self.board is not None and nid in self.board.nodes:
+            self._request_charts(nid)
+
+    def _draw_charts(self, data: ChartData) -> None:
+        st = self.board.tree.study if self.board is not None else None
+        for rid, cid in (("#residuals", "#curve"), ("#residuals-wide", "#curve-wide")):
+            if data.residuals is None or st is None:
+                self.query_one(rid, PlotView).show(None, message=data.error or "no chart")
+                self.query_one(cid, PlotView).show(None, message=data.error or "no chart")
+                continue
+            self.query_one(rid, PlotView).show(*residual_figure(data.residuals, st.x_name, self.markers))
+            self.query_one(cid, PlotView).show(*curve_figure(data.curve, st.x_name, st.y_name, self.markers))
+
+    # ---- actions --------------------------------------------------------------------
     def _refuse_while_busy(self, what: str) -> bool:
-        if self._busy:
-            self.notify(f"still scoring: {what} when it finishes (Esc stops growing)", severity="warning")
+        if self.busy:
+            self.say(f"still scoring: {what} when it finishes (Esc stops growing)", warning=True)
             return True
         if self.board is None:
-            self.notify("nothing to work on yet", severity="warning")
+            self.say("nothing to work on yet", warning=True)
             return True
         return False
 
-    # ---- actions --------------------------------------------------------------------
     def _current(self) -> str | None:
         return self.query_one(RemedyTreeView).highlighted_id
 
@@ -366,65 +395,53 @@ class MainScreen(ChartPanes, TreeWork, Screen):
         nid = nid or self._current()
         if nid is None or self._refuse_while_busy("grow"):
             return
-        node = self.board.nodes[nid]  # type: ignore[union-attr]
+        board = self.board
+        assert board is not None
+        node = board.nodes[nid]
         if node.score is None:
-            self.notify(f"{nid} could not be scored, so it cannot grow", severity="warning")
+            self.say(f"{nid} could not be scored, so it cannot grow", warning=True)
             return
         if node.expanded:
-            self.notify(f"{nid} is already grown: its moves are listed under it (or pruned, with reasons, in the detail)")
+            self.say(f"{nid} is already grown: its moves are listed under it (or pruned, with reasons, in the detail)")
             return
-        self._busy = True
         self.query_one(StatusPanel).busy(f"growing {nid}…")
-        self._expand(nid)
+        self.query_one(TreeGrower).expand(board, nid)
 
     def action_cancel(self) -> None:
-        if not self._busy:
-            return
-        self._cancelling = True
-        self.workers.cancel_group(self, "tree")
-        self.query_one(StatusPanel).busy("cancelling after this step…")
+        self.query_one(TreeGrower).cancel()
 
     def action_mark(self) -> None:
         nid = self._current()
         if nid is None or self.board is None:
             return
-        self.marked = None if self.marked == nid else nid
-        self.notify(f"marked {nid}: move to another node and press c to compare" if self.marked else f"unmarked {nid}")
-        if not self._busy:
-            self.query_one(RemedyTreeView).rebuild(self.board, sort=self.sort, only_passing=self.only_passing,
-                                                   marked=self.marked)
+        view = self.query_one(RemedyTreeView)
+        view.marked = None if view.marked == nid else nid
+        self.say(f"marked {nid}: move to another node and press c to compare" if view.marked else f"unmarked {nid}")
 
     def action_compare(self) -> None:
         from .compare import CompareScreen
 
-        nid = self._current()
+        nid, marked = self._current(), self.marked
         if self.board is None or nid is None:
             return
-        if self.marked is None:
-            self.notify("mark a node with m first, then highlight another and press c", severity="warning")
+        if marked is None:
+            self.say("mark a node with m first, then highlight another and press c", warning=True)
             return
-        if self.marked not in self.board.json or nid not in self.board.json:
-            self.notify("the marked node is not scored yet", severity="warning")
+        if marked not in self.board.json or nid not in self.board.json:
+            self.say("the marked node is not scored yet", warning=True)
             return
-        self.app.push_screen(CompareScreen(self.board, self.marked, nid))
+        self.app.push_screen(CompareScreen(self.board, marked, nid))
 
     def action_sort(self) -> None:
-        self.sort = SORTS[(SORTS.index(self.sort) + 1) % len(SORTS)]
-        self._rebuild()
-        self.notify(f"siblings ordered by {self.sort if self.sort != 'moves' else 'the order of moves'}")
+        view = self.query_one(RemedyTreeView)
+        view.sort = SORTS[(SORTS.index(view.sort) + 1) % len(SORTS)]
+        self.say(f"siblings ordered by {view.sort if view.sort != 'moves' else 'the order of moves'}")
 
     def action_filter(self) -> None:
-        self.only_passing = not self.only_passing
-        self._rebuild()
-        self.notify("showing nodes that pass lack of fit (and their ancestors)" if self.only_passing
-                    else "showing every node")
-
-    def _rebuild(self) -> None:
-        self._update_pane_title()
-        if self.board is not None:
-            self.query_one(RemedyTreeView).rebuild(self.board, sort=self.sort, only_passing=self.only_passing,
-                                                   marked=self.marked)
-            self._show(self._current())
+        view = self.query_one(RemedyTreeView)
+        view.only_passing = not view.only_passing
+        self.say("showing nodes that pass lack of fit (and their ancestors)" if view.only_passing
+                 else "showing every node")
 
     def action_alpha(self) -> None:
         from ..dialogs import AlphaDialog
@@ -433,33 +450,32 @@ class MainScreen(ChartPanes, TreeWork, Screen):
             return
 
         def done(value: float | None) -> None:
-            if value is not None and value != self.alpha:
-                self._busy = True
+            if value is not None and value != self.alpha and self.board is not None:
                 self.query_one(StatusPanel).busy(f"judging every node at α = {value:g}")
-                self._rejudge(value, self.rule)
+                self.query_one(TreeGrower).rejudge(self.board, value, self.rule)
 
         self.app.push_screen(AlphaDialog(self.alpha), done)
 
     def action_rule(self) -> None:
         if self._refuse_while_busy("change the rule"):
             return
+        assert self.board is not None
         rule = RULES[(RULES.index(self.rule) + 1) % len(RULES)]
-        self._busy = True
         self.query_one(StatusPanel).busy(f"suggesting by {rule}")
-        self._rejudge(self.alpha, rule)
+        self.query_one(TreeGrower).rejudge(self.board, self.alpha, rule)
 
     def action_goto_suggestion(self) -> None:
         board = self.board
         if board is None or board.suggestion is None or board.suggestion.node is None:
-            self.notify("no suggestion yet" if board is None or board.suggestion is None
-                        else "no node qualifies for the suggestion", severity="warning")
+            self.say("no suggestion yet" if board is None or board.suggestion is None
+                     else "no node qualifies for the suggestion", warning=True)
             return
         if not self.query_one(RemedyTreeView).select_id(board.suggestion.node):
-            self.notify("the suggested node is hidden by the filter (press f)", severity="warning")
+            self.say("the suggested node is hidden by the filter (press f)", warning=True)
 
     def action_view(self, name: str) -> None:
         if self.has_class("-wide") and name in ("residuals", "curve"):
-            self.notify("the charts are on the right at this terminal size")
+            self.say("the charts are on the right at this terminal size")
             return
         self.query_one("#views", TabbedContent).active = f"tab-{name}"
 
@@ -492,8 +508,8 @@ class MainScreen(ChartPanes, TreeWork, Screen):
 
         board = self.board
         assert board is not None
-        if self._busy:  # growth started meanwhile: the tree must not be read while it changes
-            self.notify("not exported: scoring started; export when it finishes", severity="warning")
+        if self.busy:  # growth started meanwhile: the tree must not be read while it changes
+            self.say("not exported: scoring started; export when it finishes", warning=True)
             return
         try:
             req = self.request
@@ -508,14 +524,14 @@ class MainScreen(ChartPanes, TreeWork, Screen):
                 if yes:
                     self._write_export(nid, path, force=True)
                 else:
-                    self.notify(f"not exported, kept as it was: {path}")
+                    self.say(f"not exported, kept as it was: {path}")
 
             self.app.push_screen(ConfirmDialog("The folder exists. Replace it?",
                                                f"{path}\nwould be replaced by the export of {nid}"),
                                  answer)
             return
         except (OSError, ValueError) as exc:
-            self.notify(f"not exported: {exc}", severity="error", title="export")
+            self.say(f"not exported: {exc}", warning=True)
             return
-        self.notify(f"exported {nid} to {written}", title="export")
+        self.say(f"exported {nid} to {written}")
 

@@ -6,18 +6,22 @@ candidate predictor, its replicate structure (levels, replicates per level).
 
 from __future__ import annotations
 
-from typing import Any, ClassVar
+from typing import TYPE_CHECKING, Any, ClassVar
 
 from rich.text import Text
 from textual import on, work
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
+from textual.message import Message
 from textual.screen import Screen
 from textual.widgets import DataTable, Footer, Static
 
-from ..messages import LoadFailed, StudyBuilt, TableLoaded
+from ..reading import DataRequest, build_study, read_frame
 from ..widgets.formatting import num
-from .data import DataRequest, build_study, read_frame
+from ..widgets.status import MessageLine
+
+if TYPE_CHECKING:
+    from bendwise.engine.stats.study import Study
 
 __all__ = ["StartScreen"]
 
@@ -33,6 +37,31 @@ class StartScreen(Screen):
                 tooltip="Admit (or drop) the highlighted column as a covariate the tree may add"),
         Binding("g,enter", "go", "Grow", id="start.go", tooltip="Build the study from the chosen columns and grow the tree"),
     ]
+
+    class TableLoaded(Message):
+        """The table was read; its columns are described (start screen)."""
+
+        def __init__(self, frame: Any, columns: tuple, previews: dict) -> None:
+            super().__init__()
+            self.frame = frame
+            self.columns = columns
+            self.previews = previews
+
+
+    class StudyBuilt(Message):
+        """Response, predictor and covariates were chosen and cleaned into a Study."""
+
+        def __init__(self, study: Study) -> None:
+            super().__init__()
+            self.study = study
+
+
+    class LoadFailed(Message):
+        """Reading the table or building the study was refused by the engine (one line)."""
+
+        def __init__(self, error: str) -> None:
+            super().__init__()
+            self.error = error
 
     def __init__(self, request: DataRequest, *, frame: Any = None, depth: int = 2, alpha: float = 0.05,
                  rule: str = "aicc") -> None:
@@ -54,6 +83,7 @@ class StartScreen(Screen):
         yield Static("", id="preview")
         yield Static("", id="choice")
         yield Static(f"reading {self.request.source}…", id="start-message")
+        yield MessageLine(id="message")
         yield Footer(compact=True)
 
     def on_mount(self) -> None:
@@ -74,9 +104,9 @@ class StartScreen(Screen):
             cols = describe_columns(frame)
             previews = {c.name: replicate_preview(frame, c.name) for c in cols if c.kind == "numeric"}
         except BendwiseError as exc:
-            self.post_message(LoadFailed(str(exc)))
+            self.post_message(self.LoadFailed(str(exc)))
             return
-        self.post_message(TableLoaded(frame, cols, previews))
+        self.post_message(self.TableLoaded(frame, cols, previews))
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="start")
     def _build(self, req: DataRequest) -> None:
@@ -85,9 +115,9 @@ class StartScreen(Screen):
         try:
             study = build_study(req, self.frame)
         except BendwiseError as exc:
-            self.post_message(LoadFailed(str(exc)))
+            self.post_message(self.LoadFailed(str(exc)))
             return
-        self.post_message(StudyBuilt(study))
+        self.post_message(self.StudyBuilt(study))
 
     # ---- messages ---------------------------------------------------------------------
     @on(TableLoaded)

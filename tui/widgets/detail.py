@@ -14,7 +14,7 @@ from textual.strip import Strip
 
 from ..messages import TreeSummary
 from ..output import collinear_words, count, fmt_p, p_clause
-from .formatting import VERDICT_STYLE, glyph, num, verdict_sentence, verdict_word
+from .formatting import glyph, num, verdict_sentence, verdict_style, verdict_word
 
 if TYPE_CHECKING:
     from bendwise.engine.tree.results import MoveDetail
@@ -59,6 +59,10 @@ def _row(t: _Grid, *cells: str | Text) -> None:
 
 def _heading(text: str) -> Text:
     return Text(f"\n{text}", style="bold underline")
+
+
+WIDE_PANE = 60
+"""Columns of detail pane from which the tables get their interval and mean-square columns."""
 
 
 def render_node(board: TreeSummary, nid: str, width: int = 100) -> Text:
@@ -107,7 +111,7 @@ def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
     scale = node.spec.response.short(y)
     if node.spec.weights is not None or st.weights is not None:
         scale += ", weighted"
-    narrow = width < 60
+    narrow = width < WIDE_PANE
     parts.append(_heading(f"Sum of squares (scale: {scale})"))
     rows = board.check.anova if (nid == "root" and board.check is not None) else node_anova(s)
     t = _table("part", "df", "SS", "F", "p") if narrow else _table("part", "df", "SS", "MS", "F", "p")
@@ -140,7 +144,8 @@ def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
         _row(t, *cells)
     parts.append(t.text())
     if narrow:
-        parts.append(Text("95% intervals: widen the terminal (about 110 columns)", style="dim"))
+        parts.append(Text(f"95% intervals need a detail pane of {WIDE_PANE} columns; this one has {width} "
+                          "(widen the terminal)", style="dim"))
     parts.append(Text(f"σ̂ {num(s.fit.sigma, 5)} on {s.fit.df_resid} df · R² {num(s.fit.r2, 6)} · "
                       f"adjusted R² {num(s.fit.r2_adj, 6)}"))
     if s.fit.aliased:
@@ -224,7 +229,7 @@ def _path_section(board: TreeSummary, nid: str) -> list[Text]:
         if n.parent is not None:
             line.append(f"{glyph('→', '->')} {n.move}  ")
         line.append(f"{n.id} ")
-        line.append(word, VERDICT_STYLE.get(word, ""))
+        line.append(word, verdict_style(word) if word in ("pass", "FAIL", "untestable", "error") else "")
         line.append(f"  {n.spec.label('y', 'x')}")
         out.append(line)
         if n.nested is not None:

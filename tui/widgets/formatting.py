@@ -7,6 +7,7 @@ symbol that also reads in monochrome.
 from __future__ import annotations
 
 import os
+import re
 from typing import Any
 
 from rich.text import Text
@@ -23,9 +24,24 @@ __all__ = [
     "tree_label",
     "test_words",
     "VERDICT_STYLE",
+    "verdict_style",
+    "short_move",
+    "monochrome",
 ]
 
 VERDICT_STYLE = {"pass": "bold green", "FAIL": "bold red", "untestable": "bold yellow", "error": "bold magenta"}
+MONO_VERDICT_STYLE = {"pass": "bold", "FAIL": "bold reverse", "untestable": "italic", "error": "bold reverse"}
+"""Without colour (NO_COLOR, or the Linux console) FAIL and error stand out by reverse video."""
+
+
+def monochrome() -> bool:
+    """True when colour cannot carry anything: NO_COLOR is set, or the Linux console."""
+    return "NO_COLOR" in os.environ or plain_glyphs()
+
+
+def verdict_style(word: str) -> str:
+    """Style of a verdict word: coloured, or (see ``monochrome``) reverse/bold/italic only."""
+    return (MONO_VERDICT_STYLE if monochrome() else VERDICT_STYLE)[word]
 
 
 def plain_glyphs() -> bool:
@@ -63,7 +79,7 @@ def test_words(t: dict | None) -> str:
 def verdict_sentence(json: dict, alpha: float) -> Text:
     """One line in words: PASS/FAIL/UNTESTABLE with the test behind it."""
     word = verdict_word(json, alpha)
-    style = VERDICT_STYLE[word]
+    style = verdict_style(word)
     if word == "error":
         return Text.assemble(("ERROR", style), f" — this model could not be scored: {json.get('error')}")
     lof = json["lack_of_fit"]
@@ -76,16 +92,41 @@ def verdict_sentence(json: dict, alpha: float) -> Text:
                          f"by more than the replicates scatter ({kind}: {test_words(lof)})")
 
 
+_THETA = re.compile(r"θ = ([^ ,;()]+)")
+_LAMBDA = re.compile(r"λ = ([^ ,;()]+)")
+_HALVES = {"0.5": "½", "1.5": "1½", "2.5": "2½"}
+
+
+def short_move(node: Any) -> str:
+    """What sets a node apart from its parent, in a few characters: '+ run_day', 'log y', 'w θ=½',
+    'bc λ=1.31' (Box–Cox y).
+
+    The root (no parent) shows its model. The full model and the move's reasons are in the
+    detail pane.
+    """
+    move = str(getattr(node, "move", "") or "")
+    if node.parent is None or not move:
+        return node.spec.label("y", "x")
+    if move.startswith("weights"):
+        m = _THETA.search(move)
+        theta = m.group(1) if m else "?"
+        return f"w θ={_HALVES.get(theta, theta) if not plain_glyphs() else theta}"
+    if move.startswith("Box–Cox"):
+        m = _LAMBDA.search(move)
+        return f"bc λ={m.group(1)}" if m else "bc y"
+    return move.split(" (")[0].split(";")[0]
+
+
 def tree_label(node: Any, json: dict, alpha: float, *, suggested: bool, marked: bool) -> Text:
-    """'*n6   pass y ~ x + x²' — mark (* suggested, = marked), id, verdict word, short model label."""
+    """'*n6   pass + x²' — mark (* suggested, = marked), id, verdict word, the move from the parent."""
     word = verdict_word(json, alpha)
     lead = "*" if suggested else ("=" if marked else " ")
     text = Text.assemble(
         (lead, "bold"),
         (f"{node.id:<4} ", "bold" if suggested else ""),
-        (f"{word:<4}", VERDICT_STYLE[word]),
-        " ",
-        node.spec.label("y", "x"),
+        (word, verdict_style(word)),
+        " " * (5 - len(word)) if len(word) < 5 else " ",
+        short_move(node),
     )
     if suggested and marked:
         text.append(" (marked)", "bold")

@@ -1,4 +1,4 @@
-"""What to open and how to read it; the engine calls the screens make from their workers.
+"""What to open and how to read it: shared by the CLI (before the app starts) and the app's workers.
 
 No Textual imports and no pandas at import time: these run in worker threads (or in the
 CLI before the app starts, so that data errors are one line and exit 2).
