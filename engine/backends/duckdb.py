@@ -12,7 +12,8 @@ these in Python with the parallel-axis rule. Both queries are standard SQL (COUN
 VAR_POP, COVAR_POP, MIN, MAX, LN, EXP, SQRT, CASE, COALESCE, LEFT JOIN), so they also run on
 cluster SQL engines.
 
-A study built here holds no rows: ``has_rows`` is False; row-level diagnostics are replaced by
+A study built here keeps its rows in the files: ``rows()`` answers ``NoRows`` and ``row_sample(k)`` a
+seeded DuckDB sample; row-level diagnostics are replaced by
 group-level ones, drawn from a seeded sample of rows, or reported as unavailable with the reason.
 """
 
@@ -34,6 +35,7 @@ from ..read.files import data_files
 from ..stats.groups import GroupStats, drop_rounding, normalised_boxcox_stats
 from ..stats.power_sums import GRID_TOL, SERIES_TOL, GroupSeries, choose_orders, series_helps
 from ..stats.results import SideTest
+from ..stats.rows import SAMPLE_SEED, NoRows, Rows
 from ..stats.spread import bartlett_from_groups
 from ..stats.study import (
     MAX_CATEGORIES,
@@ -195,7 +197,6 @@ class SqlStudy(Study):
     :class:`Study` work unchanged. Numeric covariates enter through within-unit co-moments.
     """
 
-    has_rows = False
 
     def __init__(self, con: Any, *, progress: ProgressFn | None = None, **kw: Any) -> None:
         self.con = con
@@ -294,7 +295,18 @@ class SqlStudy(Study):
         """Smallest and largest response used."""
         return float(self._info["y_min"]), float(self._info["y_max"])
 
-    def sample_rows(self, k: int, seed: int = 20261202) -> dict[str, np.ndarray]:
+    def rows(self) -> NoRows:
+        """The rows stay in the files (ask ``row_sample`` for a seeded sample)."""
+        return NoRows("the table is read through the SQL engine: its rows stay in the files "
+                      "(use --engine memory for every row)")
+
+    def row_sample(self, k: int, seed: int = SAMPLE_SEED) -> Rows:
+        """A seeded random sample of ``k`` used rows (all of them when there are at most ``k``),
+        in one more scan."""
+        got = self.sample_rows(k, seed)
+        return Rows(got["y"], got["x"], {c.name: got[c.name] for c in self.covariates}, self.n, self.n > k)
+
+    def sample_rows(self, k: int, seed: int = SAMPLE_SEED) -> dict[str, np.ndarray]:
         """A seeded random sample of ``k`` used rows (all of them when there are at most ``k``):
         y, x and each covariate (categories as text), in one more scan."""
         hit = self._cache.get(("sample", k, seed))

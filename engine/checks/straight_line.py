@@ -20,6 +20,7 @@ from ..stats.dist import f_sf
 from ..stats.groups import GroupStats
 from ..stats.linalg import Column, Design, fit_design
 from ..stats.results import AnovaRow, Criteria, Fit, LevelRow, SideTest, criteria_from
+from ..stats.rows import Rows
 from ..stats.study import Study
 from .lack_of_fit import lack_of_fit, nested_f
 from .replicate_free import replicate_free
@@ -244,9 +245,10 @@ def check(study: Study, *, alpha: float = 0.05) -> CheckResult:
     z, _ = study.transformed(_identity())
     spread = study.spread_by_level(z, (_identity().key(), None), None)
     exact_replicates = study.exact_replicates()
-    if not exact_replicates and n >= 6 and study.has_rows:
+    in_memory = isinstance(study.rows(), Rows)
+    if not exact_replicates and n >= 6 and in_memory:
         free = replicate_free(study)
-    elif not exact_replicates and not study.has_rows:
+    elif not exact_replicates and not in_memory:
         free = (SideTest("replicate-free checks", False, reason="need the rows in memory; use --engine memory"),)
     else:
         free = ()

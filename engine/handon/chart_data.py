@@ -8,6 +8,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from ..stats.results import AnovaRow
+from ..stats.rows import Rows
 
 if TYPE_CHECKING:
     from ..stats.study import Study
@@ -113,11 +114,12 @@ def curve_chart(study: Study, score: NodeScore, max_points: int = MAX_CHART_POIN
     note = None
     if score.spec.covariates:
         note = "covariates held at reference values (first category, mean of numeric)"
-    if study.has_rows:
+    every = study.rows()
+    if isinstance(every, Rows):
         idx = thin_indices(study.n, max_points)
-        px, py = study.x[idx], study.y[idx]
+        px, py = every.x[idx], every.y[idx]
     else:  # rows read through the SQL engine: a seeded random sample of them
-        rows = study.sample_rows(max_points)  # type: ignore[attr-defined]
-        px, py = rows["x"], rows["y"]
+        sample = study.row_sample(max_points)
+        px, py = sample.x, sample.y
     return CurveChart(px, py, np.asarray(score.level_x, dtype=float),
                       np.asarray(score.level_fitted_y, dtype=float), study.n, note)

@@ -26,6 +26,7 @@ import numpy as np
 from ..cautions import CAUTION, POST_SEARCH_CAUTION
 from ..errors import DataError, UsageError
 from ..read.files import data_files, describe_reading, file_digest
+from ..stats.rows import Rows
 from ..tree.tree import RemedyTree
 from .specfile import SCHEMA_VERSION, validate_spec
 
@@ -108,7 +109,7 @@ def _weights_block(study, spec) -> dict[str, Any]:
                            "user_column": study.weights_name, "approximate": False}
     if rule is None:
         return out
-    if study.has_rows:
+    if isinstance(study.rows(), Rows):
         z = np.asarray(spec.response.forward(study.y), dtype=float)
         cnt = np.bincount(study.x_codes, minlength=study.c).astype(float)
         m = np.abs(np.bincount(study.x_codes, weights=z, minlength=study.c) / cnt)
@@ -154,7 +155,7 @@ def build_spec(tree: RemedyTree, node_id: str, *, data_path: str | Path | None =
         sha, size = file_digest(data_path)
     if max_residuals < 2:
         raise UsageError(f"max_residuals {max_residuals} must be at least 2")
-    if study.has_rows:
+    if isinstance(study.rows(), Rows):
         lr_residual = residuals_by_level(study, score, max_rows=max_residuals).residual
         sampled = study.n > max_residuals
         sample_note = (f"the table has {study.n:,} rows; {lr_residual.shape[0]:,} evenly spaced residuals are kept"

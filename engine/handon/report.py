@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 
 from ..numfmt import fmt_num, fmt_p, p_clause
+from ..stats.rows import NoRows, Rows
 from ..tree.tree import RemedyTree
 
 __all__ = ["report_markdown", "text_chart"]
@@ -238,7 +239,7 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     lr = residuals_by_level(study, score)
     fitted_lv = np.asarray(score.level_fitted_y)
     out += ["## Residuals by level", ""]
-    if not study.has_rows and study.n > lr.residual.size:
+    if isinstance(study.rows(), NoRows) and study.n > lr.residual.size:
         out += [f"Residual means and SDs from a seeded random sample of {lr.residual.size:,} of the "
                 f"{study.n:,} rows (the table was read through the SQL engine).", ""]
     if spec.covariates:
@@ -297,14 +298,15 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     out.append("")
 
     # charts
-    if study.has_rows:
-        xs, ys = study.x, study.y
+    every = study.rows()
+    if isinstance(every, Rows):
+        xs, ys = every.x, every.y
         idx = np.arange(study.n)
         if study.n > CHART_ROWS:
             idx = np.linspace(0, study.n - 1, CHART_ROWS).astype(np.intp)
     else:  # read through the SQL engine: the seeded sample of rows the residuals come from
-        rows = study.sample_rows(CHART_ROWS)
-        xs, ys = rows["x"], rows["y"]
+        sample = study.row_sample(CHART_ROWS)
+        xs, ys = sample.x, sample.y
         idx = np.arange(xs.size)
     grid_x = np.linspace(float(study.x_min), float(study.x_max), 200)
     covs_ref: dict[str, np.ndarray] = {}

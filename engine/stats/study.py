@@ -13,6 +13,7 @@ from ..errors import DataError, UsageError
 from ..read.cleaning import CleaningReport, DropCount
 from ..read.columns import first_rows, numeric_column, resolve_column
 from .groups import GroupStats, compute_base_parts, compute_group_stats
+from .rows import SAMPLE_SEED, NoRows, Rows
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -103,9 +104,21 @@ class Study:
         self._cache: dict[Any, Any] = {}
         self.x_codes, self.x_level_values, self.x_level_labels = self._x_groups()
 
-    # ----- row access hooks (a SQL-backed study overrides these) -------------------------
-    has_rows = True
-    """True when the rows are in memory (per-row diagnostics are possible)."""
+    # ----- the row source (a SQL-backed study answers these from its files) ----------------
+    def rows(self) -> Rows | NoRows:
+        """Every used row: they are in memory here (``engine.stats.rows``)."""
+        covs = {c.name: (np.asarray(c.levels, dtype=object)[c.values].astype(str) if c.kind == "categorical"
+                         else c.values) for c in self.covariates}
+        return Rows(self.y, self.x, covs, self.n, False)
+
+    def row_sample(self, k: int, seed: int = SAMPLE_SEED) -> Rows:
+        """A seeded random sample of ``k`` used rows, in row order (every row when n ≤ k)."""
+        every = self.rows()
+        assert isinstance(every, Rows)
+        if self.n <= k:
+            return every
+        idx = np.sort(np.random.default_rng(seed).choice(self.n, size=int(k), replace=False))
+        return Rows(self.y[idx], self.x[idx], {n: v[idx] for n, v in every.covariates.items()}, self.n, True)
 
     @property
     def x_min(self) -> float:

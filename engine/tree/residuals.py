@@ -6,6 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..stats.rows import NoRows
 from ..stats.study import Study
 from .scoring import NodeScore, _frame, _stats, build_design, predict_terms
 
@@ -34,7 +35,7 @@ def residuals_by_level(study: Study, score: NodeScore, max_rows: int = 100_000) 
     A study without rows (the SQL engine) gives the residuals of a seeded random sample of
     ``max_rows`` rows, predicted from the raw terms as ``bendwise apply`` predicts.
     """
-    if not study.has_rows:
+    if isinstance(study.rows(), NoRows):
         return _sampled_residuals(study, score, max_rows)
     spec = score.spec
     fr = _frame(study, spec)
@@ -69,12 +70,12 @@ def residuals_by_level(study: Study, score: NodeScore, max_rows: int = 100_000) 
 def _sampled_residuals(study: Study, score: NodeScore, k: int) -> LevelResiduals:
     """√w·(z − ẑ) on a seeded random sample of rows read through the SQL engine, by x level."""
     spec = score.spec
-    rows = study.sample_rows(k)  # type: ignore[attr-defined]
+    rows = study.row_sample(k)
     beta = np.array([0.0 if c.name in score.fit.aliased else c.estimate for c in score.fit.coefficients])
-    t = np.asarray(spec.predictor.forward(rows["x"]), dtype=float)
-    zhat = predict_terms(score.terms, beta, t, {c.name: rows[c.name] for c in study.covariates})
-    z = np.asarray(spec.response.forward(rows["y"]), dtype=float)
-    xc = study.x_codes_for_values(rows["x"])  # type: ignore[attr-defined]
+    t = np.asarray(spec.predictor.forward(rows.x), dtype=float)
+    zhat = predict_terms(score.terms, beta, t, rows.covariates)
+    z = np.asarray(spec.response.forward(rows.y), dtype=float)
+    xc = study.x_codes_for_values(rows.x)  # type: ignore[attr-defined]
     w = np.ones(z.size)
     fr = _frame(study, spec)
     if fr.w_level is not None:
@@ -85,4 +86,4 @@ def _sampled_residuals(study: Study, score: NodeScore, k: int) -> LevelResiduals
         mean = np.bincount(xc, weights=e, minlength=study.c) / cnt
         dev = e - mean[xc]
         sd = np.sqrt(np.bincount(xc, weights=dev * dev, minlength=study.c) / (cnt - 1))
-    return LevelResiduals(rows["x"], e, study.x_level_values.copy(), mean, np.where(cnt > 1, sd, np.nan))
+    return LevelResiduals(rows.x, e, study.x_level_values.copy(), mean, np.where(cnt > 1, sd, np.nan))

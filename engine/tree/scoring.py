@@ -20,6 +20,7 @@ from ..errors import BendwiseError, UsageError
 from ..stats.design import power_label
 from ..stats.linalg import Column, Design, fit_design, fit_rss_rank, poly_map
 from ..stats.results import Criteria, Fit, SideTest, criteria_from
+from ..stats.rows import NoRows
 from ..stats.spread import spread_test
 from ..stats.study import Study
 from ..stats.transforms import Transform
@@ -312,7 +313,7 @@ def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = 
     if problem:
         raise UsageError(problem)
     fr = _frame(study, spec)
-    big = study.n > ROW_PASS_LIMIT or not study.has_rows
+    big = study.n > ROW_PASS_LIMIT or isinstance(study.rows(), NoRows)
     stats = _stats(study, spec, fr, extremes=big)
     design, terms = build_design(study, spec, fr)
     fit = fit_design(stats, design)

@@ -48,6 +48,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ..errors import UsageError
+from ..stats.rows import Rows
 from .model_spec import ModelSpec
 
 if TYPE_CHECKING:
@@ -270,15 +271,14 @@ def _subset(study: Study, rows: np.ndarray) -> Study:
 
 def _rows_study(study: Study) -> tuple[Study, str | None]:
     """The study itself when its rows are in memory, else one built from a seeded sample."""
-    if study.has_rows:
+    if isinstance(study.rows(), Rows):
         return study, None
     import pandas as pd
 
     from ..stats.study import make_study
 
-    sample = study.sample_rows(MAX_ROWS)  # type: ignore[attr-defined]
-    frame = pd.DataFrame({study.y_name: sample["y"], study.x_name: sample["x"],
-                          **{c.name: sample[c.name] for c in study.covariates}})
+    sample = study.row_sample(MAX_ROWS)
+    frame = pd.DataFrame({study.y_name: sample.y, study.x_name: sample.x, **sample.covariates})
     base = make_study(frame, y=study.y_name, x=study.x_name, covariates=[c.name for c in study.covariates],
                       tolerance=study.tolerance_text, source=study.source)
     note = (f"the rows are read through the SQL engine: resamples are drawn from a seeded random sample of "

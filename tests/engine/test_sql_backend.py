@@ -34,6 +34,7 @@ from bendwise.engine.backends.duckdb import (
     transform_sql,
 )
 from bendwise.engine.errors import BendwiseError
+from bendwise.engine.stats.rows import NoRows
 from bendwise.engine.stats.transforms import IDENTITY, LOG, RECIPROCAL, SQRT, Transform, power
 from bendwise.engine.tree.model_spec import ModelSpec, WeightRule
 from bendwise.engine.tree.scoring import score_spec
@@ -129,7 +130,7 @@ def _drop_counts(study) -> dict[tuple[str, str], int]:
 
 def _same_study(mem, sql) -> None:
     """Counts, levels, covariates and cleaning counts agree."""
-    assert isinstance(sql, SqlStudy) and not sql.has_rows
+    assert isinstance(sql, SqlStudy) and isinstance(sql.rows(), NoRows)
     assert (sql.n, sql.c) == (mem.n, mem.c)
     assert (sql.report.n_read, sql.report.n_used) == (mem.report.n_read, mem.report.n_used)
     assert _drop_counts(sql) == _drop_counts(mem)

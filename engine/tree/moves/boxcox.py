@@ -9,6 +9,7 @@ import numpy as np
 
 from ...errors import BendwiseError
 from ...stats.groups import GroupStats
+from ...stats.rows import Rows
 from ...stats.transforms import IDENTITY, Transform, boxcox
 from ..boxcox import profile_boxcox
 from ..results import MoveDetail
@@ -57,6 +58,7 @@ def _profile(st, sp):
     def provider(lams: np.ndarray, fr=fr) -> list[GroupStats]:
         return st.boxcox_stats(lams, fr.by, fr.bases, fr.bases_key)
 
-    if st.has_rows:
-        return profile_boxcox(st.y, codes, c, design, weights=st.weights, bases=fr.bases, grid_provider=provider)
+    rows = st.rows()
+    if isinstance(rows, Rows):
+        return profile_boxcox(rows.y, codes, c, design, weights=st.weights, bases=fr.bases, grid_provider=provider)
     return profile_boxcox(None, codes, c, design, grid_provider=provider, n=st.n, sum_log_y=st.sum_log_y())
