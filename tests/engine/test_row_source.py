@@ -3,12 +3,11 @@ every row or why not, and a seeded sample — so what needs rows never checks wh
 
 from __future__ import annotations
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import bendwise.engine as engine
-from bendwise.engine.stats.rows import NoRows, RowSource, Rows
+from bendwise.engine.stats.rows import NoRows, Rows, RowSource
 
 duckdb = pytest.importorskip("duckdb")
 
