@@ -29,6 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..cautions import CAUTION
+from ..errors import DataError
 from .runs import RunFactor, RunsResult
 
 __all__ = ["Limits", "LimitsReport", "limits_one_run", "limits_with_runs", "DEFAULT_ALPHA", "DEFAULT_BETA"]
@@ -139,7 +140,12 @@ def limits_one_run(x: np.ndarray, y: np.ndarray, *, alpha: float = DEFAULT_ALPHA
     b0 = ym - b1 * xm
     resid = y - b0 - b1 * x
     df = n - 2
+    if df <= 0:
+        raise DataError(f"limits need at least 3 rows to estimate the scatter about the line (have {n})")
     s = math.sqrt(float(resid @ resid) / df)
+    if not (s > 0 and b1 != 0 and math.isfinite(s / b1)):
+        what = "has slope 0" if b1 == 0 else "passes through every row exactly"
+        raise DataError(f"the calibration line {what}: detection and quantitation limits are undefined here")
     se_b0 = s * math.sqrt(1.0 / n + xm * xm / sxx)
 
     def sd_pred(v: float) -> float:

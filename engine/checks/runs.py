@@ -253,32 +253,42 @@ class RunSums:
     sxx: np.ndarray
     sxy: np.ndarray
     syy: np.ndarray
+    wxx: np.ndarray
+    """Σ(x − run mean of x)² in each run (and likewise below): the within-run sums."""
+    wxy: np.ndarray
+    wyy: np.ndarray
     x_mean: float
     y_mean: float
 
 
 def run_sums(x: np.ndarray, y: np.ndarray, codes: np.ndarray, k: int) -> RunSums:
-    """Per-run sums of x and y centred on their overall means."""
+    """Per-run sums of x and y centred on their overall means, and within-run sums of squares."""
     xm, ym = float(x.mean()), float(y.mean())
     xc, yc = x - xm, y - ym
 
     def s(v: np.ndarray | None) -> np.ndarray:
         return np.bincount(codes, weights=v, minlength=k)
 
-    return RunSums(s(None), s(xc), s(yc), s(xc * xc), s(xc * yc), s(yc * yc), xm, ym)
+    n, sx, sy = s(None), s(xc), s(yc)
+    xw, yw = xc - (sx / n)[codes], yc - (sy / n)[codes]
+    return RunSums(n, sx, sy, s(xc * xc), s(xc * yc), s(yc * yc), s(xw * xw), s(xw * yw), s(yw * yw), xm, ym)
 
 
 def _gls_parts(rs: RunSums, sigma2: float, tau: float) -> tuple[np.ndarray, np.ndarray, float, float]:
-    """X'V⁻¹X, X'V⁻¹y, y'V⁻¹y and log|V| for V = σ²I + τJ within each run."""
-    c = tau / (sigma2 * (sigma2 + rs.n * tau))
+    """X'V⁻¹X, X'V⁻¹y, y'V⁻¹y and log|V| for V = σ²I + τJ within each run.
+
+    Written as within-run sums / σ² plus run totals / (σ² + n·τ), which has no cancellation when τ ≫ σ².
+    """
+    d = 1.0 / (sigma2 + rs.n * tau)
     inv = 1.0 / sigma2
-    a = np.array([[inv * rs.n.sum() - (c * rs.n * rs.n).sum(), inv * rs.sx.sum() - (c * rs.n * rs.sx).sum()],
-                  [0.0, inv * rs.sxx.sum() - (c * rs.sx * rs.sx).sum()]])
-    a[1, 0] = a[0, 1]
-    b = np.array([inv * rs.sy.sum() - (c * rs.n * rs.sy).sum(), inv * rs.sxy.sum() - (c * rs.sx * rs.sy).sum()])
-    yy = inv * rs.syy.sum() - (c * rs.sy * rs.sy).sum()
+    mx, my = rs.sx / rs.n, rs.sy / rs.n
+    a01 = float((rs.sx * d).sum())
+    a = np.array([[float((rs.n * d).sum()), a01],
+                  [a01, inv * float(rs.wxx.sum()) + float((rs.sx * mx * d).sum())]])
+    b = np.array([float((rs.sy * d).sum()), inv * float(rs.wxy.sum()) + float((rs.sx * my * d).sum())])
+    yy = inv * float(rs.wyy.sum()) + float((rs.sy * my * d).sum())
     logdet = float(((rs.n - 1) * math.log(sigma2)).sum() + np.log(sigma2 + rs.n * tau).sum())
-    return a, b, float(yy), logdet
+    return a, b, yy, logdet
 
 
 def reml_loglik(rs: RunSums, sigma2: float, tau: float) -> float:
@@ -296,9 +306,11 @@ def _profile_sigma2(rs: RunSums, tau: float) -> tuple[float, float]:
     """Maximise the REML log-likelihood over σ² at a fixed τ; returns (σ², log-likelihood)."""
     from scipy.optimize import minimize_scalar
 
-    n = float(rs.n.sum())
+    n, k = float(rs.n.sum()), len(rs.n)
     total = float(rs.syy.sum()) / max(n - 2, 1)
-    lo, hi = math.log(total * 1e-12 + 1e-300), math.log(total * 10 + 1e-300)
+    within = _within_sse(rs) / max(n - k - 1, 1)
+    # the best σ² lies between a fraction of the within-run mean square (large τ) and the total
+    lo, hi = math.log(within * 1e-4 + 1e-300), math.log(max(total, within) * 10 + 1e-300)
     res = minimize_scalar(lambda t: -reml_loglik(rs, math.exp(t), tau), bounds=(lo, hi), method="bounded",
                           options={"xatol": 1e-10})
     return math.exp(res.x), -float(res.fun)
@@ -316,11 +328,17 @@ def _reml_numeric(rs: RunSums) -> tuple[float, float]:
         s2 = q / (n - 2)
         return s2, reml_loglik(rs, s2, g * s2)
 
-    # φ = γ/(1+γ) maps [0, ∞) onto [0, 1): a bounded search that can reach the boundary γ = 0.
-    res = minimize_scalar(lambda p: -profiled(p / (1 - p))[1], bounds=(0.0, 1 - 1e-9), method="bounded",
-                          options={"xatol": 1e-13})
-    best = min((float(res.x), 0.0), key=lambda p: -profiled(p / (1 - p))[1])
-    g = best / (1 - best)
+    # a grid over log γ finds the peak's neighbourhood; Brent then polishes it; γ = 0 (the boundary)
+    # is compared last
+    grid = np.linspace(-25.0, 35.0, 121)
+    values = [profiled(math.exp(t))[1] for t in grid]
+    i = int(np.argmax(values))
+    lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
+    res = minimize_scalar(lambda t: -profiled(math.exp(t))[1], bounds=(lo, hi), method="bounded",
+                          options={"xatol": 1e-10})
+    g = math.exp(float(res.x))
+    if profiled(0.0)[1] >= profiled(g)[1]:
+        g = 0.0
     s2, _ = profiled(g)
     return s2, g * s2
 
@@ -336,11 +354,7 @@ def _reml_balanced(rs: RunSums, k: int) -> tuple[float, float]:
     """Closed-form REML for a balanced design: ANOVA mean squares, truncated at 0 as REML is."""
     n = float(rs.n.sum())
     nr = float(rs.n[0])
-    sxx_w = float((rs.sxx - rs.sx**2 / rs.n).sum())
-    sxy_w = float((rs.sxy - rs.sx * rs.sy / rs.n).sum())
-    syy_w = float((rs.syy - rs.sy**2 / rs.n).sum())
-    sse_w = syy_w - sxy_w**2 / sxx_w
-    ms_w = sse_w / (n - k - 1)
+    ms_w = _within_sse(rs) / (n - k - 1)
     run_means = rs.sy / rs.n
     ms_b = nr * float(((run_means - run_means.mean()) ** 2).sum()) / (k - 1)
     if ms_b >= ms_w:
@@ -370,6 +384,26 @@ def _profile_interval(rs: RunSums, sigma2: float, tau: float, level: float) -> t
         hi += step
         step *= 2
     return low, None
+
+
+def _within_sse(rs: RunSums) -> float:
+    """Residual SS of the line with one offset per run (pooled within-run regression)."""
+    sxx_w, sxy_w, syy_w = float(rs.wxx.sum()), float(rs.wxy.sum()), float(rs.wyy.sum())
+    return max(syy_w - sxy_w**2 / sxx_w, 0.0) if sxx_w > 0 else 0.0
+
+
+def _require_within_scatter(rs: RunSums, n: int, k: int, name: str) -> None:
+    """Refuse designs that leave nothing to estimate the within-run SD from."""
+    if n - k - 1 <= 0:
+        raise DataError(
+            f"runs column {name!r}: {n} rows in {k} runs leave no within-run degrees of freedom once the line and the "
+            "run offsets are fitted; measure more rows in each run"
+        )
+    if not _within_sse(rs) > 1e-24 * max(float(rs.syy.sum()), 1e-300):
+        raise DataError(
+            f"runs column {name!r}: the line with run offsets fits every row exactly (no scatter within runs), so the "
+            "within-run SD is 0 and the variance parts are undefined; check for duplicated or rounded values"
+        )
 
 
 @dataclass(frozen=True, slots=True)
@@ -466,8 +500,9 @@ def check_runs(study, column: str) -> RunsResult:
     _require_crossed(cells, runs, study.x_name)
     lof, shape = within_run_tests(cells)
     rs = run_sums(study.x, study.y, runs.codes, runs.count)
-    parts = variance_parts(rs, cells)
     n, k = cells.n, runs.count
+    _require_within_scatter(rs, n, k, runs.name)
+    parts = variance_parts(rs, cells)
     n0 = (n - float((rs.n**2).sum()) / n) / (k - 1)
     return RunsResult(
         column=runs.name, labels=runs.labels, cells=len(cells.count), empty_cells=k * cells.c - len(cells.count),

@@ -246,3 +246,27 @@ def test_weights_and_a_merging_tolerance_are_refused():
     df["x"] = df["x"] + np.tile([0, 0.001, 0.002], 30)
     with pytest.raises(BendwiseError, match="tolerance"):
         check_runs(make_study(df, y="y", x="x", covariates=["run"], tolerance="0.01"), "run")
+
+
+@pytest.mark.parametrize("ratio", [0.0, 0.3, 3.0, 3e3])
+def test_numeric_reml_agrees_with_the_closed_form_on_balanced_runs(ratio):
+    from engine.checks.runs import _reml_balanced, _reml_numeric
+
+    rng = np.random.default_rng(11)
+    runs = np.repeat(np.arange(6), 8)
+    x = np.tile(np.repeat([0.0, 1.0, 2.0, 4.0], 2), 6)
+    y = 1 + 2 * x + ratio * rng.normal(size=6)[runs] + rng.normal(size=len(x))
+    rs = run_sums(x, y, runs, 6)
+    closed = _reml_balanced(rs, 6)
+    numeric = _reml_numeric(rs)
+    assert numeric[0] == pytest.approx(closed[0], rel=1e-6)
+    assert math.sqrt(numeric[1]) == pytest.approx(math.sqrt(closed[1]), rel=1e-6, abs=1e-6)
+
+
+def test_no_within_run_scatter_is_refused_in_one_line():
+    df = _frame(["a", "a", "a", "b", "b", "b"], [1, 2, 3, 1, 2, 3], [1, 2, 3, 5, 6, 7])
+    with pytest.raises(BendwiseError, match="fits every row exactly"):
+        check_runs(make_study(df, y="y", x="x", covariates=["run"]), "run")
+    df = _frame(["a", "a", "b", "c", "d"], [0, 1, 0, 0, 0], [0.1, 1.3, 0.5, -0.2, 0.9])
+    with pytest.raises(BendwiseError, match="no within-run degrees of freedom"):
+        check_runs(make_study(df, y="y", x="x", covariates=["run"]), "run")
