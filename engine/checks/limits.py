@@ -16,7 +16,7 @@ between-run variance added:
 
 A falling line (b₁ < 0) is handled by mirroring the response, so the limits stay positive.
 
-Sources: ICH Q2(R1) (2005) §6–7; Hubaux & Vos (1970), Analytical Chemistry 42, 849–855;
+See docs/METHODS.md "Calibrations over several runs". Sources: ICH Q2(R1) (2005) §6–7; Hubaux & Vos (1970), Analytical Chemistry 42, 849–855;
 Satterthwaite (1946).
 """
 

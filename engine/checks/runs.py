@@ -18,7 +18,7 @@ truncated at 0 with the pooled estimate then). Otherwise REML is maximised numer
 per-run sums (n, Σx, Σy, Σx², Σxy, Σy²), which are sufficient for this model. The interval for
 σ_b is the profile REML likelihood interval (σ_w profiled out; χ²₁ cut-off), in either case.
 
-Sources: Kutner, Nachtsheim, Neter & Li (2005) §3.7 and ch. 25; Searle, Casella & McCulloch
+See docs/METHODS.md "Calibrations over several runs". Sources: Kutner, Nachtsheim, Neter & Li (2005) §3.7 and ch. 21; Searle, Casella & McCulloch
 (1992) ch. 6 for REML; Pawitan (2001) ch. 2 for profile-likelihood intervals.
 """
 

@@ -93,7 +93,7 @@ def _render_runs(r, alpha: float) -> list[str]:
     out.append(f"  between-run SD {fmt_num(p.between_sd, 4)}   (95% interval {fmt_num(lo, 4)} … "
                f"{fmt_num(hi, 4) if hi is not None else 'unbounded'})")
     out.append(f"  within-run SD  {fmt_num(p.within_sd, 4)}")
-    out.append(f"  line with run offsets averaged: b0 {fmt_num(p.intercept, 6)}   b1 {fmt_num(p.slope, 6)}")
+    out.append(f"  line (REML, run offsets random): b0 {fmt_num(p.intercept, 6)}   b1 {fmt_num(p.slope, 6)}")
     out.append(f"  ({p.method}; interval: {p.interval_method})")
     out.append("  the lack-of-fit test above counts run-to-run shifts as pure error; this one compares within runs:")
     out.append(_test_line("does the line miss the level means within runs", r.lack_of_fit, alpha))
@@ -109,7 +109,7 @@ def _render_limits(lim, x_name: str) -> list[str]:
     for lm in (lim.one_run, lim.with_runs):
         if lm is None:
             continue
-        tag = "one run" if lm is lim.one_run else "new run"
+        tag = "as one run" if lm is lim.one_run else "new run"
         rows.append([tag, "3.3σ/b1, 10σ/b1 (σ = residual SD)", fmt_num(lm.lod_residual, 4), fmt_num(lm.loq_residual, 4)])
         rows.append([tag, "3.3σ/b1, 10σ/b1 (σ = intercept SD)", fmt_num(lm.lod_intercept, 4), fmt_num(lm.loq_intercept, 4)])
         rows.append([tag, "Hubaux–Vos: x_C | x_D", fmt_num(lm.x_critical, 4), fmt_num(lm.x_detection, 4)])
