@@ -143,3 +143,11 @@ def test_odd_tables_through_check_runs_never_give_a_traceback(frame, limits, as_
         assert len(errors) == 1 and out == ""
     elif as_json:
         assert "runs" in json.loads(out)
+
+
+@pytest.mark.parametrize("extra, words", [(["--engine", "duckdb"], "in memory"), (["--tolerance", "5%"], "tolerance")])
+def test_runs_refuses_the_sql_engine_and_a_merging_tolerance_in_one_line(extra, words, tmp_path, capsys):
+    frame = pd.read_csv(DEMO)
+    frame["conc_ug_l"] = frame["conc_ug_l"] + np.tile([0.0, 0.01, 0.02], 30)
+    code, out, err = run(["check", _csv(tmp_path, frame), *ARGS, "--runs", "day", *extra], capsys)
+    assert code == 2 and out == "" and err.count("\n") == 1 and words in err, err
