@@ -34,14 +34,12 @@ def sensor() -> pd.DataFrame:
 @pytest.fixture(scope="module")
 def sensor_study(sensor):
     """The demo calibration as a study: signal on concentration, run day and temperature as covariates."""
-    import engine
-
+    import bendwise.engine as engine
     return engine.make_study(sensor, y=SENSOR_Y, x=SENSOR_X, covariates=list(SENSOR_COVARIATES))
 
 
 @pytest.fixture(scope="module")
 def sensor_tree(sensor_study):
     """The demo calibration's remedy tree grown to depth 2."""
-    import engine
-
+    import bendwise.engine as engine
     return engine.grow(sensor_study, depth=2)

@@ -84,7 +84,7 @@ def test_no_upward_import_in_the_engine():
             if not target.startswith("engine"):
                 continue
             targets = [target]
-            if target == "engine":  # "from engine import stats" style: judge each named part
+            if target == "engine":  # "from bendwise.engine import stats" style: judge each named part
                 targets = [f"engine.{n}" for n in names]
             for t in targets:
                 there = _part(t)

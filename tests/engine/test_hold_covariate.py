@@ -17,7 +17,7 @@ REPO = Path(__file__).resolve().parents[2]
 
 
 def _cli(*args: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "tui.cli", *args], capture_output=True, text=True, cwd=REPO,
+    return subprocess.run([sys.executable, "-m", "bendwise.tui.cli", *args], capture_output=True, text=True, cwd=REPO,
                           timeout=300)
 
 

@@ -18,11 +18,10 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 import statsmodels.formula.api as smf
+from bendwise.engine import make_study
+from bendwise.engine.checks.limits import limits_one_run, limits_with_runs
+from bendwise.engine.checks.runs import check_runs, run_factor
 from scipy.stats import t as t_dist
-
-from engine import make_study
-from engine.checks.limits import limits_one_run, limits_with_runs
-from engine.checks.runs import check_runs, run_factor
 
 DEMO = Path(__file__).resolve().parents[2] / "datasets" / "multi_day_calibration.csv"
 

@@ -8,11 +8,10 @@ import subprocess
 import sys
 from pathlib import Path
 
+import bendwise.engine as engine
 import pandas as pd
 import pytest
-
-import engine
-from engine.errors import DataError
+from bendwise.engine.errors import DataError
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -20,7 +19,7 @@ SEMICOLON_COMMA = "conc;signal;lot\n0,5;1,25;A\n0,5;1,31;A\n1,0;2,40;B\n1,0;2,52
 
 
 def _cli(*args: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "tui.cli", *args], capture_output=True, text=True, cwd=REPO,
+    return subprocess.run([sys.executable, "-m", "bendwise.tui.cli", *args], capture_output=True, text=True, cwd=REPO,
                           timeout=120)
 
 
@@ -64,7 +63,7 @@ def test_comment_lines_at_the_top_are_skipped_and_counted(tmp_path):
 
 def test_comment_lines_on_standard_input_too():
     text = "# from a pipe\nx,y\n1,2\n1,2.2\n2,4\n2,4.1\n3,6\n"
-    out = subprocess.run([sys.executable, "-m", "tui.cli", "check", "-", "-y", "y", "-x", "x", "--json"],
+    out = subprocess.run([sys.executable, "-m", "bendwise.tui.cli", "check", "-", "-y", "y", "-x", "x", "--json"],
                          input=text, capture_output=True, text=True, cwd=REPO, timeout=120)
     assert out.returncode == 0, out.stderr
     assert json.loads(out.stdout)["n"] == 5

@@ -18,20 +18,19 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
-from scipy.optimize import minimize_scalar
-from scipy.stats import chi2
-from scipy.stats import f as f_dist
-from statsmodels.stats.anova import anova_lm
-
-from engine import make_study
-from engine.checks.runs import (
+from bendwise.engine import make_study
+from bendwise.engine.checks.runs import (
     check_runs,
     reml_loglik,
     run_factor,
     run_sums,
     validate_runs_column,
 )
-from engine.errors import BendwiseError
+from bendwise.engine.errors import BendwiseError
+from scipy.optimize import minimize_scalar
+from scipy.stats import chi2
+from scipy.stats import f as f_dist
+from statsmodels.stats.anova import anova_lm
 
 DEMO = Path(__file__).resolve().parents[2] / "datasets" / "multi_day_calibration.csv"
 
@@ -250,7 +249,7 @@ def test_weights_and_a_merging_tolerance_are_refused():
 
 @pytest.mark.parametrize("ratio", [0.0, 0.3, 3.0, 3e3])
 def test_numeric_reml_agrees_with_the_closed_form_on_balanced_runs(ratio):
-    from engine.checks.runs import _reml_balanced, _reml_numeric
+    from bendwise.engine.checks.runs import _reml_balanced, _reml_numeric
 
     rng = np.random.default_rng(11)
     runs = np.repeat(np.arange(6), 8)

@@ -18,9 +18,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-
-from engine import check, make_study
-from engine.checks.runs import RunFactor, cell_stats, within_run_tests
+from bendwise.engine import check, make_study
+from bendwise.engine.checks.runs import RunFactor, cell_stats, within_run_tests
 
 LEVELS = np.array([0.0, 1.0, 2.0, 5.0, 10.0, 20.0])
 REPEATS = 3

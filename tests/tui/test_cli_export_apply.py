@@ -8,9 +8,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
-from engine.handon.specfile import load_spec
-from tui.cli import main
+from bendwise.engine.handon.specfile import load_spec
+from bendwise.tui.cli import main
 
 DATASETS = Path(__file__).resolve().parents[2] / "datasets"
 SENSOR = str(DATASETS / "sensor_calibration.csv")

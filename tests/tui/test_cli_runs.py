@@ -13,10 +13,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from bendwise.tui.cli import main
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-
-from tui.cli import main
 
 DEMO = str(Path(__file__).resolve().parents[2] / "datasets" / "multi_day_calibration.csv")
 ARGS = ["-y", "absorbance", "-x", "conc_ug_l"]

@@ -26,7 +26,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run the check and print it."""
-    from engine import check
+    from bendwise.engine import check
 
     study = load_study_with_runs(args) if args.runs else load_study(args)
     result = check(study, alpha=args.alpha)

@@ -27,10 +27,10 @@ def add_runs_args(p: argparse.ArgumentParser) -> None:
 
 def load_study_with_runs(args: argparse.Namespace):
     """Read the table in memory, check the runs column, and build the study with it attached."""
-    from engine import load_table, make_study
-    from engine.backends.duckdb import choose_engine
-    from engine.checks.runs import validate_runs_column
-    from engine.errors import UsageError
+    from bendwise.engine import load_table, make_study
+    from bendwise.engine.backends.duckdb import choose_engine
+    from bendwise.engine.checks.runs import validate_runs_column
+    from bendwise.engine.errors import UsageError
 
     from .common import _tell_cleaning, parse_size, split_list
 
@@ -48,14 +48,14 @@ def load_study_with_runs(args: argparse.Namespace):
 
 def extras(study, args: argparse.Namespace) -> tuple[object | None, object | None]:
     """(runs result, limits report) for the options given; None for those not asked."""
-    from engine.checks.limits import LimitsReport, limits_one_run, limits_with_runs
-    from engine.checks.runs import check_runs, run_factor
+    from bendwise.engine.checks.limits import LimitsReport, limits_one_run, limits_with_runs
+    from bendwise.engine.checks.runs import check_runs, run_factor
 
     runs = check_runs(study, args.runs) if args.runs else None
     limits = None
     if args.limits:
         if not study.has_rows:
-            from engine.errors import UsageError
+            from bendwise.engine.errors import UsageError
 
             raise UsageError("--limits needs the rows in memory: use --engine memory")
         one = limits_one_run(study.x, study.y)
