@@ -167,6 +167,30 @@ def norep_rows() -> list[Row]:
 
 
 # ---------------------------------------------------------------------------
+# (e) multi_day_calibration.csv -- a straight line measured on five days, each day shifted
+# ---------------------------------------------------------------------------
+MULTI_DAYS = ("mon", "tue", "wed", "thu", "fri")
+MULTI_LEVELS_UG_L = (0.0, 1.0, 2.0, 5.0, 10.0, 20.0)
+MULTI_REPLICATES = 3
+MULTI_BLANK_AU = 0.012
+MULTI_SLOPE_AU_PER_UG_L = 0.0485
+MULTI_DAY_SD_AU = 0.025  # each day's baseline shifts by a normal offset with this SD ...
+MULTI_SD_AU = 0.006  # ... on top of the scatter of repeats within a day
+
+
+def multi_day_rows() -> list[Row]:
+    rng = _rng(6)
+    offsets = rng.normal(0.0, MULTI_DAY_SD_AU, len(MULTI_DAYS))
+    rows: list[Row] = []
+    for day, offset in zip(MULTI_DAYS, offsets, strict=True):
+        for conc in MULTI_LEVELS_UG_L:
+            for rep in range(1, MULTI_REPLICATES + 1):
+                y = MULTI_BLANK_AU + MULTI_SLOPE_AU_PER_UG_L * conc + offset + rng.normal(0.0, MULTI_SD_AU)
+                rows.append((day, f"{conc:.1f}", str(rep), f"{y:.4f}"))
+    return rows
+
+
+# ---------------------------------------------------------------------------
 # Writing
 # ---------------------------------------------------------------------------
 FILES: dict[str, tuple[tuple[str, ...], Callable[[], list[Row]]]] = {
@@ -181,6 +205,7 @@ FILES: dict[str, tuple[tuple[str, ...], Callable[[], list[Row]]]] = {
     "process_trial.csv": (("run_id", "setpoint_c", "yield_pct", "work_shift"), trial_rows),
     "straight_line.csv": (("dose_ug", "response_au"), line_rows),
     "no_replicates.csv": (("load_kn", "strain_um"), norep_rows),
+    "multi_day_calibration.csv": (("day", "conc_ug_l", "repeat", "absorbance"), multi_day_rows),
 }
 
 

@@ -19,6 +19,7 @@ NAMES = (
     "process_trial.csv",
     "straight_line.csv",
     "no_replicates.csv",
+    "multi_day_calibration.csv",
 )
 
 
@@ -67,6 +68,7 @@ def test_headers_are_plain_column_names() -> None:
         "process_trial.csv": "run_id,setpoint_c,yield_pct,work_shift",
         "straight_line.csv": "dose_ug,response_au",
         "no_replicates.csv": "load_kn,strain_um",
+        "multi_day_calibration.csv": "day,conc_ug_l,repeat,absorbance",
     }
     for name, header in expected.items():
         first = (DATASETS / name).read_text(encoding="ascii").splitlines()[0]
@@ -137,3 +139,18 @@ def test_no_replicates_has_distinct_loads_and_mild_curvature() -> None:
     assert fit.pvalues.iloc[2] < 0.01
     # Mild: the straight line still explains nearly everything.
     assert smf.ols("strain_um ~ load_kn", df).fit().rsquared > 0.99
+
+
+def test_multi_day_calibration_is_a_line_shifted_by_day() -> None:
+    df = _read("multi_day_calibration.csv")
+    assert df.groupby(["day", "conc_ug_l"]).size().eq(3).all()
+    assert df["day"].nunique() == 5 and df["conc_ug_l"].nunique() == 6
+    # The days differ by a visible offset: day means (same levels every day) differ far beyond
+    # what the within-day scatter allows (statsmodels anova_lm, day after the line).
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        table = anova_lm(smf.ols("absorbance ~ conc_ug_l + C(day)", df).fit())
+    assert float(table.loc["C(day)", "PR(>F)"]) < 1e-10
+    # Within days the line holds: line + day against one mean per day × level cell.
+    p = _lack_of_fit_p(df, "absorbance ~ conc_ug_l + C(day)", "absorbance ~ C(day) * C(conc_ug_l)")
+    assert p > 0.05

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 
 from ..output import collinear_words, count, emit_json, fmt_num, fmt_p
+from .check_runs import add_runs_args, extras, load_study_with_runs, render_extras
 from .common import CAUTION, add_data_args, alpha_arg, load_study, table
 
 
@@ -19,6 +20,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--alpha", type=alpha_arg, default=0.05, help="level of the verdict (default 0.05)")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the text report")
     p.add_argument("--strict", action="store_true", help="exit 1 when lack of fit is found")
+    add_runs_args(p)
     p.set_defaults(func=run)
 
 
@@ -26,12 +28,20 @@ def run(args: argparse.Namespace) -> int:
     """Run the check and print it."""
     from bendwise.engine import check
 
-    study = load_study(args)
+    study = load_study_with_runs(args) if args.runs else load_study(args)
     result = check(study, alpha=args.alpha)
+    runs, limits = extras(study, args)
     if args.json:
-        emit_json(result.to_dict())
+        out = result.to_dict()
+        if runs is not None:
+            out["runs"] = runs.as_json()
+        if limits is not None:
+            out["limits"] = limits.as_json()
+        emit_json(out)
     else:
-        print("\n".join(render(result, study.describe_design())))
+        lines = render(result, study.describe_design())
+        more = render_extras(runs, limits, result.x_name, args.alpha)
+        print("\n".join(lines[:-2] + more + lines[-2:] if more else lines))
     return 1 if args.strict and result.lack_found else 0
 
 
