@@ -45,9 +45,9 @@ class BendwiseApp(App[int]):
         and run off an 80-column screen); otherwise a toast kept inside the screen (see app.tcss)."""
         from .widgets.status import MessageLine
 
-        lines = self.screen.query(MessageLine) if self.is_running else []
+        lines = list(self.screen.query(MessageLine)) if self.is_running else []
         if lines:
-            lines.first().say(f"{title}: {message}" if title else message, warning=severity != "information")
+            lines[0].say(f"{title}: {message}" if title else message, warning=severity != "information")
             return
         super().notify(message, title=title, severity=severity, **kwargs)  # type: ignore[arg-type]
 

@@ -50,8 +50,8 @@ class Limits:
     sigma_residual: float
     sigma_intercept: float | None
     sigma_intercept_words: str
-    lod_residual: float
-    loq_residual: float
+    lod_residual: float | None
+    loq_residual: float | None
     lod_intercept: float | None
     loq_intercept: float | None
     y_critical: float

@@ -213,7 +213,7 @@ def _transform(block: dict, where: str, kinds: tuple[str, ...]) -> Transform:
     param = tr.get("param")
     p = _num(param, f"{where}.transform.param") if kind in PARAMETRIC_KINDS else param
     try:
-        return Transform.from_parts(kind, p)
+        return Transform.from_parts(str(kind), p)
     except ValueError as exc:
         raise _fail(f"{where}.transform.param", str(exc)) from None
 

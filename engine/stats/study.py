@@ -196,6 +196,7 @@ class Study:
         hit = self._cache.get(("spread", key))
         if hit is None:
             zz = z if w is None else np.sqrt(w) * z
+            assert zz is not None, "the spread test needs the rows"
             hit = self._cache[("spread", key)] = spread_test(zz, self.x_codes, self.c, self.group_order(()))
         return hit
 

@@ -148,7 +148,7 @@ class Transform:
             lam = float(self.param)  # type: ignore[arg-type]
             return f"I(({col} ** {lam!r} - 1) / {lam!r})"
         if k == "power":
-            return f"I({col} ** {float(self.param)!r})"
+            return f"I({col} ** {float(self.param)!r})"  # type: ignore[arg-type]
         raise ValueError(k)
 
     # ---- what callers ask instead of comparing kinds -----------------------------------

@@ -114,8 +114,11 @@ def profile_boxcox(
         below = fv < top - HALF_CHI2_95
         left = np.flatnonzero(below[:i])
         right = np.flatnonzero(below[i:])
-        low = float(brentq(lambda v: spline(v) - top + HALF_CHI2_95, fine[left[-1]], fine[left[-1] + 1])) if left.size else None
-        high = float(brentq(lambda v: spline(v) - top + HALF_CHI2_95, fine[i + right[0] - 1], fine[i + right[0]])) if right.size else None
+        def drop(v: float) -> float:
+            return float(spline(v)) - top + HALF_CHI2_95
+
+        low = float(brentq(drop, fine[left[-1]], fine[left[-1] + 1])) if left.size else None
+        high = float(brentq(drop, fine[i + right[0] - 1], fine[i + right[0]])) if right.size else None
     else:
         def ll(lam: float) -> float:
             st = compute_group_stats(codes, c, _bc(ly, lam), weights, bases)  # type: ignore[arg-type]

@@ -56,6 +56,7 @@ def residuals_by_level(study: Study, score: NodeScore, max_rows: int = 100_000) 
         cols.append(v)
     zhat = np.column_stack(cols) @ beta_w
     w = np.ones(idx.size) if fr.w is None else fr.w[idx]
+    assert fr.z is not None, "row residuals need the rows"
     e = np.sqrt(w) * (fr.z[idx] - zhat)
     xc = study.x_codes[idx]
     cnt = np.bincount(xc, minlength=study.c).astype(float)

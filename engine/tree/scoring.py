@@ -292,13 +292,13 @@ def predict_terms(terms: tuple[Term, ...], beta: np.ndarray, t: np.ndarray, covs
         elif term.kind == "tpow":
             v = t**term.power
         elif term.kind == "cat":
-            v = (np.asarray(covs[term.covariate]) == term.level).astype(float)
+            v = (np.asarray(covs[str(term.covariate)]) == term.level).astype(float)
         elif term.kind == "num":
-            v = np.asarray(covs[term.covariate], dtype=float)
+            v = np.asarray(covs[str(term.covariate)]).astype(float)
         elif term.kind == "tcat":
-            v = t * (np.asarray(covs[term.covariate]) == term.level)
+            v = t * (np.asarray(covs[str(term.covariate)]) == term.level)
         elif term.kind == "tnum":
-            v = t * np.asarray(covs[term.covariate], dtype=float)
+            v = t * np.asarray(covs[str(term.covariate)]).astype(float)
         else:
             raise ValueError(term.kind)
         out = out + b * v

@@ -303,7 +303,7 @@ class RemedyTree:
             s = node.score
             by_level = not node.spec.covariates and not self.study.approximate_groups
             fits = s is not None and s.lack_of_fit.passes(a) is True
-            if not (fits and by_level) or not base.available and "weights were given" in (base.reason or ""):
+            if s is None or not (fits and by_level) or not base.available and "weights were given" in (base.reason or ""):
                 hit = base
             else:
                 z, _ = self.study.transformed(node.spec.response)

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
+from typing import Any
 
 from ..output import fmt_num, fmt_p
 from .common import table
@@ -46,7 +47,7 @@ def load_study_with_runs(args: argparse.Namespace):
     return _tell_cleaning(study, list(frame.attrs.get("read_notes", [])))
 
 
-def extras(study, args: argparse.Namespace) -> tuple[object | None, object | None]:
+def extras(study, args: argparse.Namespace) -> tuple[Any, Any]:
     """(runs result, limits report) for the options given; None for those not asked."""
     from bendwise.engine.checks.limits import LimitsReport, limits_one_run, limits_with_runs
     from bendwise.engine.checks.runs import check_runs, run_factor

@@ -405,7 +405,7 @@ class MainScreen(Screen):
             self.say(f"{nid} is already grown: its moves are listed under it (or pruned, with reasons, in the detail)")
             return
         self.query_one(StatusPanel).busy(f"growing {nid}…")
-        self.query_one(TreeGrower).expand(board, nid)
+        self.query_one(TreeGrower).expand_node(board, nid)
 
     def action_cancel(self) -> None:
         self.query_one(TreeGrower).cancel()

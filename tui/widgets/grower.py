@@ -111,7 +111,7 @@ class TreeGrower(Widget):
         self.busy = True
         self._grow(alpha, rule)
 
-    def expand(self, board: TreeSummary, nid: str) -> None:
+    def expand_node(self, board: TreeSummary, nid: str) -> None:
         """Grow one node best-first."""
         self.busy = True
         self._expand(board, nid)
