@@ -8,6 +8,7 @@ import os
 import re
 import shutil
 import subprocess
+import sys
 from datetime import UTC, datetime
 from html.parser import HTMLParser
 from pathlib import Path
@@ -238,3 +239,52 @@ def test_a_real_browser_draws_every_figure_and_prints_a_few_pages(exported, tmp_
         PNG_DIR.mkdir(exist_ok=True)
         shutil.copyfile(first, PNG_DIR / "first_page.png")
         shutil.copyfile(tmp_path / "fit.png", PNG_DIR / "figure_fit.png")
+
+
+# ----- the command line -----------------------------------------------------------------
+
+def _cli(argv: list[str], capsys) -> tuple[int, str, str]:
+    from tui.cli import main
+
+    code = main(argv)
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def test_cli_writes_both_by_default_and_md_without_matplotlib(tmp_path, capsys, monkeypatch):
+    base = [str(DATA), "-y", "signal_mv", "-x", "conc_mg_l", "--node", "root", "--depth", "1"]
+    code, out, _ = _cli(["export", *base, "-o", str(tmp_path / "a")], capsys)
+    assert code == 0 and "report.html" in out
+    assert {p.name for p in (tmp_path / "a").iterdir()} == {"spec.json", "reproduce.py", "report.md", "report.html"}
+    code, out, _ = _cli(["export", *base, "--report", "md", "-o", str(tmp_path / "b")], capsys)
+    assert code == 0 and not (tmp_path / "b" / "report.html").exists() and (tmp_path / "b" / "report.md").exists()
+    import engine.handon.html as html_pkg
+
+    monkeypatch.setattr(html_pkg, "html_available", lambda: False)
+    monkeypatch.setattr("engine.handon.html.page.html_available", lambda: False)
+    code, out, _ = _cli(["export", *base, "-o", str(tmp_path / "c")], capsys)
+    assert code == 0 and "note: report.html not written" in out
+    assert {p.name for p in (tmp_path / "c").iterdir()} == {"spec.json", "reproduce.py", "report.md"}
+    code, out, err = _cli(["export", *base, "--report", "html", "-o", str(tmp_path / "d")], capsys)
+    assert code != 0 and "needs matplotlib" in err and len(err.strip().splitlines()) == 1
+    assert not (tmp_path / "d").exists()
+
+
+def test_engine_and_markdown_export_never_load_matplotlib(tmp_path):
+    """Drawing stays out of the engine's computation: only building report.html imports matplotlib."""
+    code = f"""
+import sys
+from engine import load_table, make_study
+from engine.tree.tree import RemedyTree
+from engine.handon.export import export_node
+t = RemedyTree(make_study(load_table({str(DATA)!r}), y="signal_mv", x="conc_mg_l"))
+t.grow(1)
+export_node(t, "root", {str(tmp_path / "md")!r}, report="md")
+assert "matplotlib" not in sys.modules, "md export loaded matplotlib"
+export_node(t, "root", {str(tmp_path / "html")!r}, report="html")
+assert "matplotlib" in sys.modules
+print("ok")
+"""
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120,
+                          cwd=Path(__file__).resolve().parents[2])
+    assert done.returncode == 0 and done.stdout.strip() == "ok", done.stderr[-2000:]
