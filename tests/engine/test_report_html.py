@@ -130,6 +130,12 @@ def test_numbers_on_the_page_are_the_specs(exported):
     assert spec["tests"]["straight_line"]["verdict"] in text
     assert spec["cautions"]["use"] in text and spec["cautions"]["post_search"] in text
     assert spec["model"]["formula_text"] in text
+    lam = spec["model"]["response"]["transform"]["param"]
+    words = " ".join(text.split())
+    assert f"signal_mv , Box–Cox transformed with λ = {lam:.4g}" in words or \
+        f"signal_mv, Box–Cox transformed with λ = {lam:.4g}" in words, words[:600]
+    assert "follows a straight line in conc_mg_l , as measured" in words or \
+        "follows a straight line in conc_mg_l, as measured" in words
 
 
 def test_answer_quotes_the_published_rates_and_the_search(exported, tree):

@@ -80,7 +80,8 @@ def _answer(doc: dict[str, Any]) -> list[str]:
            f"{escape(doc['tool']['version'])} · spec schema {escape(doc['schema_version'])}</p>",
            "<h2>The answer</h2>",
            f'<p class="verdict">Straight line {_c(f"{y} ~ {x}")}: {escape(tests["straight_line"]["verdict"])}</p>',
-           f"<p>Model handed on, in words: {_c(doc['node']['label'])}. In symbols: {_c(m['formula_text'])}"
+           f"<p>Model handed on ({_c(doc['node']['label'])}), in words: {_words(doc)} In symbols: "
+           f"{_c(m['formula_text'])}"
            f" <small>({escape(m['formula_note'])})</small></p>",
            "<ul>",
            f"<li>Calibrated range of {_c(x)}: {_num(cal['x_min'], 'calibration.x_min')} to "
@@ -117,6 +118,37 @@ def _rates(rates: dict[str, Any]) -> str:
         text += (f"<p>When the truth bends, it finds a remedy in {escape(_n(lo, 3))} to {escape(_n(hi, 3))} of sets "
                  f"({len(found)} design and shape cells; the README lists each).</p>")
     return text
+
+
+_TRANSFORM_WORDS = {"identity": "as measured", "log": "on the log scale", "sqrt": "as its square root",
+                    "reciprocal": "as its reciprocal", "boxcox": "Box–Cox transformed with λ = {p}",
+                    "power": "raised to the power {p}"}
+
+_DEGREE_WORDS = {1: "a straight line", 2: "a quadratic", 3: "a cubic"}
+
+
+def _words(doc: dict[str, Any]) -> str:
+    """The model in plain words (escaped HTML)."""
+    m = doc["model"]
+
+    def how(block: dict[str, Any]) -> str:
+        tr = block["transform"]
+        text = _TRANSFORM_WORDS.get(tr["kind"], tr["kind"])
+        return text.format(p=_n(tr.get("param"), 4)) + (" (power estimated from the data)" if block["estimated"] else "")
+
+    degree = _DEGREE_WORDS.get(m["degree"], f"a polynomial of degree {m['degree']}")
+    text = (f"{_c(m['response']['column'])}, {escape(how(m['response']))}, follows {escape(degree)} in "
+            f"{_c(m['predictor']['column'])}, {escape(how(m['predictor']))}")
+    if m["covariates"]:
+        text += ", shifted by " + ", ".join(_c(c["name"]) for c in m["covariates"])
+    if m["interactions"]:
+        text += ", with slopes that differ by " + ", ".join(_c(i) for i in m["interactions"])
+    w = m["weights"]
+    if w["rule"] != "none":
+        text += f"; rows weighted by the level mean to the power −2θ, θ = {escape(_n(w['theta'], 4))}"
+    if w["user_column"]:
+        text += f"; rows weighted by the column {_c(w['user_column'])}"
+    return text + "."
 
 
 def _stability(doc: dict[str, Any]) -> str:
