@@ -25,7 +25,7 @@ def _figure(width: float = 6.4, height: float = 3.6, ncols: int = 1):
     """A new figure (Agg-free: the SVG canvas is attached when saved)."""
     from matplotlib.figure import Figure
 
-    fig = Figure(figsize=(width, height))
+    fig = Figure(figsize=(width, height), layout="constrained")
     axes = fig.subplots(1, ncols, squeeze=False)[0]
     return fig, list(axes)
 

@@ -17,8 +17,8 @@ from ...tree.tree import RemedyTree
 __all__ = ["html_available", "report_html"]
 
 CSS = """
-@page { size: A4; margin: 16mm 14mm; }
-body { font-family: sans-serif; font-size: 10.5pt; line-height: 1.4; color: #000; max-width: 190mm; margin: 0 auto; }
+@page { margin: 16mm 14mm; }  /* the paper the printer has: A4 or Letter */
+body { font-family: sans-serif; font-size: 10.5pt; line-height: 1.4; color: #000; max-width: 180mm; margin: 0 auto; }
 h1 { font-size: 16pt; margin: 0 0 4pt 0; } h2 { font-size: 12.5pt; border-bottom: 1px solid #000; margin-top: 14pt; }
 table { border-collapse: collapse; margin: 4pt 0; font-size: 9pt; } th, td { border: 1px solid #777; padding: 2pt 5pt; text-align: left; }
 td.n { text-align: right; font-variant-numeric: tabular-nums; }
