@@ -67,7 +67,8 @@ def _table(header: list[str], rows: list[list[str]], numeric: set[int] = frozens
 def _test(t: dict[str, Any]) -> str:
     if not t or not t.get("testable"):
         return escape(str((t or {}).get("reason", "not testable")))
-    return f"F = {escape(_n(t['f'], 4))} on {t['df_lack']} and {t['df_pure']} df, p = {_p(t['p'])}"
+    p = _p(t["p"])
+    return f"F = {escape(_n(t['f'], 4))} on {t['df_lack']} and {t['df_pure']} df, p {'' if p.startswith('&lt;') else '= '}{p}"
 
 def _answer(doc: dict[str, Any]) -> list[str]:
     """First page: verdict, model, range, σ̂, caveats, provenance."""
