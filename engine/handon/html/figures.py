@@ -17,7 +17,7 @@ import numpy as np
 __all__ = ["svg_of", "fit_figure", "residual_figure", "line_vs_model_figure", "boxcox_figure",
            "inverse_figure"]
 
-_RC = {"svg.fonttype": "none", "svg.hashsalt": "bendwise-report", "font.size": 9.0,
+_RC: Any = {"svg.fonttype": "none", "svg.hashsalt": "bendwise-report", "font.size": 9.0,
        "axes.grid": True, "grid.linestyle": ":", "grid.color": "#bbbbbb", "font.family": "sans-serif"}
 
 

@@ -57,7 +57,7 @@ def _c(text: Any) -> str:
     """Data-derived text as escaped code."""
     return f"<code>{escape(str(text))}</code>"
 
-def _table(header: list[str], rows: list[list[str]], numeric: set[int] = frozenset()) -> str:
+def _table(header: list[str], rows: list[list[str]], numeric: frozenset[int] | set[int] = frozenset()) -> str:
     """An HTML table; cells are already escaped HTML."""
     head = "".join(f"<th>{h}</th>" for h in header)
     body = "".join("<tr>" + "".join(f'<td class="n">{c}</td>' if i in numeric else f"<td>{c}</td>"
@@ -183,10 +183,14 @@ def _provenance(doc: dict[str, Any]) -> list[str]:
 
 def _search_rows(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> list[list[str]]:
     """Chosen node, its parent chain, then the best five other nodes by AICc."""
+    def aicc(n) -> float:  # an undefined AICc (too few rows for k) sorts last
+        v = n.score.criteria.aicc
+        return math.inf if v is None or not math.isfinite(v) else float(v)
+
     scored = [n for n in tree.nodes.values() if n.score is not None]
-    best = min(n.score.criteria.aicc for n in scored)
+    best = min(aicc(n) for n in scored)
     path = [n.id for n in tree.path(node_id)]
-    others = sorted((n for n in scored if n.id not in path), key=lambda n: n.score.criteria.aicc)[:5]
+    others = sorted((n for n in scored if n.id not in path), key=aicc)[:5]
     y, x = tree.study.y_name, tree.study.x_name
     shares = (doc.get("stability") or {}).get("shares") or {}
     rows = []
@@ -199,7 +203,7 @@ def _search_rows(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> list[li
         share = shares.get(node.id)
         rows.append([escape(role), _c(node.id), _c(node.spec.label(y, x)), escape(str(s.criteria.k)),
                      _p(s.lack_of_fit.p if s.lack_of_fit.testable else None),
-                     escape(_n(s.criteria.aicc - best, 4)),
+                     escape(_n(aicc(node) - best, 4) if math.isfinite(aicc(node) - best) else "—"),
                      _test(nested) if nested else "—", escape(_n(share, 3)) if share is not None else "not computed"])
     return rows
 

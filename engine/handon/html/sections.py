@@ -55,6 +55,8 @@ def figures_section(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> list
 
     study = tree.study
     score = tree.nodes[node_id].score
+    root = tree.nodes["root"].score
+    assert score is not None and root is not None  # export_node refuses unscored nodes; the root is always scored
     y, x = study.y_name, study.x_name
     model = model_from_spec(doc)
     curve = curve_chart(study, score)
@@ -69,7 +71,7 @@ def figures_section(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> list
     out.append(_figure(F.svg_of(F.residual_figure(model_r, x)),
                        "Figure 2. Residuals of the chosen model by level: rows (open circles), level mean "
                        "(squares) with ± the replicate SD (bars).", "residuals"))
-    line_r = residual_chart(study, tree.nodes["root"].score)
+    line_r = residual_chart(study, root)
     out.append(_figure(F.svg_of(F.line_vs_model_figure(line_r, model_r, x)),
                        "Figure 3. The straight line's residuals (left) beside the chosen model's (right); level "
                        "means that stray from zero are the lack of fit.", "line-vs-model"))
