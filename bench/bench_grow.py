@@ -50,8 +50,9 @@ import pandas as pd
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
+from bendwise.engine.tree.tree import RemedyTree  # noqa: E402
+
 import engine  # noqa: E402
-from engine.tree.tree import RemedyTree  # noqa: E402
 
 COVARIATES = ("t1", "t2", "batch")
 REL = 1e-8
@@ -193,7 +194,7 @@ def _bendwise_cmd() -> list[str]:
     if exe.exists():
         return [str(exe)]
     found = shutil.which("bendwise")
-    return [found] if found else [sys.executable, "-c", "from tui.cli import entry; entry()"]
+    return [found] if found else [sys.executable, "-c", "from bendwise.tui.cli import entry; entry()"]
 
 
 # A small launcher measures the child: on Linux a child forked straight from this (large)

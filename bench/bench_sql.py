@@ -143,8 +143,8 @@ def _child_sql_tree(path: str, profile: bool) -> dict:
     if profile:
         real = duckdb.connect
         duckdb.connect = lambda *a, **k: _TimedConnection(real(*a, **k), log)  # type: ignore[assignment]
-    from engine.backends.duckdb import make_sql_study
-    from engine.tree.tree import RemedyTree
+    from bendwise.engine.backends.duckdb import make_sql_study
+    from bendwise.engine.tree.tree import RemedyTree
 
     t0 = time.perf_counter()
     study = make_sql_study(path, y="y", x="x", covariates=list(COVARIATES))
@@ -163,10 +163,9 @@ def _child_sql_tree(path: str, profile: bool) -> dict:
 
 
 def _child_mem_tree(path: str) -> dict:
+    import bendwise.engine as engine
     import pandas as pd
-
-    import engine
-    from engine.tree.tree import RemedyTree
+    from bendwise.engine.tree.tree import RemedyTree
 
     t0 = time.perf_counter()
     frame = pd.read_parquet(path)

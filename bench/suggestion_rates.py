@@ -134,8 +134,7 @@ def found(truth: str, tree, node_id: str | None) -> bool:
 
 def one_case(job: tuple[str, str, int, int, int, float, tuple[str, ...]]) -> tuple:
     """Simulate, grow and suggest one data set (runs in a worker process)."""
-    import engine
-
+    import bendwise.engine as engine
     design, truth, index, base_seed, depth, alpha, policies = job
     frame = simulate(design, truth, index, base_seed)
     covs = ["batch"] if "batch" in frame else []
@@ -255,7 +254,7 @@ def main(argv: list[str] | None = None) -> int:
     sets = 60 if args.quick else args.sets
     policies: tuple[str, ...] = ("default",)
     if args.policies:
-        from engine import SUGGESTION_POLICIES
+        from bendwise.engine import SUGGESTION_POLICIES
 
         policies = ("default",) + tuple(p for p in SUGGESTION_POLICIES if p != "default")
     if args.policy:

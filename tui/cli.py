@@ -49,9 +49,9 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     for name in _COMMANDS:
         try:
-            module = importlib.import_module(f"tui.commands.{name}")
+            module = importlib.import_module(f"bendwise.tui.commands.{name}")
         except ModuleNotFoundError as exc:
-            if exc.name == f"tui.commands.{name}":
+            if exc.name == f"bendwise.tui.commands.{name}":
                 continue  # command not built yet
             raise
         module.register(sub)
@@ -60,7 +60,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the process exit status."""
-    from engine.errors import BendwiseError
+    from bendwise.engine.errors import BendwiseError
 
     args_list = list(sys.argv[1:] if argv is None else argv)
     if not args_list:

@@ -11,7 +11,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
-    from engine.tree.tree import RemedyTree
+    from bendwise.engine.tree.tree import RemedyTree
 
 __all__ = ["export_node", "default_export_name"]
 
@@ -32,10 +32,10 @@ def export_node(tree: RemedyTree, node_id: str, path: str | Path, force: bool = 
     when the engine refuses the node (e.g. collinear terms), with its one-line reason.
     ``report`` is 'md', 'html' or 'both' (which report files the folder gets).
     """
-    from engine.errors import BendwiseError
-    from engine.handon.export import ExportExists
-    from engine.handon.export import export_node as write_export
-    from engine.read.files import describe_reading
+    from bendwise.engine.errors import BendwiseError
+    from bendwise.engine.handon.export import ExportExists
+    from bendwise.engine.handon.export import export_node as write_export
+    from bendwise.engine.read.files import describe_reading
 
     if node_id not in tree.nodes:
         raise KeyError(node_id)

@@ -13,8 +13,8 @@ from typing import TYPE_CHECKING, Any
 from textual.message import Message
 
 if TYPE_CHECKING:
-    from engine.stats.study import Study
-    from engine.tree.tree import Node, RemedyTree, Suggestion
+    from bendwise.engine.stats.study import Study
+    from bendwise.engine.tree.tree import Node, RemedyTree, Suggestion
 
 __all__ = [
     "TreeSummary",
@@ -146,7 +146,7 @@ class GrowthFailed(Message):
 
 def failure_line(exc: BaseException) -> str:
     """One line for an error in a worker: the engine's own words, or the kind of failure."""
-    from engine.errors import BendwiseError
+    from bendwise.engine.errors import BendwiseError
 
     text = " ".join(str(exc).split()) or type(exc).__name__
     if isinstance(exc, BendwiseError):

@@ -31,10 +31,10 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ..cautions import CAUTION
-from ..errors import SpecError, UsageError
 from ..checks.results import LackOfFit
-from ..tree.model_spec import ModelSpec, WeightRule
+from ..errors import SpecError, UsageError
 from ..stats.transforms import Transform, canonical_response
+from ..tree.model_spec import ModelSpec, WeightRule
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -209,8 +209,8 @@ def confirm(doc: dict[str, Any], model: HandedModel, frame: pd.DataFrame, *, alp
         raise UsageError(f"alpha {alpha!r} must lie strictly between 0 and 1, e.g. 0.05")
     if allowable_deviation is not None and not allowable_deviation > 0:
         raise UsageError(f"allowable deviation {allowable_deviation!r} must be > 0 (in y units)")
-    from ..tree.scoring import score_spec
     from ..stats.study import make_study
+    from ..tree.scoring import score_spec
 
     spec = model_spec_from_doc(doc, model)
     study = make_study(frame, y=model.response_name, x=model.predictor_name,
@@ -247,8 +247,8 @@ def _form(lof: LackOfFit) -> FormTest:
 
 def _transfer(study, model: HandedModel, allowable: float | None) -> TransferTest:
     from ..stats.dist import f_sf
-    from .predict import predict_forward, weight_at
     from ..tree.scoring import predict_terms
+    from .predict import predict_forward, weight_at
 
     covs: dict[str, np.ndarray] = {}
     for cov in model.covariates:

@@ -23,8 +23,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-
-from engine.errors import UsageError
+from bendwise.engine.errors import UsageError
 
 __all__ = [
     "LACK_OF_FIT",

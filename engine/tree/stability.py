@@ -51,8 +51,8 @@ from ..errors import UsageError
 from .model_spec import ModelSpec
 
 if TYPE_CHECKING:
-    from .tree import RemedyTree
     from ..stats.study import Study
+    from .tree import RemedyTree
 
 __all__ = ["Stability", "selection_stability", "form_key", "shares_table", "MAX_ROWS", "SCHEME"]
 

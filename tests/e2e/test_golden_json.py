@@ -19,8 +19,7 @@ import shutil
 from pathlib import Path
 
 import pytest
-
-from tui.cli import main
+from bendwise.tui.cli import main
 
 ROOT = Path(__file__).resolve().parents[2]
 GOLDEN = ROOT / "tests" / "golden"

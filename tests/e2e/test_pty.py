@@ -148,7 +148,7 @@ def test_table_piped_in_then_keys_from_the_terminal(tmp_path):
     """`cat t.csv | bendwise open - …`: the table comes from the pipe, the keys from /dev/tty."""
     repo = Path(__file__).resolve().parents[2]
     data = repo / "datasets" / "sensor_calibration.csv"
-    cmd = (f"cat {shlex.quote(str(data))} | exec {shlex.quote(sys.executable)} -m tui.cli open - "
+    cmd = (f"cat {shlex.quote(str(data))} | exec {shlex.quote(sys.executable)} -m bendwise.tui.cli open - "
            "-y signal_mv -x conc_mg_l --depth 1")
     term = Terminal(["/bin/sh", "-c", cmd], repo, _env())
     try:

@@ -11,18 +11,17 @@ from __future__ import annotations
 import math
 import warnings
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
+from bendwise.engine.checks.lack_of_fit import lack_of_fit, nested_f
+from bendwise.engine.stats.groups import compute_group_stats
+from bendwise.engine.stats.linalg import Column, Design, fit_design, poly_map
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from statsmodels.stats.anova import anova_lm
-
-import engine
-from engine.checks.lack_of_fit import lack_of_fit, nested_f
-from engine.stats.groups import compute_group_stats
-from engine.stats.linalg import Column, Design, fit_design, poly_map
 
 REL = 1e-9
 

@@ -10,17 +10,16 @@ import subprocess
 import sys
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import engine
-from engine.errors import SpecError
-from engine.handon.export import export_node
-from engine.handon.inverse import inverse_predict
-from engine.handon.predict import predict_forward
-from engine.handon.specfile import load_spec
-from tui.cli import main
+from bendwise.engine.errors import SpecError
+from bendwise.engine.handon.export import export_node
+from bendwise.engine.handon.inverse import inverse_predict
+from bendwise.engine.handon.predict import predict_forward
+from bendwise.engine.handon.specfile import load_spec
+from bendwise.tui.cli import main
 
 X = np.repeat(np.arange(0.0, 9.0), 3)
 NOISE = np.tile([-0.004, 0.0, 0.0045], 9)

@@ -11,15 +11,14 @@ import json
 import math
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import engine
-from engine.handon.confirm import confirm, model_spec_from_doc
-from engine.handon.export import build_spec
-from engine.handon.specfile import validate_spec
-from tui.cli import main
+from bendwise.engine.handon.confirm import confirm, model_spec_from_doc
+from bendwise.engine.handon.export import build_spec
+from bendwise.engine.handon.specfile import validate_spec
+from bendwise.tui.cli import main
 
 DATA = Path(__file__).resolve().parents[2] / "datasets"
 LEVELS = np.repeat(np.linspace(1.0, 10.0, 6), 3)

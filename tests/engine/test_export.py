@@ -16,23 +16,22 @@ import textwrap
 from datetime import UTC, datetime
 from pathlib import Path
 
+import bendwise.engine as engine
 import jsonschema
 import numpy as np
 import pandas as pd
 import pytest
-
-import engine
-from engine.errors import SpecError, UsageError
-from engine.handon.export import (
+from bendwise.engine.errors import SpecError, UsageError
+from bendwise.engine.handon.export import (
     ExportExists,
     build_spec,
     export_node,
     write_rows_csv,
     write_text_atomic,
 )
-from engine.handon.predict import predict_forward
-from engine.handon.report import text_chart
-from engine.handon.specfile import load_spec, schema_path, validate_spec
+from bendwise.engine.handon.predict import predict_forward
+from bendwise.engine.handon.report import text_chart
+from bendwise.engine.handon.specfile import load_spec, schema_path, validate_spec
 
 DATASETS = Path(__file__).resolve().parents[2] / "datasets"
 SENSOR = DATASETS / "sensor_calibration.csv"
@@ -217,8 +216,8 @@ def test_smearing_through_the_general_path_matches_a_hand_computation(sensor_tre
 
 
 def test_back_transformed_intervals_stop_at_the_edge_of_the_response_range():
-    from engine.handon.predict import back_interval
-    from engine.stats.transforms import RECIPROCAL, SQRT, Transform
+    from bendwise.engine.handon.predict import back_interval
+    from bendwise.engine.stats.transforms import RECIPROCAL, SQRT, Transform
 
     # √y: a z interval reaching below 0 covers y from 0 (y = z² is not monotone below 0)
     lo, hi = back_interval(SQRT, np.array([-1.0, 1.0]), np.array([2.0, 3.0]))
@@ -263,7 +262,7 @@ def test_reproduction_script_refits_the_model(script_exports, kind):
     assert done.returncode == 0, done.stdout + done.stderr
     assert "OK: all" in done.stdout and "WARNING" not in done.stderr
     body = (folder / "reproduce.py").read_text(encoding="utf-8").split('"""', 2)[2]
-    assert "import engine" not in body and "from engine" not in body and "tui" not in body
+    assert "import bendwise.engine" not in body and "from bendwise.engine" not in body and "tui" not in body
 
 
 def test_reproduction_script_catches_an_altered_spec(script_exports, tmp_path):
@@ -430,8 +429,8 @@ def test_export_modules_stay_headless_and_light():
 
 
 def test_new_data_problems_name_the_row(line_tree, tmp_path):
-    from engine.errors import DataError
-    from engine.handon.predict import new_inputs
+    from bendwise.engine.errors import DataError
+    from bendwise.engine.handon.predict import new_inputs
 
     _, model = load_spec(export_node(line_tree, "root", tmp_path / "e")[0])
     frame = pd.DataFrame({"dose_ug": ["1", "abc", "3"]})

@@ -6,12 +6,11 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
+import bendwise.engine as engine
+import bendwise.engine.handon.export as export_mod
 import pytest
-
-import engine
-import engine.handon.export as export_mod
-from engine.errors import UsageError
-from engine.handon.export import EXPORT_FILES, export_node
+from bendwise.engine.errors import UsageError
+from bendwise.engine.handon.export import EXPORT_FILES, export_node
 
 LINE = Path(__file__).resolve().parents[2] / "datasets" / "straight_line.csv"
 

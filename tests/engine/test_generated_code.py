@@ -17,14 +17,13 @@ import sys
 import tokenize
 from pathlib import Path
 
+import bendwise.engine as engine
 import jsonschema
 import numpy as np
 import pandas as pd
 import pytest
-
-import engine
-from engine.handon.export import export_node
-from engine.handon.specfile import schema_path, validate_spec
+from bendwise.engine.handon.export import export_node
+from bendwise.engine.handon.specfile import schema_path, validate_spec
 
 MARK = "pwned_by_name"  # every name that tries to run something would create a file of this name
 HOSTILE = [
@@ -166,7 +165,7 @@ def test_spec_json_keeps_names_exact_and_valid(hostile_export):
 @pytest.mark.parametrize("fmt", ["parquet", "csv"])
 def test_sql_engine_quotes_every_name_and_agrees_with_memory(tmp_path, fmt):
     pytest.importorskip("duckdb")
-    from engine.backends.duckdb import make_sql_study
+    from bendwise.engine.backends.duckdb import make_sql_study
 
     # hostile names, and names that are the SQL's own words and aliases ("y", "x", "n", "bw_c")
     names = {"y": HOSTILE[4], "x": HOSTILE[7], "cat": "n" if fmt == "csv" else NUL_NAME, "num": "y"}

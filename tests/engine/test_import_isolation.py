@@ -34,7 +34,7 @@ def test_check_runs_without_any_ui_module():
     loaded = _loaded_after(
         """
         import pandas as pd
-        import engine
+        import bendwise.engine as engine
         frame = pd.DataFrame({"x": [1, 1, 2, 2, 3, 3, 4, 4], "y": [1.0, 1.2, 2.1, 1.9, 3.2, 2.8, 4.5, 4.1]})
         result = engine.check(engine.make_study(frame, y="y", x="x"))
         assert result.lack_of_fit.testable
@@ -48,5 +48,5 @@ def test_check_runs_without_any_ui_module():
 
 
 def test_importing_the_engine_is_light():
-    loaded = _loaded_after("import engine\n", UI_MODULES + HEAVY_MODULES)
-    assert loaded == [], f"import engine pulled in {loaded}"
+    loaded = _loaded_after("import bendwise.engine\n", UI_MODULES + HEAVY_MODULES)
+    assert loaded == [], f"import bendwise.engine pulled in {loaded}"

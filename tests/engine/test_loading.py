@@ -8,12 +8,11 @@ from __future__ import annotations
 
 import io
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import engine
-from engine.errors import DataError
+from bendwise.engine.errors import DataError
 
 X = [0.5, 0.5, 1.5, 1.5, 2.5, 2.5]
 Y = [1.25, 1.75, 3.5, 3.0, 5.25, 4.75]

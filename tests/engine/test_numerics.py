@@ -7,11 +7,10 @@ import math
 
 import numpy as np
 import pytest
+from bendwise.engine.stats.numerics import CubicSpline as EngineSpline
+from bendwise.engine.stats.numerics import brentq as engine_brentq
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
-from engine.stats.numerics import CubicSpline as EngineSpline
-from engine.stats.numerics import brentq as engine_brentq
 
 
 @given(st.integers(4, 40), st.integers(0, 10_000))
@@ -51,9 +50,9 @@ def test_brentq_refuses_a_bad_bracket():
 def test_boxcox_grid_from_power_sums_matches_row_sums():
     # reference: the group statistics of each z = (y^λ − 1)/λ computed from the rows themselves
     # (engine.groups.compute_group_stats, two passes), for every λ of the tree's grid
-    from engine.stats.boxcox_grid import GRID_STEP, grid_group_stats_series
-    from engine.stats.groups import compute_group_stats
-    from engine.stats.power_sums import GRID_TOL
+    from bendwise.engine.stats.boxcox_grid import GRID_STEP, grid_group_stats_series
+    from bendwise.engine.stats.groups import compute_group_stats
+    from bendwise.engine.stats.power_sums import GRID_TOL
 
     rng = np.random.default_rng(9)
     n = 60_000

@@ -15,16 +15,15 @@ import math
 from fractions import Fraction
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
+from bendwise.engine.errors import BendwiseError
+from bendwise.engine.handon.export import export_node
+from bendwise.engine.tree.tree import RemedyTree
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-
-import engine
-from engine.errors import BendwiseError
-from engine.handon.export import export_node
-from engine.tree.tree import RemedyTree
 
 FUZZ = settings(max_examples=120, deadline=None, derandomize=True, database=None,
                 suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
@@ -120,7 +119,7 @@ def test_memory_engine_never_raises_anything_but_one_line(frame, tmp_path_factor
 @given(frame=odd_frames())
 def test_duckdb_engine_never_raises_anything_but_one_line(frame, tmp_path_factory):
     pytest.importorskip("duckdb")
-    from engine.backends.duckdb import make_sql_study
+    from bendwise.engine.backends.duckdb import make_sql_study
 
     tmp = tmp_path_factory.mktemp("oddsql")
     path = tmp / "odd.csv"
@@ -289,7 +288,7 @@ def test_weights_power_stays_bounded_on_a_reciprocal_curve(tmp_path):
     tree = RemedyTree(engine.make_study(engine.load_table(path), y="y", x="x"))
     trend = tree.spread_evidence()
     assert trend.available
-    from engine.stats.variance import THETA_MAX, THETA_MIN
+    from bendwise.engine.stats.variance import THETA_MAX, THETA_MIN
 
     assert THETA_MIN <= trend.theta_hat <= THETA_MAX
     tree.grow(2)

@@ -10,10 +10,8 @@ import math
 
 import numpy as np
 import pytest
-from scipy import stats
-
-from engine.errors import UsageError
-from engine.plan.power import (
+from bendwise.engine.errors import UsageError
+from bendwise.engine.plan.power import (
     CURVATURE,
     LACK_OF_FIT,
     design_power,
@@ -22,6 +20,7 @@ from engine.plan.power import (
     sigma_from_pure_error,
     spaced_levels,
 )
+from scipy import stats
 
 # ---------------------------------------------------------------- simulation of the real tests
 

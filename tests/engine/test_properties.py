@@ -10,19 +10,18 @@ from __future__ import annotations
 import math
 import warnings
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
+from bendwise.engine.stats.design import poly_design
+from bendwise.engine.stats.groups import compute_group_stats
+from bendwise.engine.stats.linalg import fit_design
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from scipy import stats as sps
 from statsmodels.stats.anova import anova_lm
-
-import engine
-from engine.stats.design import poly_design
-from engine.stats.groups import compute_group_stats
-from engine.stats.linalg import fit_design
 
 REPEATABLE = settings(
     max_examples=25,

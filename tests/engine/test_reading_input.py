@@ -12,19 +12,18 @@ import subprocess
 import sys
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import engine
-from engine.errors import DataError, UsageError
+from bendwise.engine.errors import DataError, UsageError
 
 REPO = Path(__file__).resolve().parents[2]
 LINE = REPO / "datasets" / "straight_line.csv"
 
 
 def _cli(*args: str, stdin: bytes | None = None, cwd: Path = REPO) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "tui.cli", *args], input=stdin, capture_output=True,
+    return subprocess.run([sys.executable, "-m", "bendwise.tui.cli", *args], input=stdin, capture_output=True,
                           timeout=180, cwd=cwd)
 
 
@@ -107,7 +106,7 @@ def test_repeated_column_names_are_refused_naming_them(tmp_path):
 
 def test_repeated_column_names_are_refused_by_the_sql_engine_too(tmp_path):
     pytest.importorskip("duckdb")
-    from engine.backends.duckdb import make_sql_study
+    from bendwise.engine.backends.duckdb import make_sql_study
 
     path = tmp_path / "dup.csv"
     path.write_text("x,y,y\n" + "".join(f"{i % 4},{i},{2 * i}\n" for i in range(12)), encoding="utf-8")
@@ -157,7 +156,7 @@ def test_quoted_names_holding_separators_do_not_mislead_the_delimiter(tmp_path):
 
 def _both(path: Path, y: str = "y", x: str = "x") -> tuple[str, str]:
     pytest.importorskip("duckdb")
-    from engine.backends.duckdb import make_sql_study
+    from bendwise.engine.backends.duckdb import make_sql_study
 
     def message(build) -> str:
         with pytest.raises(DataError) as info:
@@ -182,7 +181,7 @@ def test_sql_engine_refuses_in_the_memory_engines_words(tmp_path, content):
 @pytest.mark.parametrize("late", [False, True], ids=["at-start", "after-64KiB"])
 def test_sql_engine_reads_latin1_files_as_the_memory_engine_does(tmp_path, late):
     pytest.importorskip("duckdb")
-    from engine.backends.duckdb import make_sql_study
+    from bendwise.engine.backends.duckdb import make_sql_study
 
     rng = np.random.default_rng(5)
     n = 6000 if late else 30

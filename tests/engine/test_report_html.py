@@ -19,10 +19,10 @@ import pytest
 
 pytest.importorskip("matplotlib")
 
-from engine import load_table, make_study  # noqa: E402
-from engine.errors import UsageError  # noqa: E402
-from engine.handon.export import ExportExists, export_node  # noqa: E402
-from engine.tree.tree import RemedyTree  # noqa: E402
+from bendwise.engine import load_table, make_study  # noqa: E402
+from bendwise.engine.errors import UsageError  # noqa: E402
+from bendwise.engine.handon.export import ExportExists, export_node  # noqa: E402
+from bendwise.engine.tree.tree import RemedyTree  # noqa: E402
 
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"
 NOW = datetime(2026, 1, 2, 3, 4, 5, tzinfo=UTC)
@@ -139,7 +139,7 @@ def test_numbers_on_the_page_are_the_specs(exported):
 
 
 def test_answer_quotes_the_published_rates_and_the_search(exported, tree):
-    from engine.tree.suggestion import published_rates
+    from bendwise.engine.tree.suggestion import published_rates
 
     text = " ".join(_parse((exported / "report.html").read_text(encoding="utf-8")).text)
     false = [c for c in published_rates()["cells"] if c["measure"] == "remedy suggested"]
@@ -250,7 +250,7 @@ def test_a_real_browser_draws_every_figure_and_prints_a_few_pages(exported, tmp_
 # ----- the command line -----------------------------------------------------------------
 
 def _cli(argv: list[str], capsys) -> tuple[int, str, str]:
-    from tui.cli import main
+    from bendwise.tui.cli import main
 
     code = main(argv)
     out, err = capsys.readouterr()
@@ -264,10 +264,9 @@ def test_cli_writes_both_by_default_and_md_without_matplotlib(tmp_path, capsys, 
     assert {p.name for p in (tmp_path / "a").iterdir()} == {"spec.json", "reproduce.py", "report.md", "report.html"}
     code, out, _ = _cli(["export", *base, "--report", "md", "-o", str(tmp_path / "b")], capsys)
     assert code == 0 and not (tmp_path / "b" / "report.html").exists() and (tmp_path / "b" / "report.md").exists()
-    import engine.handon.html as html_pkg
-
+    import bendwise.engine.handon.html as html_pkg
     monkeypatch.setattr(html_pkg, "html_available", lambda: False)
-    monkeypatch.setattr("engine.handon.html.page.html_available", lambda: False)
+    monkeypatch.setattr("bendwise.engine.handon.html.page.html_available", lambda: False)
     code, out, _ = _cli(["export", *base, "-o", str(tmp_path / "c")], capsys)
     assert code == 0 and "note: report.html not written" in out
     assert {p.name for p in (tmp_path / "c").iterdir()} == {"spec.json", "reproduce.py", "report.md"}
@@ -280,9 +279,9 @@ def test_engine_and_markdown_export_never_load_matplotlib(tmp_path):
     """Drawing stays out of the engine's computation: only building report.html imports matplotlib."""
     code = f"""
 import sys
-from engine import load_table, make_study
-from engine.tree.tree import RemedyTree
-from engine.handon.export import export_node
+from bendwise.engine import load_table, make_study
+from bendwise.engine.tree.tree import RemedyTree
+from bendwise.engine.handon.export import export_node
 t = RemedyTree(make_study(load_table({str(DATA)!r}), y="signal_mv", x="conc_mg_l"))
 t.grow(1)
 export_node(t, "root", {str(tmp_path / "md")!r}, report="md")

@@ -16,22 +16,21 @@ import math
 import warnings
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
+from bendwise.engine.stats.transforms import IDENTITY, LOG, RECIPROCAL, SQRT, Transform
+from bendwise.engine.tree import scoring
+from bendwise.engine.tree.model_spec import ModelSpec, WeightRule
+from bendwise.engine.tree.powers import box_tidwell
+from bendwise.engine.tree.scoring import score_spec
+from bendwise.engine.tree.tree import grow
 from scipy import stats as sps
 from scipy.optimize import minimize_scalar
 from statsmodels.stats.anova import anova_lm
 from statsmodels.stats.outliers_influence import OLSInfluence
-
-import engine
-from engine.stats.transforms import IDENTITY, LOG, RECIPROCAL, SQRT, Transform
-from engine.tree import scoring
-from engine.tree.model_spec import ModelSpec, WeightRule
-from engine.tree.powers import box_tidwell
-from engine.tree.scoring import score_spec
-from engine.tree.tree import grow
 
 REL = 1e-9
 COEF_REL = 1e-8

@@ -20,28 +20,27 @@ import re
 import warnings
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
-from hypothesis import HealthCheck, Phase, given, seed, settings
-from hypothesis import strategies as st
-
-import engine
-from engine.backends.duckdb import (
+from bendwise.engine.backends.duckdb import (
     SqlStudy,
     aggregate_sql,
     choose_engine,
     make_sql_study,
     transform_sql,
 )
-from engine.errors import BendwiseError
-from engine.stats.transforms import IDENTITY, LOG, RECIPROCAL, SQRT, Transform, power
-from engine.tree.model_spec import ModelSpec, WeightRule
-from engine.tree.scoring import score_spec
-from engine.tree.tree import RemedyTree
-from tui.cli import main
+from bendwise.engine.errors import BendwiseError
+from bendwise.engine.stats.transforms import IDENTITY, LOG, RECIPROCAL, SQRT, Transform, power
+from bendwise.engine.tree.model_spec import ModelSpec, WeightRule
+from bendwise.engine.tree.scoring import score_spec
+from bendwise.engine.tree.tree import RemedyTree
+from bendwise.tui.cli import main
+from hypothesis import HealthCheck, Phase, given, seed, settings
+from hypothesis import strategies as st
 
 duckdb = pytest.importorskip("duckdb")
 
@@ -632,8 +631,7 @@ def test_csv_above_the_memory_cap_goes_through_duckdb(tmp_path, capsys, monkeypa
     assert path.stat().st_size > 1024
     assert choose_engine(str(path), "auto", 1024) == "duckdb"
     assert choose_engine(str(path), "auto", 1 << 30) == "memory"
-    import engine.backends.duckdb as sql_mod
-
+    import bendwise.engine.backends.duckdb as sql_mod
     calls: list[str] = []
     real = sql_mod.make_sql_study
 
@@ -836,7 +834,7 @@ def test_tree_on_a_large_table_matches_memory(tmp_path):
 def test_box_tidwell_on_a_weighted_node_uses_the_weights(tmp_path):
     # the power of x at a node with power-of-mean weights: the SQL study has no weight rows, so
     # the search must receive the per-level weights
-    from engine.tree.powers import box_tidwell
+    from bendwise.engine.tree.powers import box_tidwell
 
     frame = _tree_frame(3000, seed=13)[[Y, X]]
     path = tmp_path / "bt.parquet"
@@ -875,7 +873,7 @@ def _direct_group_moments(groups, t: Transform, covs):
 
 def _series_from_rows(groups, covs, centres, big_m: int, big_k: int):
     """The power sums the one-scan query collects, summed here in numpy (same definitions)."""
-    from engine.stats.power_sums import GroupSeries as _Series
+    from bendwise.engine.stats.power_sums import GroupSeries as _Series
 
     u, nb = len(groups), len(covs[0])
     t_ref = np.array([np.mean(np.concatenate([c[j] for c in covs])) for j in range(nb)])
@@ -915,7 +913,7 @@ def test_series_is_exact_to_its_tolerance_or_declines(data):
     # rows (reference: the direct definitions, numpy). When the series answers, its truncation and
     # rounding stay within the tolerance relative to the group's spread; when it cannot promise
     # that, it declines (and the study scans the transform exactly instead).
-    from engine.stats.power_sums import SERIES_TOL, choose_orders
+    from bendwise.engine.stats.power_sums import SERIES_TOL, choose_orders
 
     sd, m, seed, lam = data
     rng = np.random.default_rng(seed)
@@ -974,7 +972,7 @@ def test_one_scan_path_is_taken_on_clean_data_and_left_on_dirty(tmp_path):
 def test_series_sql_runs_unchanged_on_datafusion(tmp_path):
     # reference: Apache DataFusion as a second engine (pip package `datafusion`, local mode)
     datafusion = pytest.importorskip("datafusion")
-    from engine.backends.duckdb import series_sql
+    from bendwise.engine.backends.duckdb import series_sql
 
     frame = _tree_frame(4000, seed=22)
     path = tmp_path / "s.parquet"
@@ -993,9 +991,8 @@ def test_series_sql_runs_unchanged_on_datafusion(tmp_path):
 
 def test_bartlett_from_groups_matches_scipy():
     # reference: scipy.stats.bartlett on the same groups
+    from bendwise.engine.stats.spread import bartlett_from_groups
     from scipy import stats
-
-    from engine.stats.spread import bartlett_from_groups
 
     rng = np.random.default_rng(4)
     groups = [rng.normal(0, s, k) for s, k in ((1.0, 5), (1.5, 8), (0.7, 3), (2.0, 12))]

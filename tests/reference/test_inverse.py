@@ -11,17 +11,16 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
+from bendwise.engine.handon.export import build_spec
+from bendwise.engine.handon.inverse import fieller_line, inverse_predict
+from bendwise.engine.handon.predict import predict_forward
+from bendwise.engine.handon.specfile import validate_spec
 from scipy import optimize, stats
-
-import engine
-from engine.handon.export import build_spec
-from engine.handon.inverse import fieller_line, inverse_predict
-from engine.handon.predict import predict_forward
-from engine.handon.specfile import validate_spec
 
 DATASETS = Path(__file__).resolve().parents[2] / "datasets"
 

@@ -15,18 +15,17 @@ import math
 import warnings
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
 import statsmodels.formula.api as smf
+from bendwise.engine.checks.lack_of_fit import lack_of_fit
+from bendwise.engine.stats.design import poly_design
+from bendwise.engine.stats.groups import compute_group_stats
+from bendwise.engine.stats.linalg import Column, Design, fit_design
 from statsmodels.stats.anova import anova_lm
-
-import engine
-from engine.checks.lack_of_fit import lack_of_fit
-from engine.stats.design import poly_design
-from engine.stats.groups import compute_group_stats
-from engine.stats.linalg import Column, Design, fit_design
 
 NIST = Path(__file__).resolve().parents[2].parent / "shared" / "reference" / "nist"
 if not NIST.is_dir():

@@ -9,14 +9,13 @@ from __future__ import annotations
 import math
 import warnings
 
+import bendwise.engine as engine
 import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
 from scipy import stats as sps
 from statsmodels.stats.anova import anova_lm
 from statsmodels.stats.diagnostic import linear_reset
-
-import engine
 
 REL = 1e-9
 

@@ -8,8 +8,7 @@ import sys
 from pathlib import Path
 
 import pytest
-
-from tui.cli import main
+from bendwise.tui.cli import main
 
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"
 
@@ -17,8 +16,8 @@ DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.cs
 @pytest.fixture
 def terminal(monkeypatch):
     """As if run in a terminal (pytest captures the standard streams; the app refuses without one)."""
-    monkeypatch.setattr("tui.commands.open.terminal_problem", lambda *a, **k: None)
-    monkeypatch.setattr("tui.commands.demo.terminal_problem", lambda *a, **k: None)
+    monkeypatch.setattr("bendwise.tui.commands.open.terminal_problem", lambda *a, **k: None)
+    monkeypatch.setattr("bendwise.tui.commands.demo.terminal_problem", lambda *a, **k: None)
 
 
 @pytest.mark.parametrize(
@@ -43,8 +42,7 @@ def test_depth_is_checked_by_the_parser(capsys):
 
 
 def test_demo_without_datasets_is_one_clear_line(capsys, monkeypatch, tmp_path, terminal):
-    import tui.screens.data as data
-
+    import bendwise.tui.screens.data as data
     monkeypatch.setattr(data, "datasets_dir", lambda: tmp_path / "datasets")
     assert main(["demo"]) == 2
     err = capsys.readouterr().err
@@ -55,9 +53,9 @@ def test_first_frame_imports_no_heavy_library():
     """The app module, its screens and widgets load without pandas, scipy or statsmodels."""
     code = (
         "import sys\n"
-        "import tui.app, tui.screens.main, tui.screens.start, tui.screens.compare, tui.screens.help\n"
-        "import tui.widgets.detail, tui.widgets.charts, tui.widgets.status, tui.dialogs, tui.exporting\n"
-        "import tui.commands.open, tui.commands.demo\n"
+        "import bendwise.tui.app, tui.screens.main, tui.screens.start, tui.screens.compare, tui.screens.help\n"
+        "import bendwise.tui.widgets.detail, tui.widgets.charts, tui.widgets.status, tui.dialogs, tui.exporting\n"
+        "import bendwise.tui.commands.open, tui.commands.demo\n"
         "heavy = [m for m in ('pandas', 'scipy', 'statsmodels', 'plotext') if m in sys.modules]\n"
         "print(','.join(heavy))\n"
     )
@@ -67,7 +65,7 @@ def test_first_frame_imports_no_heavy_library():
 
 
 def test_make_app_defaults_to_the_demo():
-    from tui.app import make_app
+    from bendwise.tui.app import make_app
 
     app = make_app()
     assert app.request.path.endswith("sensor_calibration.csv")

@@ -7,10 +7,9 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-
-from engine.tree.tree import RemedyTree
-from tui.cli import main
-from tui.screens.data import DataRequest
+from bendwise.engine.tree.tree import RemedyTree
+from bendwise.tui.cli import main
+from bendwise.tui.screens.data import DataRequest
 
 duckdb = pytest.importorskip("duckdb")
 
@@ -29,8 +28,7 @@ def _files(tmp_path):
 
 
 def test_open_builds_the_sql_study_and_launches(tmp_path, monkeypatch, capsys):
-    import tui.commands.open as open_cmd
-
+    import bendwise.tui.commands.open as open_cmd
     folder = _files(tmp_path)
     seen = {}
 
@@ -48,7 +46,7 @@ def test_open_builds_the_sql_study_and_launches(tmp_path, monkeypatch, capsys):
 
 
 def test_open_with_duckdb_needs_the_columns(tmp_path, capsys, monkeypatch):
-    monkeypatch.setattr("tui.commands.open.terminal_problem", lambda *a, **k: None)  # as if in a terminal
+    monkeypatch.setattr("bendwise.tui.commands.open.terminal_problem", lambda *a, **k: None)  # as if in a terminal
     folder = _files(tmp_path)
     assert main(["open", str(folder)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
@@ -56,10 +54,10 @@ def test_open_with_duckdb_needs_the_columns(tmp_path, capsys, monkeypatch):
 
 
 async def test_app_grows_the_engine_tree_over_files(tmp_path):
-    from engine.backends.duckdb import make_sql_study
-    from tui.app import make_app
-    from tui.widgets.detail import NodeDetail
-    from tui.widgets.remedy_tree import RemedyTreeView
+    from bendwise.engine.backends.duckdb import make_sql_study
+    from bendwise.tui.app import make_app
+    from bendwise.tui.widgets.detail import NodeDetail
+    from bendwise.tui.widgets.remedy_tree import RemedyTreeView
 
     folder = _files(tmp_path)
     reference = RemedyTree(make_sql_study(str(folder), y="signal", x="conc", covariates=["temp"]))
@@ -82,10 +80,10 @@ async def test_app_grows_the_engine_tree_over_files(tmp_path):
 
 
 async def test_scans_during_work_go_to_the_status_row(tmp_path):
-    from engine.backends.duckdb import make_sql_study
-    from engine.stats.transforms import Transform
-    from tui.app import make_app
-    from tui.messages import ScoringProgressed
+    from bendwise.engine.backends.duckdb import make_sql_study
+    from bendwise.engine.stats.transforms import Transform
+    from bendwise.tui.app import make_app
+    from bendwise.tui.messages import ScoringProgressed
 
     folder = _files(tmp_path)
     study = make_sql_study(str(folder), y="signal", x="conc", exact=True)
@@ -123,8 +121,7 @@ def test_export_over_files_hands_on_the_same_model(tmp_path, capsys):
     import sys
 
     import jsonschema
-
-    from engine.handon.specfile import schema_path
+    from bendwise.engine.handon.specfile import schema_path
 
     folder = _files(tmp_path)
     out_sql, out_mem = tmp_path / "spec_sql", tmp_path / "spec_mem"
@@ -160,9 +157,9 @@ def test_export_over_files_hands_on_the_same_model(tmp_path, capsys):
 def test_charts_over_files_use_a_seeded_sample(tmp_path):
     # reference: the same rows in memory; with a sample as large as the table every row is drawn,
     # so the level means of the residuals must be the in-memory ones
-    import engine
-    from engine.backends.duckdb import make_sql_study
-    from engine.handon.chart_data import curve_chart, residual_chart
+    import bendwise.engine as engine
+    from bendwise.engine.backends.duckdb import make_sql_study
+    from bendwise.engine.handon.chart_data import curve_chart, residual_chart
 
     folder = _files(tmp_path)
     tree = RemedyTree(make_sql_study(str(folder), y="signal", x="conc"))

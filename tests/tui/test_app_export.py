@@ -8,12 +8,11 @@ import math
 from pathlib import Path
 
 import pytest
-
-from engine import load_table, make_study
-from engine.handon.specfile import schema_path
-from engine.tree.tree import POST_SEARCH_CAUTION, RemedyTree
-from tui.app import make_app
-from tui.exporting import export_node
+from bendwise.engine import load_table, make_study
+from bendwise.engine.handon.specfile import schema_path
+from bendwise.engine.tree.tree import POST_SEARCH_CAUTION, RemedyTree
+from bendwise.tui.app import make_app
+from bendwise.tui.exporting import export_node
 
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"
 ARGS = dict(y="signal_mv", x="conc_mg_l", covariates=("run_day", "temp_c"))
@@ -89,8 +88,8 @@ async def _ready(app, pilot):
 
 
 async def test_export_dialog_writes_then_asks_before_replacing(tree, tmp_path):
-    from tui.dialogs import ConfirmDialog, ExportDialog
-    from tui.widgets.remedy_tree import RemedyTreeView
+    from bendwise.tui.dialogs import ConfirmDialog, ExportDialog
+    from bendwise.tui.widgets.remedy_tree import RemedyTreeView
 
     app = make_app(DATA, **ARGS, export_dir=tmp_path)
     target = tmp_path / "chosen"
@@ -131,7 +130,7 @@ async def test_export_dialog_writes_then_asks_before_replacing(tree, tmp_path):
 
 
 async def test_export_dialog_escape_writes_nothing(tmp_path):
-    from tui.dialogs import ExportDialog
+    from bendwise.tui.dialogs import ExportDialog
 
     app = make_app(DATA, **ARGS, export_dir=tmp_path)
     async with app.run_test(size=(80, 24)) as pilot:
@@ -148,8 +147,8 @@ async def test_export_dialog_escape_writes_nothing(tmp_path):
 async def test_export_dialog_offers_md_html_or_both(tree, tmp_path):
     """The dialog starts at both (matplotlib is in the test extra); ctrl+t switches to html, then md."""
     pytest.importorskip("matplotlib")
-    from tui.dialogs import ExportDialog
-    from tui.widgets.remedy_tree import RemedyTreeView
+    from bendwise.tui.dialogs import ExportDialog
+    from bendwise.tui.widgets.remedy_tree import RemedyTreeView
 
     app = make_app(DATA, **ARGS, export_dir=tmp_path)
     async with app.run_test(size=(100, 24)) as pilot:

@@ -6,9 +6,8 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-
-from engine.tree.tree import RemedyTree
-from tui.app import make_app
+from bendwise.engine.tree.tree import RemedyTree
+from bendwise.tui.app import make_app
 
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"
 ARGS = dict(y="signal_mv", x="conc_mg_l", covariates=("run_day", "temp_c"))
@@ -21,14 +20,14 @@ async def _ready(app, pilot) -> None:
 
 
 def _status(app) -> str:
-    from tui.widgets.status import StatusPanel
+    from bendwise.tui.widgets.status import StatusPanel
 
     panel = app.screen.query_one(StatusPanel)
     return " ".join(str(w.render()) for w in panel.query("Static"))
 
 
 def _detail(app) -> str:
-    from tui.widgets.detail import NodeDetail
+    from bendwise.tui.widgets.detail import NodeDetail
 
     return app.screen.query_one(NodeDetail).text
 
@@ -62,7 +61,7 @@ async def test_expand_failing_is_reported_under_the_node_and_growth_stops(monkey
     async with app.run_test(size=(80, 24)) as pilot:
         await _ready(app, pilot)
         screen = app.screen
-        from tui.widgets.remedy_tree import RemedyTreeView
+        from bendwise.tui.widgets.remedy_tree import RemedyTreeView
 
         view = screen.query_one(RemedyTreeView)
         target = next(nid for nid in screen.board.nodes if nid != "root" and screen.board.nodes[nid].score is not None)

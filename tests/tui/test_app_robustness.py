@@ -9,8 +9,7 @@ import time
 from pathlib import Path
 
 import pytest
-
-from tui.app import make_app
+from bendwise.tui.app import make_app
 
 REPO = Path(__file__).resolve().parents[2]
 DATA = REPO / "datasets" / "sensor_calibration.csv"
@@ -20,7 +19,7 @@ STORM_KEYS = ["enter", "escape", "e", "a", "y", "n", "down", "enter", "escape", 
 
 @pytest.mark.parametrize("seed", [1, 2, 3])
 async def test_a_storm_of_dialog_keys_never_dismisses_a_screen_twice(tmp_path, seed):
-    from tui.screens.main import MainScreen
+    from bendwise.tui.screens.main import MainScreen
 
     rng = random.Random(seed)
     keys = [rng.choice(STORM_KEYS) for _ in range(200)]
@@ -56,7 +55,7 @@ def _key(name: str):
 
 def _cli(args: list[str], stdin, timeout: float = 60.0) -> tuple[subprocess.CompletedProcess, float]:
     start = time.monotonic()
-    done = subprocess.run([sys.executable, "-m", "tui.cli", *args], stdin=stdin, capture_output=True, text=True,
+    done = subprocess.run([sys.executable, "-m", "bendwise.tui.cli", *args], stdin=stdin, capture_output=True, text=True,
                           timeout=timeout, cwd=REPO)
     return done, time.monotonic() - start
 
@@ -82,7 +81,7 @@ def test_the_app_refuses_a_piped_table_when_no_terminal_can_be_opened():
     proc = None
     try:
         start = time.monotonic()
-        proc = subprocess.Popen([sys.executable, "-m", "tui.cli", "open", "-", "-y", "signal_mv", "-x", "conc_mg_l"],
+        proc = subprocess.Popen([sys.executable, "-m", "bendwise.tui.cli", "open", "-", "-y", "signal_mv", "-x", "conc_mg_l"],
                                 stdin=subprocess.PIPE, stdout=slave, stderr=slave, cwd=REPO, start_new_session=True)
         os.close(slave)
         slave = -1

@@ -6,8 +6,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-
-from tui.app import make_app
+from bendwise.tui.app import make_app
 
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"
 ARGS = dict(y="signal_mv", x="conc_mg_l", covariates=("run_day", "temp_c"))
@@ -38,7 +37,7 @@ def _settle(*keys: str, node: str | None = None):
             if (board is not None and board.complete) or getattr(app.screen, "columns", None):
                 break
         if node is not None:
-            from tui.widgets.remedy_tree import RemedyTreeView
+            from bendwise.tui.widgets.remedy_tree import RemedyTreeView
 
             app.screen.query_one(RemedyTreeView).select_id(node)
             await pilot.pause()

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from engine import load_table, make_study
-from engine.tree.tree import RemedyTree
-from tui.app import make_app
+from bendwise.engine import load_table, make_study
+from bendwise.engine.tree.tree import RemedyTree
+from bendwise.tui.app import make_app
 
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"
 
@@ -32,7 +32,7 @@ def _text(widget) -> str:
 
 
 async def test_columns_listed_with_type_distinct_missing_and_replicates():
-    from tui.screens.start import StartScreen
+    from bendwise.tui.screens.start import StartScreen
 
     app = make_app(DATA)
     async with app.run_test(size=(80, 24)) as pilot:
@@ -54,7 +54,7 @@ async def test_columns_listed_with_type_distinct_missing_and_replicates():
 
 
 async def test_choose_columns_by_keys_then_grow():
-    from tui.screens.main import MainScreen
+    from bendwise.tui.screens.main import MainScreen
 
     app = make_app(DATA)
     async with app.run_test(size=(80, 24)) as pilot:
@@ -87,7 +87,7 @@ async def test_choose_columns_by_keys_then_grow():
 
 
 async def test_grow_needs_both_columns_and_engine_refusals_stay_on_screen(tmp_path):
-    from tui.screens.start import StartScreen
+    from bendwise.tui.screens.start import StartScreen
 
     bad = tmp_path / "flat.csv"
     bad.write_text("x,y\n1,5\n2,5\n3,5\n1,5\n", encoding="utf-8")

@@ -9,11 +9,10 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-
-from engine import check, load_table, make_study
-from engine.tree.tree import RemedyTree
-from tui.app import make_app
-from tui.widgets.formatting import fmt_num, fmt_p, num, verdict_word
+from bendwise.engine import check, load_table, make_study
+from bendwise.engine.tree.tree import RemedyTree
+from bendwise.tui.app import make_app
+from bendwise.tui.widgets.formatting import fmt_num, fmt_p, num, verdict_word
 
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"
 ARGS = dict(y="signal_mv", x="conc_mg_l", covariates=("run_day", "temp_c"))
@@ -39,13 +38,13 @@ async def _ready(app, pilot) -> None:
 
 
 def _view(app):
-    from tui.widgets.remedy_tree import RemedyTreeView
+    from bendwise.tui.widgets.remedy_tree import RemedyTreeView
 
     return app.screen.query_one(RemedyTreeView)
 
 
 def _detail(app) -> str:
-    from tui.widgets.detail import NodeDetail
+    from bendwise.tui.widgets.detail import NodeDetail
 
     return app.screen.query_one(NodeDetail).text
 
@@ -82,7 +81,7 @@ async def test_tree_matches_engine_and_walks_by_keys(engine_tree):
         assert board.complete and set(board.nodes) == set(engine_tree.nodes)
         assert view.shown_ids[0] == "root" and view.highlighted_id == "root"
         # the detail pane is narrow at 80 columns: its tables drop MS and the intervals
-        from tui.widgets.detail import NodeDetail
+        from bendwise.tui.widgets.detail import NodeDetail
 
         assert app.screen.query_one(NodeDetail).size.width < 60
         walked = []
@@ -120,7 +119,7 @@ async def test_root_shows_the_check_anova_and_path_shows_nested_tests(engine_tre
 
 
 async def test_suggestion_and_caution_always_visible(engine_tree):
-    from engine.tree.tree import POST_SEARCH_CAUTION
+    from bendwise.engine.tree.tree import POST_SEARCH_CAUTION
 
     app = _app()
     async with app.run_test(size=(80, 24)) as pilot:
@@ -174,7 +173,7 @@ async def test_filter_shows_passing_nodes_and_their_ancestors(engine_tree):
 
 
 async def test_alpha_dialog_changes_verdicts(engine_tree):
-    from tui.dialogs import AlphaDialog
+    from bendwise.tui.dialogs import AlphaDialog
 
     app = _app()
     async with app.run_test(size=(80, 24)) as pilot:
@@ -214,7 +213,7 @@ async def test_rule_cycles_and_follows_engine(engine_tree):
 
 
 async def test_compare_screen_shows_both_nodes_key_numbers(engine_tree):
-    from tui.screens.compare import CompareScreen
+    from bendwise.tui.screens.compare import CompareScreen
 
     app = _app()
     async with app.run_test(size=(80, 24)) as pilot:
@@ -267,8 +266,8 @@ async def test_grow_highlighted_node_best_first(engine_tree):
 
 
 async def test_help_lists_every_binding_and_the_caution():
-    from tui.screens.help import HelpScreen, binding_sections, help_renderable
-    from tui.screens.main import MainScreen
+    from bendwise.tui.screens.help import HelpScreen, binding_sections, help_renderable
+    from bendwise.tui.screens.main import MainScreen
 
     app = _app()
     async with app.run_test(size=(80, 24)) as pilot:
@@ -309,8 +308,7 @@ async def test_keys_answer_while_scoring_and_escape_cancels(monkeypatch, engine_
     import asyncio
     import time
 
-    import engine.tree.tree as rem
-
+    import bendwise.engine.tree.tree as rem
     real = rem.RemedyTree._score
 
     def slow(self, node):

@@ -15,10 +15,9 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
+from bendwise.tui.cli import main
 from statsmodels.stats import diagnostic as dg
 from statsmodels.stats.anova import anova_lm
-
-from tui.cli import main
 
 REL = 1e-9
 

@@ -8,9 +8,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
-from engine.handon.specfile import load_spec
-from tui.cli import main
+from bendwise.engine.handon.specfile import load_spec
+from bendwise.tui.cli import main
 
 DATASETS = Path(__file__).resolve().parents[2] / "datasets"
 SENSOR = str(DATASETS / "sensor_calibration.csv")
@@ -73,7 +72,7 @@ def test_export_writes_three_files_and_lists_them(tmp_path, capsys):
     code, text, err = _run(capsys, "export", LINE, "-y", "response_au", "-x", "dose_ug", "--suggested",
                            "-o", str(out))
     assert code == 0 and err == ""
-    from engine.handon.html import html_available
+    from bendwise.engine.handon.html import html_available
 
     names = ["report.md", "reproduce.py", "spec.json"] + (["report.html"] if html_available() else [])
     assert sorted(p.name for p in out.iterdir()) == sorted(names)  # both reports by default with matplotlib

@@ -6,15 +6,14 @@ import subprocess
 import sys
 from pathlib import Path
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import engine
-from engine.tree.tree import RemedyTree
-from tui.cli import main
-from tui.messages import TreeSummary
-from tui.widgets.detail import render_node
+from bendwise.engine.tree.tree import RemedyTree
+from bendwise.tui.cli import main
+from bendwise.tui.messages import TreeSummary
+from bendwise.tui.widgets.detail import render_node
 
 REPO = Path(__file__).resolve().parents[2]
 LINE = str(REPO / "datasets" / "straight_line.csv")
@@ -42,7 +41,7 @@ def test_numpy_warnings_never_reach_stderr(denormal, tmp_path, command):
     args = [command, str(denormal), "-y", "y", "-x", "x"]
     if command == "export":
         args += ["--node", "root", "-o", str(tmp_path / "exp")]
-    done = subprocess.run([sys.executable, "-m", "tui.cli", *args], capture_output=True, text=True, timeout=180,
+    done = subprocess.run([sys.executable, "-m", "bendwise.tui.cli", *args], capture_output=True, text=True, timeout=180,
                           cwd=REPO)
     assert "Warning" not in done.stderr and "warn" not in done.stderr.lower(), done.stderr
     # stderr holds at most the one-line error

@@ -7,9 +7,8 @@ import math
 
 import numpy as np
 import pytest
-
-from engine.plan.power import design_power, search_designs
-from tui.cli import main
+from bendwise.engine.plan.power import design_power, search_designs
+from bendwise.tui.cli import main
 
 
 def _run(capsys, *argv):

@@ -3,14 +3,13 @@ Bartlett from level variances with the SQL engine."""
 
 from __future__ import annotations
 
+import bendwise.engine as engine
 import numpy as np
 import pandas as pd
 import pytest
-
-import engine
-from engine.tree.tree import RemedyTree
-from tui.messages import TreeSummary
-from tui.widgets.detail import render_node
+from bendwise.engine.tree.tree import RemedyTree
+from bendwise.tui.messages import TreeSummary
+from bendwise.tui.widgets.detail import render_node
 
 
 def _frame() -> pd.DataFrame:
@@ -34,7 +33,7 @@ def test_memory_detail_names_brown_forsythe():
 
 def test_sql_detail_names_bartlett(tmp_path):
     pytest.importorskip("duckdb")
-    from engine.backends.duckdb import make_sql_study
+    from bendwise.engine.backends.duckdb import make_sql_study
 
     path = tmp_path / "d.parquet"
     _frame().to_parquet(path)

@@ -56,12 +56,12 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Load, check, compute, print."""
-    from engine import load_table
-    from engine.errors import UsageError
-    from engine.handon.export import write_rows_csv
-    from engine.handon.inverse import inverse_predict
-    from engine.handon.predict import new_inputs, predict_forward
-    from engine.handon.specfile import load_spec
+    from bendwise.engine import load_table
+    from bendwise.engine.errors import UsageError
+    from bendwise.engine.handon.export import write_rows_csv
+    from bendwise.engine.handon.inverse import inverse_predict
+    from bendwise.engine.handon.predict import new_inputs, predict_forward
+    from bendwise.engine.handon.specfile import load_spec
 
     if args.replicates != 1 and not args.inverse:
         raise UsageError("--replicates applies to --inverse only (it says how many readings each response averages)")

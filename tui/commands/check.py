@@ -24,7 +24,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run the check and print it."""
-    from engine import check
+    from bendwise.engine import check
 
     study = load_study(args)
     result = check(study, alpha=args.alpha)

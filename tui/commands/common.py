@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from engine.cautions import CAUTION
+from bendwise.engine.cautions import CAUTION
 
 __all__ = ["CAUTION", "add_data_args", "alpha_arg", "split_list", "load_study", "table"]
 
@@ -47,7 +47,7 @@ def split_list(text: str | None) -> list[str]:
 
 def parse_size(text: str) -> int:
     """'2G' → bytes; plain numbers are bytes."""
-    from engine.errors import UsageError
+    from bendwise.engine.errors import UsageError
 
     t = str(text).strip().upper().removesuffix("B")
     mult = {"K": 1 << 10, "M": 1 << 20, "G": 1 << 30, "T": 1 << 40}
@@ -63,8 +63,8 @@ def load_study(args: argparse.Namespace, progress=None):
     """Read the table and build the Study from the common options."""
     import sys
 
-    from engine import load_table, make_study
-    from engine.backends.duckdb import choose_engine, make_sql_study
+    from bendwise.engine import load_table, make_study
+    from bendwise.engine.backends.duckdb import choose_engine, make_sql_study
 
     delim = args.delimiter
     if delim in {"\\t", "tab", "TAB"}:

@@ -52,9 +52,9 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Load the spec and the new run, test, print."""
-    from engine import load_table
-    from engine.handon.confirm import confirm
-    from engine.handon.specfile import load_spec
+    from bendwise.engine import load_table
+    from bendwise.engine.handon.confirm import confirm
+    from bendwise.engine.handon.specfile import load_spec
 
     doc, model = load_spec(args.spec)
     delim = "\t" if args.delimiter in {"\\t", "tab", "TAB"} else args.delimiter

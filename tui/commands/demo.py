@@ -24,7 +24,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Check the demo data are present, then run the app."""
-    from engine.errors import DataError, UsageError
+    from bendwise.engine.errors import DataError, UsageError
 
     from ..screens.data import build_study, datasets_dir, demo_request, read_frame
 

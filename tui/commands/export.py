@@ -10,7 +10,7 @@ from .common import CAUTION, add_data_args, alpha_arg
 
 def register(sub: argparse._SubParsersAction) -> None:
     """Add the ``export`` subcommand."""
-    from engine.tree.tree import RULES
+    from bendwise.engine.tree.tree import RULES
 
     p = sub.add_parser(
         "export",
@@ -35,15 +35,15 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Grow, pick the node, export."""
-    from engine.errors import UsageError
-    from engine.handon.export import export_node
-    from engine.read.files import describe_reading
+    from bendwise.engine.errors import UsageError
+    from bendwise.engine.handon.export import export_node
+    from bendwise.engine.read.files import describe_reading
 
     from .grow import build_tree
 
     report = args.report
     if report is None:
-        from engine.handon.html import html_available
+        from bendwise.engine.handon.html import html_available
 
         report = "both" if html_available() else "md"
         if report == "md":

@@ -11,7 +11,7 @@ from .common import CAUTION, add_data_args, alpha_arg, load_study, table
 
 def register(sub: argparse._SubParsersAction) -> None:
     """Add the ``grow`` subcommand."""
-    from engine.tree.tree import RULES
+    from bendwise.engine.tree.tree import RULES
 
     p = sub.add_parser(
         "grow",
@@ -56,8 +56,8 @@ def _seed(text: str) -> int:
 
 def build_tree(args: argparse.Namespace, progress=None):
     """Load, grow and return (study, tree); shared with export."""
-    from engine.errors import UsageError
-    from engine.tree.tree import RemedyTree
+    from bendwise.engine.errors import UsageError
+    from bendwise.engine.tree.tree import RemedyTree
 
     if args.depth < 0 or args.depth > 4:
         raise UsageError(f"depth {args.depth} is out of range; use 0 to 4")
@@ -69,7 +69,7 @@ def build_tree(args: argparse.Namespace, progress=None):
 
 def run(args: argparse.Namespace) -> int:
     """Grow and print."""
-    from engine.tree.tree import POST_SEARCH_CAUTION
+    from bendwise.engine.tree.tree import POST_SEARCH_CAUTION
 
     progress = None
     if not args.quiet and not args.json and sys.stderr.isatty():
@@ -81,7 +81,7 @@ def run(args: argparse.Namespace) -> int:
         sys.stderr.write("\r" + " " * 72 + "\r")
     stab = None
     if args.stability:
-        from engine.tree.stability import selection_stability
+        from bendwise.engine.tree.stability import selection_stability
 
         tick = None
         if not args.quiet and sys.stderr.isatty():
@@ -110,7 +110,7 @@ def run(args: argparse.Namespace) -> int:
 
 def render_stability(stab, tree) -> list[str]:
     """The stability table: the five most frequent winners and a one-line reading."""
-    from engine.tree.stability import shares_table
+    from bendwise.engine.tree.stability import shares_table
 
     out = ["", f"Selection stability · {stab.resamples} resamples, seed {stab.seed}, rule {stab.rule}",
            f"  {stab.scheme}"]
@@ -133,7 +133,7 @@ def verdict_word(tree, node) -> str:
 
 def render(study, tree, rule: str) -> list[str]:
     """Text report: suggestion, ranked table, tree with pruned moves."""
-    from engine.tree.tree import POST_SEARCH_CAUTION
+    from bendwise.engine.tree.tree import POST_SEARCH_CAUTION
 
     sug = tree.suggest(rule)
     y, x = study.y_name, study.x_name

@@ -44,7 +44,7 @@ def _isatty(stream) -> bool:
 
 def keys_from_terminal() -> None:
     """After a table was read from standard input, take the keys from the terminal instead."""
-    from engine.errors import UsageError
+    from bendwise.engine.errors import UsageError
 
     if _isatty(sys.stdin):
         return
@@ -92,7 +92,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Check the data, then run the app."""
-    from engine.errors import UsageError
+    from bendwise.engine.errors import UsageError
 
     from ..screens.data import DataRequest, build_study, read_frame
 
@@ -105,7 +105,7 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError("give both -y and -x, or neither (then choose them on the start screen)")
     if req.covariates and not req.y:
         raise UsageError("--covariates needs -y and -x; without them choose covariates on the start screen")
-    from engine.backends.duckdb import choose_engine
+    from bendwise.engine.backends.duckdb import choose_engine
 
     from .common import load_study, parse_size
 

@@ -10,8 +10,8 @@ import argparse
 import math
 from typing import Any
 
-from engine.errors import UsageError
-from tui.output import emit_json, fmt_num
+from bendwise.engine.errors import UsageError
+from bendwise.tui.output import emit_json, fmt_num
 
 _TEST_LABELS = {
     "lack_of_fit": "lack of fit vs pure error",
@@ -103,7 +103,7 @@ def _count(option: str, text: str) -> int:
 
 def _levels(args: argparse.Namespace) -> tuple[list[float] | None, tuple[float, float] | None]:
     """(fixed levels, None) or (spaced levels or None, (lo, hi))."""
-    from engine.plan.power import spaced_levels
+    from bendwise.engine.plan.power import spaced_levels
 
     span = None
     if args.range is not None:
@@ -136,7 +136,7 @@ def _replicates(args: argparse.Namespace) -> int | list[int] | None:
 
 def _sigma(args: argparse.Namespace) -> dict[str, Any] | None:
     """σ and where it came from, or None when the plan is in σ units only."""
-    from engine.plan.power import sigma_from_pure_error
+    from bendwise.engine.plan.power import sigma_from_pure_error
 
     if args.sigma is not None and args.from_data is not None:
         raise UsageError("--sigma: give it or --from-data, not both")
@@ -155,7 +155,7 @@ def _sigma(args: argparse.Namespace) -> dict[str, Any] | None:
         raise UsageError("--from-data: name the columns with -y COL and -x COL")
     from pathlib import Path
 
-    from engine import load_table, make_study, pure_error
+    from bendwise.engine import load_table, make_study, pure_error
 
     frame = load_table(args.from_data)
     study = make_study(frame, y=args.y, x=args.x, source=Path(args.from_data).name)
@@ -178,7 +178,7 @@ def _sigma(args: argparse.Namespace) -> dict[str, Any] | None:
 
 def run(args: argparse.Namespace) -> int:
     """Compute and print the plan; returns 0."""
-    from engine.plan.power import design_power, search_designs
+    from bendwise.engine.plan.power import design_power, search_designs
 
     levels, span = _levels(args)
     reps = _replicates(args)

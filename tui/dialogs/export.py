@@ -20,7 +20,7 @@ __all__ = ["ExportDialog", "report_choices"]
 
 def report_choices() -> tuple[str, ...]:
     """The reports offered: all three when matplotlib is installed (both first), else Markdown only."""
-    from engine.handon.html import html_available
+    from bendwise.engine.handon.html import html_available
 
     return ("both", "html", "md") if html_available() else ("md",)
 

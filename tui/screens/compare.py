@@ -115,9 +115,8 @@ class CompareScreen(Screen):
                              f" — {_relation(self.board, self.a, self.b)}")
 
     def _body(self):
+        from bendwise.engine.tree.tree import POST_SEARCH_CAUTION
         from rich.console import Group
-
-        from engine.tree.tree import POST_SEARCH_CAUTION
 
         return Group(compare_table(self.board, self.a, self.b), Text(""), Text(POST_SEARCH_CAUTION, style="italic"))
 

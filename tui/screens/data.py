@@ -11,7 +11,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
-    from engine.stats.study import Study
+    from bendwise.engine.stats.study import Study
 
 __all__ = ["DataRequest", "read_frame", "build_study", "demo_request", "datasets_dir"]
 
@@ -51,8 +51,7 @@ class DataRequest:
 
 def datasets_dir() -> Path:
     """The bundled demo data, next to the installed packages."""
-    import tui
-
+    import bendwise.tui as tui
     return Path(tui.__file__).resolve().parent.parent / "datasets"
 
 
@@ -64,7 +63,7 @@ def demo_request() -> DataRequest:
 
 def read_frame(req: DataRequest) -> Any:
     """The table as a DataFrame (``engine.load_table``; raises DataError with one line)."""
-    from engine import load_table
+    from bendwise.engine import load_table
 
     delim = req.delimiter
     if delim in {"\\t", "tab", "TAB"}:
@@ -74,8 +73,8 @@ def read_frame(req: DataRequest) -> Any:
 
 def build_study(req: DataRequest, frame: Any = None) -> Study:
     """Clean the chosen columns into a Study (raises BendwiseError with one line)."""
-    from engine import make_study
-    from engine.errors import UsageError
+    from bendwise.engine import make_study
+    from bendwise.engine.errors import UsageError
 
     if not req.y or not req.x:
         raise UsageError("choose a response and a predictor column")

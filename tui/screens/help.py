@@ -59,8 +59,8 @@ def _keys(app, b: Binding) -> str:
 
 def help_renderable(app) -> RenderableType:
     """Key tables and the About section."""
-    from engine.cautions import CAUTION
-    from engine.tree.tree import POST_SEARCH_CAUTION
+    from bendwise.engine.cautions import CAUTION
+    from bendwise.engine.tree.tree import POST_SEARCH_CAUTION
 
     parts: list[RenderableType] = [Text("Keys", style="bold underline")]
     for title, bindings in binding_sections(app):

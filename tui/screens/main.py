@@ -40,7 +40,7 @@ from .data import DataRequest
 from .work import TreeWork
 
 if TYPE_CHECKING:
-    from engine.stats.study import Study
+    from bendwise.engine.stats.study import Study
 
 __all__ = ["MainScreen", "RULES"]
 
@@ -113,7 +113,7 @@ class MainScreen(ChartPanes, TreeWork, Screen):
 
     # ---- layout ---------------------------------------------------------------------
     def compose(self) -> ComposeResult:
-        from engine.tree.tree import POST_SEARCH_CAUTION
+        from bendwise.engine.tree.tree import POST_SEARCH_CAUTION
 
         yield Static(self._title(), id="title")
         with Horizontal(id="body"):
@@ -497,7 +497,7 @@ class MainScreen(ChartPanes, TreeWork, Screen):
             return
         try:
             req = self.request
-            from engine.read.files import describe_reading
+            from bendwise.engine.read.files import describe_reading
 
             reading = None if req.path == "-" else describe_reading(
                 req.path, delimiter=getattr(req, "delimiter", None), decimal=getattr(req, "decimal", None),

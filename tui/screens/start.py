@@ -66,8 +66,8 @@ class StartScreen(Screen):
     # ---- workers ----------------------------------------------------------------------
     @work(thread=True, exclusive=True, exit_on_error=False, group="start")
     def _describe(self) -> None:
-        from engine.errors import BendwiseError
-        from engine.read.preview import describe_columns, replicate_preview
+        from bendwise.engine.errors import BendwiseError
+        from bendwise.engine.read.preview import describe_columns, replicate_preview
 
         try:
             frame = self.frame if self.frame is not None else read_frame(self.request)
@@ -80,7 +80,7 @@ class StartScreen(Screen):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="start")
     def _build(self, req: DataRequest) -> None:
-        from engine.errors import BendwiseError
+        from bendwise.engine.errors import BendwiseError
 
         try:
             study = build_study(req, self.frame)

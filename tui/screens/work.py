@@ -27,9 +27,8 @@ from ..messages import (
 from .data import DataRequest, build_study
 
 if TYPE_CHECKING:
+    from bendwise.engine.stats.study import Study
     from textual.message import Message
-
-    from engine.stats.study import Study
 
 __all__ = ["TreeWork"]
 
@@ -71,8 +70,8 @@ class TreeWork:
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="tree")
     def _grow(self) -> None:
-        from engine import check
-        from engine.tree.tree import RemedyTree
+        from bendwise.engine import check
+        from bendwise.engine.tree.tree import RemedyTree
 
         worker = get_current_worker()
         with self._lock, self._scans_reported():
@@ -133,7 +132,7 @@ class TreeWork:
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="tree")
     def _rejudge(self, alpha: float, rule: str) -> None:
-        from engine import check
+        from bendwise.engine import check
 
         board = self.board
         assert board is not None
@@ -155,9 +154,8 @@ class TreeWork:
     @work(thread=True, exclusive=True, exit_on_error=False, group="charts")
     def _compute_charts(self, nid: str) -> None:
         import numpy as np
-
-        from engine.errors import BendwiseError
-        from engine.handon.chart_data import curve_chart, residual_chart
+        from bendwise.engine.errors import BendwiseError
+        from bendwise.engine.handon.chart_data import curve_chart, residual_chart
 
         board = self.board
         if board is None or nid not in board.nodes:

@@ -71,7 +71,7 @@ def render_node(board: TreeSummary, nid: str, width: int = 100) -> Text:
 
 
 def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
-    from engine.handon.chart_data import node_anova
+    from bendwise.engine.handon.chart_data import node_anova
 
     tree = board.tree
     node = board.nodes[nid]
@@ -164,7 +164,7 @@ def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
              f"largest |studentized residual| {num(j['max_studentized_residual'], 3)}"]
     spread = j["spread"]
     if spread.get("testable"):
-        from engine.stats.results import test_method  # the test the engine ran
+        from bendwise.engine.stats.results import test_method  # the test the engine ran
 
         lines.append(f"equal spread across levels ({test_method(spread.get('name') or '')}): p = "
                      f"{fmt_p(spread.get('p'))}")
