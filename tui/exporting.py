@@ -1,7 +1,7 @@
 """Export the selected node from the app: the same spec folder ``bendwise export`` writes.
 
 One function, :func:`export_node`, wraps :func:`engine.export.export_node` (spec.json,
-reproduce.py, report.md, written atomically into a new folder) and turns its refusals into the
+reproduce.py, report.md and/or report.html, written atomically into a new folder) and turns its refusals into the
 exceptions the app's dialogs understand. No Textual imports: tests call it directly.
 """
 
@@ -22,13 +22,15 @@ def default_export_name(node_id: str) -> str:
 
 
 def export_node(tree: RemedyTree, node_id: str, path: str | Path, force: bool = False, *,
-                data_path: str | Path | None = None, reading: dict[str, Any] | None = None) -> Path:
+                data_path: str | Path | None = None, reading: dict[str, Any] | None = None,
+                report: str = "md") -> Path:
     """Write the node's spec folder at ``path`` and return it (resolved).
 
     Raises ``FileExistsError`` when ``path`` exists and ``force`` is false (the app then asks for
     confirmation; with ``force`` only an earlier export folder is replaced), ``FileNotFoundError``
     when the parent folder does not exist, ``KeyError`` for an unknown node and ``ValueError``
     when the engine refuses the node (e.g. collinear terms), with its one-line reason.
+    ``report`` is 'md', 'html' or 'both' (which report files the folder gets).
     """
     from bendwise.engine.errors import BendwiseError
     from bendwise.engine.handon.export import ExportExists
@@ -46,7 +48,7 @@ def export_node(tree: RemedyTree, node_id: str, path: str | Path, force: bool = 
         reading = describe_reading(data_path)
     try:
         write_export(tree, node_id, target, data_path=None if str(data_path) == "-" else data_path,
-                     reading=reading, force=force)
+                     reading=reading, force=force, report=report)
     except ExportExists as exc:
         raise FileExistsError(str(exc)) from None
     except BendwiseError as exc:

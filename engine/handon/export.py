@@ -1,9 +1,9 @@
-"""Hand a model on: a versioned JSON spec, a reproduction script and a Markdown report.
+"""Hand a model on: a versioned JSON spec, a reproduction script and a Markdown and/or HTML report.
 
 ``export_node`` is the one entry point (the command line and the app both call it). It writes
-``spec.json``, ``reproduce.py`` and ``report.md`` into a temporary folder next to the target and
-renames it into place, so a reader never sees half an export; an existing folder is replaced
-only with ``force`` and only when it holds nothing but an earlier export's three files (a folder
+``spec.json``, ``reproduce.py`` and ``report.md`` (and/or ``report.html``) into a temporary folder
+next to the target and renames it into place, so a reader never sees half an export; an existing folder is replaced
+only with ``force`` and only when it holds nothing but an earlier export's files (a folder
 or a link in place of one of them is refused). Temporary folders are removed on every way out,
 an interrupt included.
 """
@@ -37,13 +37,18 @@ __all__ = [
     "EXPORT_FILES",
     "ExportExists",
     "MAX_RESIDUALS",
+    "REPORT_CHOICES",
     "build_spec",
     "export_node",
     "write_rows_csv",
     "write_text_atomic",
 ]
 
-EXPORT_FILES = ("spec.json", "reproduce.py", "report.md")
+EXPORT_FILES = ("spec.json", "reproduce.py", "report.md", "report.html")
+"""Every file an export may write (``--force`` replaces a folder holding nothing else)."""
+
+REPORT_CHOICES = ("md", "html", "both")
+"""Which reports an export writes: Markdown, the self-contained HTML page (needs matplotlib), or both."""
 
 
 class ExportExists(UsageError):
@@ -341,7 +346,7 @@ def _flatten(v) -> list:
 
 def _check_replaceable(out_dir: Path) -> Path:
     """The folder ``--force`` may write into (a link to a folder is followed), after checking it
-    holds nothing but an earlier export: the three files, each a plain file."""
+    holds nothing but an earlier export: its files, each a plain file."""
     if not out_dir.exists():  # a link to nothing
         raise UsageError(f"{out_dir} is a link to {os.readlink(out_dir)}, which does not exist; choose another folder")
     if not out_dir.is_dir():
@@ -415,8 +420,11 @@ def _remove_earlier_export(folder: Path) -> None:
 def export_node(tree: RemedyTree, node_id: str, out_dir: str | Path, *, data_path: str | Path | None = None,
                 reading: dict[str, Any] | None = None, rule: str = "aicc", force: bool = False,
                 max_residuals: int = MAX_RESIDUALS, now: datetime | None = None,
-                stability: Stability | None = None) -> list[Path]:
-    """Write ``spec.json``, ``reproduce.py`` and ``report.md`` for one node into ``out_dir``.
+                stability: Stability | None = None, report: str = "md") -> list[Path]:
+    """Write ``spec.json``, ``reproduce.py`` and the report(s) for one node into ``out_dir``.
+
+    ``report`` is 'md' (report.md), 'html' (report.html: one self-contained page with figures,
+    needs matplotlib) or 'both'.
 
     ``stability`` (from ``selection_stability`` on the same tree) adds the selection shares to the
     spec (key ``stability``) and a table to the report.
@@ -431,6 +439,13 @@ def export_node(tree: RemedyTree, node_id: str, out_dir: str | Path, *, data_pat
     from .report import report_markdown
     from .reproduce import script_text
 
+    if report not in REPORT_CHOICES:
+        raise UsageError(f"report {report!r} must be one of {', '.join(REPORT_CHOICES)}")
+    if report != "md":
+        from .html import html_available
+
+        if not html_available():
+            raise UsageError("the HTML report needs matplotlib: pip install 'bendwise[report]', or use --report md")
     out = Path(out_dir)
     if data_path is not None:
         data_files(data_path)  # the file, or a folder's or glob's files, must be there (one-line error)
@@ -448,6 +463,11 @@ def export_node(tree: RemedyTree, node_id: str, out_dir: str | Path, *, data_pat
     files = {
         "spec.json": json.dumps(doc, indent=2, ensure_ascii=False, allow_nan=False) + "\n",
         "reproduce.py": script_text(tree, node_id, doc, rel),
-        "report.md": report_markdown(tree, node_id, doc),
     }
+    if report in ("md", "both"):
+        files["report.md"] = report_markdown(tree, node_id, doc)
+    if report in ("html", "both"):
+        from .html import report_html
+
+        files["report.html"] = report_html(tree, node_id, doc)
     return _write_folder(out, files, force)

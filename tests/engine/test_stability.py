@@ -152,7 +152,8 @@ def test_export_with_stability_carries_the_shares_to_spec_and_report(tmp_path):
     repo = Path(__file__).resolve().parents[2]
     out = subprocess.run([sys.executable, "-m", "bendwise.tui.cli", "export", str(repo / "datasets" / "straight_line.csv"),
                           "-y", "response_au", "-x", "dose_ug", "--suggested", "--depth", "1", "--stability", "20",
-                          "--seed", "3", "-o", str(tmp_path / "m")], capture_output=True, text=True, cwd=repo,
+                          "--seed", "3", "--report", "both", "-o", str(tmp_path / "m")], capture_output=True,
+                         text=True, cwd=repo,
                          timeout=600)
     assert out.returncode == 0, out.stderr
     doc = json.loads((tmp_path / "m" / "spec.json").read_text(encoding="utf-8"))
@@ -162,3 +163,5 @@ def test_export_with_stability_carries_the_shares_to_spec_and_report(tmp_path):
     report = (tmp_path / "m" / "report.md").read_text(encoding="utf-8")
     assert "## How often this choice recurs" in report
     assert f"picked in {100 * stab['exported_node_share']:.1f} %" in report
+    page = (tmp_path / "m" / "report.html").read_text(encoding="utf-8")
+    assert f"picked this node in {100 * stab['exported_node_share']:.1f} % of 20 resamples" in page

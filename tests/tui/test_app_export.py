@@ -142,3 +142,32 @@ async def test_export_dialog_escape_writes_nothing(tmp_path):
         await pilot.pause()
         assert not isinstance(app.screen, ExportDialog)
     assert list(tmp_path.iterdir()) == []
+
+
+async def test_export_dialog_offers_md_html_or_both(tree, tmp_path):
+    """The dialog starts at both (matplotlib is in the test extra); ctrl+t switches to html, then md."""
+    pytest.importorskip("matplotlib")
+    from bendwise.tui.dialogs import ExportDialog
+    from bendwise.tui.widgets.remedy_tree import RemedyTreeView
+
+    app = make_app(DATA, **ARGS, export_dir=tmp_path)
+    async with app.run_test(size=(100, 24)) as pilot:
+        await _ready(app, pilot)
+        for target, presses, expected in (
+            (tmp_path / "both", 0, {"spec.json", "reproduce.py", "report.md", "report.html"}),
+            (tmp_path / "html", 1, {"spec.json", "reproduce.py", "report.html"}),
+            (tmp_path / "md", 2, {"spec.json", "reproduce.py", "report.md"}),
+        ):
+            assert app.screen.query_one(RemedyTreeView).select_id("n6")
+            await pilot.pause()
+            await pilot.press("e")
+            await pilot.pause()
+            assert isinstance(app.screen, ExportDialog)
+            for _ in range(presses):
+                await pilot.press("ctrl+t")
+            await pilot.pause()
+            shown = str(app.screen.query_one("#export-report").render())
+            assert ("report.html" in shown) == (expected >= {"report.html"})
+            await pilot.press("ctrl+u", *str(target), "enter")
+            await pilot.pause()
+            assert {p.name for p in target.iterdir()} == expected

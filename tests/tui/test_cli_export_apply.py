@@ -72,8 +72,11 @@ def test_export_writes_three_files_and_lists_them(tmp_path, capsys):
     code, text, err = _run(capsys, "export", LINE, "-y", "response_au", "-x", "dose_ug", "--suggested",
                            "-o", str(out))
     assert code == 0 and err == ""
-    assert sorted(p.name for p in out.iterdir()) == ["report.md", "reproduce.py", "spec.json"]
-    for name in ("spec.json", "reproduce.py", "report.md"):
+    from bendwise.engine.handon.html import html_available
+
+    names = ["report.md", "reproduce.py", "spec.json"] + (["report.html"] if html_available() else [])
+    assert sorted(p.name for p in out.iterdir()) == sorted(names)  # both reports by default with matplotlib
+    for name in names:
         assert f"wrote {out / name}" in text
     assert "node root" in text and "Caution" in text
     doc = json.loads((out / "spec.json").read_text())

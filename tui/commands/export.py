@@ -17,7 +17,7 @@ def register(sub: argparse._SubParsersAction) -> None:
         "export",
         help="hand a model on: spec, reproduction script and report",
         description="Grow the tree as bendwise grow does, then write DIR/spec.json (the model as data), "
-        "DIR/reproduce.py (refits it with statsmodels) and DIR/report.md for one node.",
+        "DIR/reproduce.py (refits it with statsmodels) and DIR/report.md and/or DIR/report.html for one node.",
     )
     add_data_args(p, covariates=True)
     which = p.add_mutually_exclusive_group(required=True)
@@ -27,6 +27,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--force", action="store_true", help="replace DIR when it holds an earlier export")
     p.add_argument("--depth", type=int, default=2, help="moves from the straight line (default 2)")
     p.add_argument("--rule", choices=RULES, default="aicc", help="suggestion rule (default aicc)")
+    p.add_argument("--report", choices=("md", "html", "both"), default=None,
+                   help="report.md, report.html (one self-contained page with figures; needs matplotlib) or "
+                        "both (default: both when matplotlib is installed, else md)")
     p.add_argument("--alpha", type=alpha_arg, default=0.05, help="level for lack of fit (default 0.05)")
     from .grow import add_stability_args
 
@@ -42,6 +45,13 @@ def run(args: argparse.Namespace) -> int:
 
     from .grow import build_tree, compute_stability
 
+    report = args.report
+    if report is None:
+        from bendwise.engine.handon.html import html_available
+
+        report = "both" if html_available() else "md"
+        if report == "md":
+            print("note: report.html not written (matplotlib missing: pip install 'bendwise[report]')")
     study, tree = build_tree(args)
     if args.suggested:
         sug = tree.suggest(args.rule)
@@ -54,7 +64,7 @@ def run(args: argparse.Namespace) -> int:
     reading = describe_reading(data_path, delimiter=args.delimiter, decimal=args.decimal, sheet=args.sheet)
     stab = compute_stability(args, tree)
     written = export_node(tree, node_id, Path(args.out), data_path=data_path, reading=reading,
-                          rule=args.rule, force=args.force, stability=stab)
+                          rule=args.rule, force=args.force, stability=stab, report=report)
     label = tree.nodes[node_id].spec.label(study.y_name, study.x_name)
     notice = category_notice(study, tree.nodes[node_id].spec)
     if notice:

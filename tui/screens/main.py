@@ -496,13 +496,13 @@ class MainScreen(Screen):
         default = str(Path(self.app.export_dir) / default_export_name(nid))  # type: ignore[attr-defined]
         label = board.nodes[nid].spec.label("y", "x")
 
-        def chosen(path: str | None) -> None:
-            if path is not None:
-                self._write_export(nid, path, force=False)
+        def chosen(answer: tuple[str, str] | None) -> None:
+            if answer is not None:
+                self._write_export(nid, answer[0], force=False, report=answer[1])
 
         self.app.push_screen(ExportDialog(nid, label, default), chosen)
 
-    def _write_export(self, nid: str, path: str, force: bool) -> None:
+    def _write_export(self, nid: str, path: str, force: bool, report: str = "md") -> None:
         from ..dialogs import ConfirmDialog
         from ..exporting import export_node
 
@@ -518,11 +518,12 @@ class MainScreen(Screen):
             reading = None if req.path == "-" else describe_reading(
                 req.path, delimiter=getattr(req, "delimiter", None), decimal=getattr(req, "decimal", None),
                 sheet=getattr(req, "sheet", None))
-            written = export_node(board.tree, nid, path, force=force, data_path=req.path, reading=reading)
+            written = export_node(board.tree, nid, path, force=force, data_path=req.path, reading=reading,
+                                  report=report)
         except FileExistsError:
             def answer(yes: bool | None) -> None:
                 if yes:
-                    self._write_export(nid, path, force=True)
+                    self._write_export(nid, path, force=True, report=report)
                 else:
                     self.say(f"not exported, kept as it was: {path}")
 
