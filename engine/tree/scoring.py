@@ -326,7 +326,7 @@ def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = 
         sx = study.group_stats(fr.z, ("z", spec.response.key()), weights=fr.w, weights_key=fr.wkey,
                                level_weights=fr.w_level)
         lof_pure = lack_of_fit(sx, fit, approximate=fr.approximate)
-        lof_shape = LackOfFit(lof_pure.testable, lof_pure.reason, "shape in x (pure error)", lof_pure.ss_lack,
+        lof_shape = LackOfFit(lof_pure.testable, lof_pure.reason, "shape in x (x as a factor)", lof_pure.ss_lack,
                               lof_pure.ss_pure, lof_pure.df_lack, lof_pure.df_pure, lof_pure.f, lof_pure.p,
                               lof_pure.approximate)
     else:

@@ -533,3 +533,10 @@ def test_large_table_shortcut_states_what_it_skips(sensor, monkeypatch):
     study = engine.make_study(sensor, y=Y, x=X, covariates=["temp_c"])
     score = score_spec(study, ModelSpec(covariates=("temp_c",)))
     assert score.press is None and "skipped" in score.press_note
+
+
+def test_the_shape_test_has_one_name_with_or_without_covariates(sensor_tree):
+    """The node against itself with x as a factor: one wording whether or not covariates enter
+    (without them it is the classical pure-error comparison)."""
+    kinds = {n.score.lack_of_fit.kind for n in sensor_tree.nodes.values() if n.score is not None}
+    assert kinds == {"shape in x (x as a factor)"}
