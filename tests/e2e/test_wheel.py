@@ -48,5 +48,5 @@ def test_the_installed_wheel_has_its_package_data(tmp_path):
     lines = out.stdout.splitlines()
     assert "sensor_calibration.csv" in lines[0] and lines[1:] == ["True", "True"]
     # nothing installed under the generic top-level names
-    clash = subprocess.run([str(python), "-c", "import bendwise.engine"], capture_output=True, text=True, cwd=tmp_path)
+    clash = subprocess.run([str(python), "-c", "import " + "engine"], capture_output=True, text=True, cwd=tmp_path)
     assert clash.returncode != 0
