@@ -17,6 +17,8 @@ from pathlib import Path
 
 import pytest
 
+pytestmark = pytest.mark.slow  # the real entry point in a pseudo-terminal
+
 pexpect = pytest.importorskip("pexpect")
 pyte = pytest.importorskip("pyte")
 

@@ -254,6 +254,7 @@ def script_exports(sensor_tree, tmp_path_factory):
     return out
 
 
+@pytest.mark.slow  # each case runs the generated script in a new interpreter
 @pytest.mark.parametrize("kind", sorted(KINDS))
 def test_reproduction_script_refits_the_model(script_exports, kind):
     folder = script_exports[kind]
@@ -265,6 +266,7 @@ def test_reproduction_script_refits_the_model(script_exports, kind):
     assert "import bendwise" not in body and "from bendwise" not in body and "tui" not in body
 
 
+@pytest.mark.slow
 def test_reproduction_script_catches_an_altered_spec(script_exports, tmp_path):
     folder = tmp_path / "altered"
     shutil.copytree(script_exports["Box–Cox with a category"], folder)
@@ -277,6 +279,7 @@ def test_reproduction_script_catches_an_altered_spec(script_exports, tmp_path):
     assert "MISMATCH" in done.stderr and "NO" in done.stdout
 
 
+@pytest.mark.slow
 def test_reproduction_script_warns_on_other_data_and_needs_the_file(script_exports, tmp_path):
     folder = script_exports["weighted quadratic"]
     copy_ = tmp_path / "copy.csv"

@@ -25,6 +25,8 @@ import pytest
 from bendwise.engine.handon.export import export_node
 from bendwise.engine.handon.specfile import schema_path, validate_spec
 
+pytestmark = pytest.mark.slow  # each case runs a generated script in a new interpreter
+
 MARK = "pwned_by_name"  # every name that tries to run something would create a file of this name
 HOSTILE = [
     f'y"""; __import__("os").system("touch {MARK}1"); """',

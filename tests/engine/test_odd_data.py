@@ -103,6 +103,7 @@ def _through_everything(study, tmp: Path) -> None:
         _one_line(exc)
 
 
+@pytest.mark.slow
 @FUZZ
 @given(frame=odd_frames())
 def test_memory_engine_never_raises_anything_but_one_line(frame, tmp_path_factory):
@@ -115,6 +116,7 @@ def test_memory_engine_never_raises_anything_but_one_line(frame, tmp_path_factor
         _one_line(exc)
 
 
+@pytest.mark.slow
 @FUZZ_SQL
 @given(frame=odd_frames())
 def test_duckdb_engine_never_raises_anything_but_one_line(frame, tmp_path_factory):

@@ -75,6 +75,7 @@ def test_utf16_on_standard_input_is_refused_in_one_line(encoding):
     assert "UTF-16" in err and "UTF-8" in err and "Traceback" not in err
 
 
+@pytest.mark.slow
 def test_apply_reads_new_data_from_standard_input_in_latin1(tmp_path):
     out = tmp_path / "exp"
     assert _cli("export", str(LINE), "-y", "response_au", "-x", "dose_ug", "--node", "root", "-o",
@@ -124,6 +125,7 @@ def test_broken_json_lines_name_the_line(tmp_path):
         engine.load_table(path)
 
 
+@pytest.mark.slow
 def test_json_array_of_objects_is_read_and_reproduced(tmp_path):
     rows = [{"dose": float(x), "signal": 1.0 + 2.0 * x + e} for x, e in
             zip(np.repeat([0, 1, 2, 3], 3), np.tile([-0.1, 0.0, 0.1], 4), strict=True)]

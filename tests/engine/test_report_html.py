@@ -17,6 +17,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
+pytestmark = pytest.mark.slow  # a real browser renders the page
+
 pytest.importorskip("matplotlib")
 
 from bendwise.engine import load_table, make_study  # noqa: E402

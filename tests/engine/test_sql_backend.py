@@ -361,6 +361,7 @@ def _same_everything(mem, sql, specs=SPECS) -> None:
 # ----------------------------------------------------------------------------- same statistics
 
 
+@pytest.mark.slow
 @hyp(10)
 @given(data=replicated())
 def test_csv_and_parquet_give_the_memory_statistics(tmp_path, data):
@@ -803,6 +804,7 @@ def _same_tree_fits(tm: RemedyTree, ts: RemedyTree) -> int:
     return common
 
 
+@pytest.mark.slow
 def test_tree_on_a_large_table_matches_memory(tmp_path):
     # n > EXACT_PROFILE_LIMIT: both backends profile Box–Cox λ over the same grid (spline), so the
     # trees must contain the same specs

@@ -55,6 +55,7 @@ def test_rows_fitted_exactly_leave_nothing_to_resample():
         _generator(engine.make_study(frame, y="y", x="x"))
 
 
+@pytest.mark.slow
 def test_shares_sum_to_one_and_a_seed_repeats_them():
     rng = np.random.default_rng(5)
     tree = _tree(pd.DataFrame({"x": X6, "y": 10 + 2 * X6 + rng.normal(0, 1, X6.size)}))
@@ -111,6 +112,7 @@ def test_form_key_matches_powers_read_afresh():
     assert form_key(w1) == form_key(w2) != form_key(engine.ModelSpec())
 
 
+@pytest.mark.slow
 def test_grow_reports_stability_in_json_and_text(tmp_path, capsys):
     rng = np.random.default_rng(9)
     path = tmp_path / "q.csv"
@@ -143,6 +145,7 @@ def test_sql_study_resamples_a_sample_of_its_rows(tmp_path):
     assert abs(sum(stab.shares.values()) - 1) < 1e-12
 
 
+@pytest.mark.slow
 def test_export_with_stability_carries_the_shares_to_spec_and_report(tmp_path):
     """export --stability N: the spec holds the shares, the report their table; spec and report agree."""
     import json

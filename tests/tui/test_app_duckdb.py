@@ -11,6 +11,8 @@ from bendwise.engine.tree.tree import RemedyTree
 from bendwise.tui.cli import main
 from bendwise.tui.reading import DataRequest
 
+pytestmark = pytest.mark.slow  # app walks under Pilot: run 'python -m pytest tests/tui' when you touch the app
+
 duckdb = pytest.importorskip("duckdb")
 
 

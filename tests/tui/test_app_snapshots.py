@@ -8,6 +8,8 @@ from pathlib import Path
 import pytest
 from bendwise.tui.app import make_app
 
+pytestmark = pytest.mark.slow  # app walks under Pilot: run 'python -m pytest tests/tui' when you touch the app
+
 DATA = Path(__file__).resolve().parents[2] / "datasets" / "sensor_calibration.csv"
 ARGS = dict(y="signal_mv", x="conc_mg_l", covariates=("run_day", "temp_c"))
 SIZES = [(80, 24), (120, 40)]
