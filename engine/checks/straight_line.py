@@ -209,10 +209,38 @@ def check(study: Study, *, alpha: float = 0.05) -> CheckResult:
         raise UsageError(f"alpha {alpha!r} must lie strictly between 0 and 1, e.g. 0.05")
     stats, fit1, fit2, lof = _line_and_quadratic(study)
     n, c = study.n, study.c
-    p = fit1.rank
+    z, _ = study.transformed(_identity())
+    return CheckResult(
+        source=study.source,
+        y_name=study.y_name,
+        x_name=study.x_name,
+        n=n,
+        n_dropped=study.report.n_dropped,
+        cleaning=tuple(study.report.lines()),
+        levels=c,
+        replicated_levels=int((stats.count > 1).sum()),
+        tolerance=study.tolerance_text,
+        grouped_approximately=study.approximate_groups,
+        weights=study.weights_name,
+        alpha=alpha,
+        fit=fit1,
+        anova=_anova_rows(fit1, lof, n),
+        lack_of_fit=lof,
+        level_rows=_level_rows(study, stats, fit1),
+        mandel=_mandel(fit1, fit2, n, c),
+        spread=study.spread_by_level(z, (_identity().key(), None), None),
+        replicate_free=_replicate_free_checks(study),
+        criteria=criteria_from(fit1.loglik, fit1.rank + 1, n),
+        verdict=_verdict(lof, alpha, study),
+        lack_found=None if not lof.testable else bool(lof.p < alpha),  # type: ignore[operator]
+    )
+
+
+def _anova_rows(fit1: Fit, lof: LackOfFit, n: int) -> tuple[AnovaRow, ...]:
+    """The split of the total sum of squares: model, residual, (lack of fit, pure error), total."""
     ss_tot = fit1.ss_total
     ss_model = max(ss_tot - fit1.sse, 0.0)
-    df_model = p - 1
+    df_model = fit1.rank - 1
     ms_resid = fit1.sse / fit1.df_resid if fit1.df_resid > 0 else None
     f_model = (ss_model / df_model) / ms_resid if ms_resid and df_model > 0 else None
     rows = [
@@ -226,7 +254,11 @@ def check(study: Study, *, alpha: float = 0.05) -> CheckResult:
         rows.append(AnovaRow("lack of fit", lof.df_lack, lof.ss_lack, ms_lack, lof.f, lof.p))  # type: ignore[arg-type]
         rows.append(AnovaRow("pure error", lof.df_pure, lof.ss_pure, ms_pure, None, None))  # type: ignore[arg-type]
     rows.append(AnovaRow("total", n - 1, ss_tot, None, None, None))
+    return tuple(rows)
 
+
+def _level_rows(study: Study, stats: GroupStats, fit1: Fit) -> tuple[LevelRow, ...]:
+    """One row per level: x, count, mean, SD (replicated levels), fitted value and residual."""
     centre_x, scale_x = (study.x_min + study.x_max) / 2, (study.x_max - study.x_min) / 2
     counts = stats.count
     sd = np.sqrt(np.where(counts > 1, stats.ss / np.maximum(counts - 1, 1), np.nan))
@@ -235,50 +267,20 @@ def check(study: Study, *, alpha: float = 0.05) -> CheckResult:
         xbar = stats.base_mean[:, 0] * scale_x + centre_x
     else:
         xbar = study.x_level_values
-    level_rows = tuple(
+    return tuple(
         LevelRow(study.x_level_labels[g], float(xbar[g]), int(counts[g]), float(stats.mean[g]),
                  None if counts[g] < 2 else float(sd[g]), float(fitted[g]), float(stats.mean[g] - fitted[g]))
         for g in range(stats.c)
     )
-    replicated = int((counts > 1).sum())
-    mandel = _mandel(fit1, fit2, n, c)
-    z, _ = study.transformed(_identity())
-    spread = study.spread_by_level(z, (_identity().key(), None), None)
-    exact_replicates = study.exact_replicates()
-    in_memory = isinstance(study.rows(), Rows)
-    if not exact_replicates and n >= 6 and in_memory:
-        free = replicate_free(study)
-    elif not exact_replicates and not in_memory:
-        free = (SideTest("replicate-free checks", False, reason="need the rows in memory; use --engine memory"),)
-    else:
-        free = ()
-    crit = criteria_from(fit1.loglik, p + 1, n)
-    lack_found = None if not lof.testable else bool(lof.p < alpha)  # type: ignore[operator]
-    verdict = _verdict(lof, alpha, study)
-    return CheckResult(
-        source=study.source,
-        y_name=study.y_name,
-        x_name=study.x_name,
-        n=n,
-        n_dropped=study.report.n_dropped,
-        cleaning=tuple(study.report.lines()),
-        levels=c,
-        replicated_levels=replicated,
-        tolerance=study.tolerance_text,
-        grouped_approximately=study.approximate_groups,
-        weights=study.weights_name,
-        alpha=alpha,
-        fit=fit1,
-        anova=tuple(rows),
-        lack_of_fit=lof,
-        level_rows=level_rows,
-        mandel=mandel,
-        spread=spread,
-        replicate_free=free,
-        criteria=crit,
-        verdict=verdict,
-        lack_found=lack_found,
-    )
+
+
+def _replicate_free_checks(study: Study) -> tuple[SideTest, ...]:
+    """Checks that need no replicates, when some levels are not replicated exactly (rows in memory)."""
+    if study.exact_replicates():
+        return ()
+    if not isinstance(study.rows(), Rows):
+        return (SideTest("replicate-free checks", False, reason="need the rows in memory; use --engine memory"),)
+    return replicate_free(study) if study.n >= 6 else ()
 
 
 def _identity():
