@@ -132,12 +132,13 @@ def solve_tridiagonal(sub: np.ndarray, diag: np.ndarray, sup: np.ndarray, b: np.
 
 
 def golden_max(f, a: float, b: float, tol: float = 1e-9) -> float:
-    """Maximiser of a unimodal ``f`` on [a, b] by golden-section search."""
+    """Maximiser of a unimodal ``f`` on [a, b] by golden-section search (NaN-safe: the left part
+    is kept unless the right probe is clearly better)."""
     g = (math.sqrt(5.0) - 1.0) / 2.0
     c, d = b - g * (b - a), a + g * (b - a)
     fc, fd = f(c), f(d)
     while b - a > tol:
-        if fc >= fd:
+        if not (fc < fd):
             b, d, fd = d, c, fc
             c = b - g * (b - a)
             fc = f(c)

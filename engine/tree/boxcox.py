@@ -12,7 +12,7 @@ from ..errors import UsageError
 from ..stats.boxcox_grid import EXACT_PROFILE_LIMIT, GRID_STEP, _bc, grid_group_stats
 from ..stats.groups import GroupStats, compute_group_stats
 from ..stats.linalg import Design, design_rss, rounding_floor
-from ..stats.numerics import CubicSpline, brentq
+from ..stats.numerics import CubicSpline, brentq, golden_max
 from ..stats.transforms import CONVENTIONAL_LAMBDAS
 
 __all__ = ["BoxCoxProfile", "profile_boxcox", "HALF_CHI2_95"]
@@ -173,19 +173,7 @@ def _maximise(ll: Callable[[float], float], grid: np.ndarray, vals: np.ndarray) 
     """Refine the best grid point by golden-section search between its neighbours."""
     i = int(np.argmax(vals))
     a, b = float(grid[max(i - 1, 0)]), float(grid[min(i + 1, grid.size - 1)])
-    g = (math.sqrt(5.0) - 1.0) / 2.0
-    c, d = b - g * (b - a), a + g * (b - a)
-    fc, fd = ll(c), ll(d)
-    while b - a > 1e-8:
-        if not (fc < fd):  # NaN-safe: keep the left part unless d is clearly better
-            b, d, fd = d, c, fc
-            c = b - g * (b - a)
-            fc = ll(c)
-        else:
-            a, c, fc = c, d, fd
-            d = a + g * (b - a)
-            fd = ll(d)
-    lam = 0.5 * (a + b)
+    lam = golden_max(ll, a, b, tol=1e-8)
     top = ll(lam)
     if not math.isfinite(top) or vals[i] > top:
         return float(grid[i]), float(vals[i])
