@@ -30,18 +30,23 @@ import numpy as np
 
 from ..errors import DataError, UsageError
 from ..read.cleaning import CleaningReport, DropCount
-from ..read.columns import NA_TEXT, resolve_column
+from ..read.columns import NA_TEXT
 from ..read.files import data_files
+from ..read.usable import (
+    choose_columns,
+    require_categories,
+    require_covariate_varies,
+    require_rows,
+    require_spread,
+)
 from ..stats.groups import GroupStats, drop_rounding, normalised_boxcox_stats
 from ..stats.power_sums import GRID_TOL, SERIES_TOL, GroupSeries, choose_orders, series_helps
 from ..stats.results import SideTest
 from ..stats.rows import SAMPLE_SEED, NoRows, Rows
 from ..stats.spread import bartlett_from_groups
 from ..stats.study import (
-    MAX_CATEGORIES,
     Covariate,
     Study,
-    check_magnitude,
     cluster_sorted,
     level_labels,
     parse_tolerance,
@@ -597,19 +602,8 @@ def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tol
 
         _refuse_duplicate_names(path, [n.strip() for n in names])
     types = {str(r[0]): str(r[1]).upper() for r in desc}
-    frame = SimpleNamespace(columns=names)
-    y_col = resolve_column(frame, y, "response column")  # type: ignore[arg-type]
-    x_col = resolve_column(frame, x, "predictor column")  # type: ignore[arg-type]
-    if y_col == x_col:
-        raise UsageError(f"response and predictor are the same column {y_col!r}; choose two columns")
-    cov_cols: list[str] = []
-    for name in covariates:
-        col = resolve_column(frame, name, "covariate column")  # type: ignore[arg-type]
-        if col in (y_col, x_col):
-            raise UsageError(f"covariate {col!r} is already the response or predictor; drop it from --covariates")
-        if col in cov_cols:
-            raise UsageError(f"covariate {col!r} is listed twice in --covariates")
-        cov_cols.append(col)
+    cols = choose_columns(SimpleNamespace(columns=names), y=y, x=x, covariates=covariates)
+    y_col, x_col, cov_cols = cols.y, cols.x, list(cols.covariates)
     # inside the SQL every covariate has a name of ours: a column called "y", "n" or "bw_c" can
     # then never meet the query's own names
     sql_name = {c: f"bw_k{i}" for i, c in enumerate(cov_cols)}
@@ -679,36 +673,20 @@ def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tol
     n, n_read, drops = facts["n"], facts["n_read"], facts["drops"]
     if n_read == 0:
         raise DataError(f"{path} has no data rows; check the file")
-    if n < 3:
-        raise DataError(f"only {n} usable row(s) after cleaning (need at least 3); "
-                        + ("; ".join(d.describe() for d in drops) if drops else "add data"))
+    require_rows(n, drops)
     ymin, ymax = facts["y_min"], facts["y_max"]
     unit_x = np.asarray(facts["units"]["x"], dtype=float)
     unit_n = np.asarray(facts["units"]["n"], dtype=float)
     x_values = np.unique(unit_x)
     xmin, xmax = float(x_values[0]), float(x_values[-1])
-    if xmin == xmax:
-        raise DataError(f"predictor {x_col!r} has one distinct value ({xmin:g}); a line needs at least 2 settings "
-                        "(3 or more to test its shape)")
-    if ymin == ymax:
-        raise DataError(f"response {y_col!r} is constant (all {ymin:g}); there is nothing to fit")
-    check_magnitude(ymin, ymax, y_col, "response")
-    check_magnitude(xmin, xmax, x_col, "predictor")
+    require_spread(cols, (xmin, xmax), (ymin, ymax))
     for c in num_cols:
-        value = facts["num_constant"][c]
-        if value is not None:
-            raise DataError(f"covariate {c!r} has one value ({value:g}) in the rows used; it "
-                            "cannot explain anything: drop it from --covariates")
+        require_covariate_varies(c, facts["num_constant"][c])
     covs: list[Covariate] = []
     for c in cat_cols:
         vals = np.asarray(facts["units"][sql_name[c]]).astype(str)
         lv = tuple(str(v) for v in np.unique(vals))
-        if len(lv) < 2:
-            raise DataError(f"covariate {c!r} has one category ({lv[0]!r}) in the rows used; it cannot explain "
-                            "anything: drop it from --covariates")
-        if len(lv) > MAX_CATEGORIES:
-            raise DataError(f"covariate {c!r} has {len(lv)} categories (at most {MAX_CATEGORIES}); is it an "
-                            "identifier? Drop it or merge categories")
+        require_categories(c, lv)
         codes = np.searchsorted(np.asarray(lv), vals)
         covs.append(Covariate(c, "categorical", codes.astype(np.intp), lv))
     for c in num_cols:

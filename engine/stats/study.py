@@ -11,7 +11,17 @@ import numpy as np
 
 from ..errors import DataError, UsageError
 from ..read.cleaning import CleaningReport, DropCount
-from ..read.columns import first_rows, numeric_column, resolve_column
+from ..read.columns import first_rows, numeric_column
+from ..read.usable import (
+    MAGNITUDE_LIMIT,
+    MAX_CATEGORIES,
+    check_magnitude,
+    choose_columns,
+    require_categories,
+    require_covariate_varies,
+    require_rows,
+    require_spread,
+)
 from .groups import GroupStats, compute_base_parts, compute_group_stats
 from .rows import SAMPLE_SEED, NoRows, Rows
 
@@ -20,24 +30,6 @@ if TYPE_CHECKING:
 
 __all__ = ["Study", "Covariate", "make_study", "parse_tolerance", "check_magnitude", "MAX_CATEGORIES",
            "MAGNITUDE_LIMIT"]
-
-MAX_CATEGORIES = 30
-MAGNITUDE_LIMIT = 1e100
-"""Values whose size exceeds this (or whose largest size is below its inverse) are refused: sums
-of squares of such values overflow or underflow double precision."""
-
-
-def check_magnitude(lo: float, hi: float, column: str, role: str) -> None:
-    """Refuse a column whose values are too large or too small in size for exact sums of squares."""
-    big = max(abs(float(lo)), abs(float(hi)))
-    if big > MAGNITUDE_LIMIT or 0 < big < 1 / MAGNITUDE_LIMIT:
-        size = "as large as" if big > 1 else "no larger than"
-        raise DataError(
-            f"{role} column {column!r} has values {size} {big:.3g} in size; bendwise needs sizes between "
-            f"{1 / MAGNITUDE_LIMIT:g} and {MAGNITUDE_LIMIT:g} so that its sums of squares stay exact: "
-            "rescale the column (e.g. change its units) and run again"
-        )
-
 
 @dataclass(frozen=True, slots=True, eq=False)
 class Covariate:
@@ -469,76 +461,103 @@ def make_study(
     """Pick and clean the columns of one analysis; every dropped row is counted with a reason.
 
     Raises :class:`DataError`/:class:`UsageError` with one line naming the column, row or
-    value and what to do.
+    value and what to do (the rules are shared with the SQL engines: ``read/usable.py``).
     """
-    import pandas as pd
-
     tol, rel = parse_tolerance(tolerance)
-    y_col = resolve_column(frame, y, "response column")
-    x_col = resolve_column(frame, x, "predictor column")
-    if y_col == x_col:
-        raise UsageError(f"response and predictor are the same column {y_col!r}; choose two columns")
-    cov_cols: list[str] = []
-    for name in covariates:
-        col = resolve_column(frame, name, "covariate column")
-        if col in (y_col, x_col):
-            raise UsageError(f"covariate {col!r} is already the response or predictor; drop it from --covariates")
-        if col in cov_cols:
-            raise UsageError(f"covariate {col!r} is listed twice in --covariates")
-        cov_cols.append(col)
-    w_col = resolve_column(frame, weights, "weights column") if weights else None
+    cols = choose_columns(frame, y=y, x=x, covariates=covariates, weights=weights)
+    clean = _Cleaning(frame)
+    y_arr = clean.numeric(cols.y, "response")
+    x_arr = clean.numeric(cols.x, "predictor")
+    cov_raw = [clean.covariate(col) for col in cols.covariates]
+    w_arr = None if cols.weights is None else clean.weights(cols.weights)
+    keep = clean.keep
+    require_rows(int(keep.sum()), clean.drops)
+    all_kept = bool(keep.all())
+    yv = y_arr if all_kept else y_arr[keep]
+    xv = x_arr if all_kept else x_arr[keep]
+    require_spread(cols, (float(xv.min()), float(xv.max())), (float(yv.min()), float(yv.max())))
+    if w_arr is not None:
+        wk = w_arr[keep]
+        check_magnitude(wk.min(), wk.max(), cols.weights, "weights")  # type: ignore[arg-type]
+    covs = [_admit_covariate(col, kind, raw, keep) for col, kind, raw in cov_raw]
+    if tol is not None and rel:
+        tol = tol * float(np.ptp(xv))
+    report = CleaningReport(source or "<table>", clean.n_read, int(keep.sum()), tuple(clean.drops))
+    return Study(
+        source=source or "<table>",
+        report=report,
+        y_name=cols.y,
+        x_name=cols.x,
+        y=yv,
+        x=xv,
+        covariates=tuple(covs),
+        weights=None if w_arr is None else w_arr[keep],
+        weights_name=cols.weights,
+        tolerance=tol,
+        tolerance_text=None if tolerance is None else str(tolerance),
+    )
 
-    n_read = int(frame.shape[0])
-    keep = np.ones(n_read, dtype=bool)
-    drops: list[DropCount] = []
 
-    def account(column: str, reason: str, mask: np.ndarray) -> None:
-        new = mask & keep
+class _Cleaning:
+    """Rows kept so far and the counted reasons for the others, column by column in order."""
+
+    def __init__(self, frame: pd.DataFrame) -> None:
+        self.frame = frame
+        self.n_read = int(frame.shape[0])
+        self.keep = np.ones(self.n_read, dtype=bool)
+        self.drops: list[DropCount] = []
+
+    def account(self, column: str, reason: str, mask: np.ndarray) -> None:
+        """Drop the rows of ``mask`` still kept, counted under ``reason``."""
+        new = mask & self.keep
         if new.any():
-            drops.append(DropCount(column, reason, int(new.sum()), first_rows(new)))
-            keep[new] = False
+            self.drops.append(DropCount(column, reason, int(new.sum()), first_rows(new)))
+            self.keep[new] = False
 
-    def numeric(col: str, role: str) -> np.ndarray:
-        arr, missing, non_num, non_fin = numeric_column(frame[col], col)
+    def numeric(self, col: str, role: str) -> np.ndarray:
+        """The column as floats; missing, non-numeric and non-finite cells drop their rows."""
+        arr, missing, non_num, non_fin = numeric_column(self.frame[col], col)
         usable = ~(missing | non_num | non_fin)
         if not usable.any():
             if non_num.any():
                 bad_row = int(np.flatnonzero(non_num)[0])
                 raise DataError(
-                    f"{role} column {col!r} is not numeric (e.g. {str(frame[col].iloc[bad_row])!r} in row "
+                    f"{role} column {col!r} is not numeric (e.g. {str(self.frame[col].iloc[bad_row])!r} in row "
                     f"{bad_row + 1}); choose a numeric column"
                 )
-            raise DataError(f"{role} column {col!r} has no usable values (all {n_read} rows missing); check the column")
-        account(col, "missing", missing)
-        account(col, "non-numeric", non_num)
-        account(col, "non-finite", non_fin)
+            raise DataError(f"{role} column {col!r} has no usable values (all {self.n_read} rows missing); "
+                            "check the column")
+        self.account(col, "missing", missing)
+        self.account(col, "non-numeric", non_num)
+        self.account(col, "non-finite", non_fin)
         return arr
 
-    y_arr = numeric(y_col, "response")
-    x_arr = numeric(x_col, "predictor")
-    cov_raw: list[tuple[str, str, Any]] = []
-    for col in cov_cols:
-        series = frame[col]
+    def covariate(self, col: str) -> tuple[str, str, Any]:
+        """(column, kind, values): numeric values, or raw codes and cleaned labels of a category."""
+        import pandas as pd
+
+        series = self.frame[col]
         if _is_numeric_like(series):
-            cov_raw.append((col, "numeric", numeric(col, "covariate")))
-        else:
-            # factorise first, then clean only the distinct labels (cheap on long tables)
-            raw_codes, raw_uniques = pd.factorize(series, use_na_sentinel=True)
-            labels = np.array([str(u).strip() for u in raw_uniques] + [""], dtype=object)
-            raw_codes = np.where(raw_codes < 0, len(labels) - 1, raw_codes)
-            missing = (labels == "")[raw_codes]
-            account(col, "missing", missing)
-            cov_raw.append((col, "categorical", (raw_codes, labels)))
-    w_arr = None
-    if w_col is not None:
-        w_all, w_missing, w_non_num, w_non_fin = numeric_column(frame[w_col], w_col)
+            return col, "numeric", self.numeric(col, "covariate")
+        # factorise first, then clean only the distinct labels (cheap on long tables)
+        raw_codes, raw_uniques = pd.factorize(series, use_na_sentinel=True)
+        labels = np.array([str(u).strip() for u in raw_uniques] + [""], dtype=object)
+        raw_codes = np.where(raw_codes < 0, len(labels) - 1, raw_codes)
+        self.account(col, "missing", (labels == "")[raw_codes])
+        return col, "categorical", (raw_codes, labels)
+
+    def weights(self, w_col: str) -> np.ndarray:
+        """Positive finite weights on every kept row, else one line naming the rows."""
+        from ..read.columns import bad_values_text
+
+        w_all, w_missing, w_non_num, w_non_fin = numeric_column(self.frame[w_col], w_col)
+        keep = self.keep
         bad = (w_missing | w_non_num | w_non_fin) & keep
         if bad.any():
-            from ..read.columns import bad_values_text
             rows = ", ".join(str(r) for r in first_rows(bad))
             raise DataError(
-                f"weights column {w_col!r} has {bad_values_text(w_missing & keep, w_non_num & keep, w_non_fin & keep)} (rows {rows}); "
-                "fill them or remove those rows"
+                f"weights column {w_col!r} has {bad_values_text(w_missing & keep, w_non_num & keep, w_non_fin & keep)} "
+                f"(rows {rows}); fill them or remove those rows"
             )
         nonpos = (w_all <= 0) & keep
         if nonpos.any():
@@ -547,72 +566,21 @@ def make_study(
                 f"weights must be > 0; column {w_col!r} has {int(nonpos.sum())} value(s) ≤ 0 (rows {rows}); "
                 "fix or remove those rows"
             )
-        w_arr = w_all
+        return w_all
 
-    n_used = int(keep.sum())
-    if n_used < 3:
-        raise DataError(
-            f"only {n_used} usable row(s) after cleaning (need at least 3); "
-            + ("; ".join(d.describe() for d in drops) if drops else "add data")
-        )
-    all_kept = bool(keep.all())
-    yv = y_arr if all_kept else y_arr[keep]
-    xv = x_arr if all_kept else x_arr[keep]
-    if np.ptp(xv) == 0:
-        raise DataError(
-            f"predictor {x_col!r} has one distinct value ({xv[0]:g}); a line needs at least 2 settings "
-            "(3 or more to test its shape)"
-        )
-    if np.ptp(yv) == 0:
-        raise DataError(f"response {y_col!r} is constant (all {yv[0]:g}); there is nothing to fit")
-    check_magnitude(yv.min(), yv.max(), y_col, "response")
-    check_magnitude(xv.min(), xv.max(), x_col, "predictor")
-    if w_arr is not None:
-        wk = w_arr[keep]
-        check_magnitude(wk.min(), wk.max(), w_col, "weights")  # type: ignore[arg-type]
-    covs: list[Covariate] = []
-    for col, kind, raw in cov_raw:
-        if kind == "numeric":
-            vals = np.asarray(raw)[keep]
-            check_magnitude(vals.min(), vals.max(), col, "covariate")
-            if np.ptp(vals) == 0:
-                raise DataError(
-                    f"covariate {col!r} has one value ({vals[0]:g}) in the rows used; it cannot explain "
-                    "anything: drop it from --covariates"
-                )
-            covs.append(Covariate(col, "numeric", vals))
-        else:
-            raw_codes, labels = raw
-            kept = raw_codes if bool(keep.all()) else raw_codes[keep]
-            used = np.unique(kept)
-            uniq = np.array(sorted(set(labels[used])), dtype=object)
-            remap = np.zeros(len(labels), dtype=np.intp)
-            remap[used] = np.searchsorted(uniq, labels[used])
-            codes = remap[kept]
-            if len(uniq) < 2:
-                raise DataError(
-                    f"covariate {col!r} has one category ({str(uniq[0])!r}) in the rows used; it cannot explain "
-                    "anything: drop it from --covariates"
-                )
-            if len(uniq) > MAX_CATEGORIES:
-                raise DataError(
-                    f"covariate {col!r} has {len(uniq)} categories (at most {MAX_CATEGORIES}); is it an "
-                    "identifier? Drop it or merge categories"
-                )
-            covs.append(Covariate(col, "categorical", codes.astype(np.intp), tuple(str(u) for u in uniq)))
-    if tol is not None and rel:
-        tol = tol * float(np.ptp(xv))
-    report = CleaningReport(source or "<table>", n_read, n_used, tuple(drops))
-    return Study(
-        source=source or "<table>",
-        report=report,
-        y_name=y_col,
-        x_name=x_col,
-        y=yv,
-        x=xv,
-        covariates=tuple(covs),
-        weights=None if w_arr is None else w_arr[keep],
-        weights_name=w_col,
-        tolerance=tol,
-        tolerance_text=None if tolerance is None else str(tolerance),
-    )
+
+def _admit_covariate(col: str, kind: str, raw: Any, keep: np.ndarray) -> Covariate:
+    """The covariate on the kept rows: numeric values, or categories coded 0..k−1 in sorted order."""
+    if kind == "numeric":
+        vals = np.asarray(raw)[keep]
+        check_magnitude(vals.min(), vals.max(), col, "covariate")
+        require_covariate_varies(col, float(vals[0]) if np.ptp(vals) == 0 else None)
+        return Covariate(col, "numeric", vals)
+    raw_codes, labels = raw
+    kept = raw_codes if bool(keep.all()) else raw_codes[keep]
+    used = np.unique(kept)
+    uniq = np.array(sorted(set(labels[used])), dtype=object)
+    remap = np.zeros(len(labels), dtype=np.intp)
+    remap[used] = np.searchsorted(uniq, labels[used])
+    require_categories(col, tuple(str(u) for u in uniq))
+    return Covariate(col, "categorical", remap[kept].astype(np.intp), tuple(str(u) for u in uniq))
