@@ -22,6 +22,7 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from types import SimpleNamespace
 from typing import Any
@@ -33,6 +34,7 @@ from ..read.cleaning import CleaningReport, DropCount
 from ..read.columns import NA_TEXT
 from ..read.files import data_files
 from ..read.usable import (
+    ChosenColumns,
     choose_columns,
     require_categories,
     require_covariate_varies,
@@ -583,85 +585,25 @@ def make_sql_study(
 def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tolerance: str | float | None,
                     decimal: str, delimiter: str | None, encoding: str | None, source: str,
                     progress: ProgressFn | None, memory_limit: str | None, exact: bool) -> SqlStudy:
-    import duckdb
-
-    dec = decimal
     tol, rel = parse_tolerance(tolerance)
-    src, as_text = _source_sql(path, dec, delimiter, encoding)
-    con = duckdb.connect()
-    try:  # Parquet min/max omit NaN; without this DuckDB may fold isnan() to false (duckdb#25521)
-        con.execute("SET parquet_can_have_nan = true")
-    except duckdb.Error:
-        pass  # versions without the setting never assume a NaN-free column
-    if memory_limit:
-        con.execute(f"SET memory_limit = {lit(memory_limit)}")
-    desc = con.execute(f"DESCRIBE SELECT * FROM {src}").fetchall()
-    names = [str(r[0]) for r in desc]
-    if not as_text:
-        from ..read.tables import _refuse_duplicate_names
-
-        _refuse_duplicate_names(path, [n.strip() for n in names])
-    types = {str(r[0]): str(r[1]).upper() for r in desc}
-    cols = choose_columns(SimpleNamespace(columns=names), y=y, x=x, covariates=covariates)
-    y_col, x_col, cov_cols = cols.y, cols.x, list(cols.covariates)
+    src, as_text = _source_sql(path, decimal, delimiter, encoding)
+    con = _connect(memory_limit)
+    table = _SqlTable.describe(con, src, path, as_text, decimal)
+    cols = choose_columns(SimpleNamespace(columns=table.names), y=y, x=x, covariates=covariates)
+    cov_cols = list(cols.covariates)
+    kinds = {c: table.kind(c) for c in cov_cols}
+    cat_cols = [c for c in cov_cols if kinds[c] == "categorical"]
+    num_cols = [c for c in cov_cols if kinds[c] == "numeric"]
     # inside the SQL every covariate has a name of ours: a column called "y", "n" or "bw_c" can
     # then never meet the query's own names
     sql_name = {c: f"bw_k{i}" for i, c in enumerate(cov_cols)}
-    na_list = ", ".join(lit(s) for s in _NA_TEXT)
-    numeric_types = ("DOUBLE", "FLOAT", "INTEGER", "BIGINT", "SMALLINT", "TINYINT", "DECIMAL", "HUGEINT",
-                     "UBIGINT", "UINTEGER", "USMALLINT", "UTINYINT", "REAL")
-
-    def is_typed_numeric(col: str) -> bool:
-        return types[col].startswith(numeric_types)
-
-    def num_expr(col: str) -> tuple[str, str, str, str]:
-        """(value, missing, non-numeric, non-finite) SQL for a numeric column."""
-        c = q(col)
-        if is_typed_numeric(col):
-            v = f"CAST({c} AS DOUBLE)"
-            return v, f"({c} IS NULL OR isnan({v}))", "FALSE", f"isinf({v})"
-        text = f"trim(CAST({c} AS VARCHAR))"
-        body = f"replace({text}, ',', '.')" if dec == "," else text
-        v = f"TRY_CAST({body} AS DOUBLE)"
-        missing = f"({c} IS NULL OR {text} IN ({na_list}))"
-        return v, missing, f"(NOT {missing} AND {v} IS NULL)", f"(NOT {missing} AND (isinf({v}) OR isnan({v})))"
-
-    # kinds of covariates: numeric when every present value parses as a number
-    kinds: dict[str, str] = {}
-    for col in cov_cols:
-        if is_typed_numeric(col):
-            kinds[col] = "numeric"
-            continue
-        v, missing, non_num, _ = num_expr(col)
-        bad, present = _one(con.execute(
-            f"SELECT COUNT(*) FILTER (WHERE {non_num}), COUNT(*) FILTER (WHERE NOT {missing}) FROM {src}"
-        ))
-        kinds[col] = "numeric" if (bad == 0 and present > 0) else "categorical"
-
-    # first problem of each row, in the same order as the in-memory cleaning
-    checks: list[tuple[str, str, str]] = []
-    for col in (y_col, x_col):
-        _, miss, non_num, non_fin = num_expr(col)
-        checks += [(col, "missing", miss), (col, "non-numeric", non_num), (col, "non-finite", non_fin)]
-    for col in cov_cols:
-        if kinds[col] == "numeric":
-            _, miss, non_num, non_fin = num_expr(col)
-            checks += [(col, "missing", miss), (col, "non-numeric", non_num), (col, "non-finite", non_fin)]
-        else:
-            c = q(col)
-            checks.append((col, "missing", f"({c} IS NULL OR trim(CAST({c} AS VARCHAR)) IN ({na_list if as_text else lit('')}))"))
+    checks = table.row_checks(cols, kinds)
     case = "CASE " + " ".join(f"WHEN {cond} THEN {i}" for i, (_, _, cond) in enumerate(checks)) + " ELSE -1 END"
-    cols_sql = [f"{num_expr(y_col)[0]} AS y", f"{num_expr(x_col)[0]} AS x"]
-    cat_cols = [c for c in cov_cols if kinds[c] == "categorical"]
-    num_cols = [c for c in cov_cols if kinds[c] == "numeric"]
-    for c in cat_cols:
-        cols_sql.append(f"trim(CAST({q(c)} AS VARCHAR)) AS {q(sql_name[c])}")
-    for c in num_cols:
-        cols_sql.append(f"{num_expr(c)[0]} AS {q(sql_name[c])}")
+    select = table.select_list(cols, cat_cols, num_cols, sql_name)
+    con.execute(f"CREATE TEMP VIEW bw_clean AS SELECT {select} FROM {src} WHERE {case} = -1")
+    con.execute(f"CREATE TEMP VIEW bw_all AS SELECT {select} FROM {src}")
     cat_sql = [sql_name[c] for c in cat_cols]
     num_sql = [sql_name[c] for c in num_cols]
-    con.execute(f"CREATE TEMP VIEW bw_clean AS SELECT {', '.join(cols_sql)} FROM {src} WHERE {case} = -1")
-    con.execute(f"CREATE TEMP VIEW bw_all AS SELECT {', '.join(cols_sql)} FROM {src}")
     cat_missing = set(_NA_TEXT) if as_text else {""}
     facts = None if exact else _series_setup(con, cat_sql, num_sql, cat_missing, progress)
     if facts is None:
@@ -674,24 +616,14 @@ def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tol
     if n_read == 0:
         raise DataError(f"{path} has no data rows; check the file")
     require_rows(n, drops)
-    ymin, ymax = facts["y_min"], facts["y_max"]
     unit_x = np.asarray(facts["units"]["x"], dtype=float)
     unit_n = np.asarray(facts["units"]["n"], dtype=float)
     x_values = np.unique(unit_x)
     xmin, xmax = float(x_values[0]), float(x_values[-1])
-    require_spread(cols, (xmin, xmax), (ymin, ymax))
+    require_spread(cols, (xmin, xmax), (facts["y_min"], facts["y_max"]))
     for c in num_cols:
         require_covariate_varies(c, facts["num_constant"][c])
-    covs: list[Covariate] = []
-    for c in cat_cols:
-        vals = np.asarray(facts["units"][sql_name[c]]).astype(str)
-        lv = tuple(str(v) for v in np.unique(vals))
-        require_categories(c, lv)
-        codes = np.searchsorted(np.asarray(lv), vals)
-        covs.append(Covariate(c, "categorical", codes.astype(np.intp), lv))
-    for c in num_cols:
-        covs.append(Covariate(c, "numeric", np.empty(0)))
-    covs_sorted = tuple(sorted(covs, key=lambda cv: cov_cols.index(cv.name)))
+    covs = _sql_covariates(facts, cov_cols, cat_cols, num_cols, sql_name)
     if tol is not None and rel:
         tol = tol * (xmax - xmin)
     info = {
@@ -705,7 +637,7 @@ def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tol
         "x_values": x_values, "unit_x": unit_x, "unit_n": unit_n,
         "cat_cols": cat_cols, "num_cols": num_cols, "cat_sql": cat_sql, "num_sql": num_sql, "sql_name": sql_name,
         "series": facts.get("series"),
-        "y_min": ymin, "y_max": ymax,
+        "y_min": facts["y_min"], "y_max": facts["y_max"],
     }
     study = SqlStudy(
         con,
@@ -713,25 +645,140 @@ def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tol
         _info=info,
         source=source or Path(path).name,
         report=CleaningReport(source or Path(path).name, n_read, n, drops),
-        y_name=y_col,
-        x_name=x_col,
+        y_name=cols.y,
+        x_name=cols.x,
         y=np.empty(0),
         x=np.empty(0),
-        covariates=covs_sorted,
+        covariates=covs,
         weights=None,
         weights_name=None,
         tolerance=tol,
         tolerance_text=None if tolerance is None else str(tolerance),
     )
-    # x value → level code, for scans that group by level (spread test)
+    _level_views(con, study, info)
+    study.prefetch()
+    return study
+
+
+def _connect(memory_limit: str | None) -> Any:
+    """A DuckDB connection that never assumes Parquet columns free of NaN, with the memory cap."""
+    import duckdb
+
+    con = duckdb.connect()
+    try:  # Parquet min/max omit NaN; without this DuckDB may fold isnan() to false (duckdb#25521)
+        con.execute("SET parquet_can_have_nan = true")
+    except duckdb.Error:
+        pass  # versions without the setting never assume a NaN-free column
+    if memory_limit:
+        con.execute(f"SET memory_limit = {lit(memory_limit)}")
+    return con
+
+
+_NUMERIC_TYPES = ("DOUBLE", "FLOAT", "INTEGER", "BIGINT", "SMALLINT", "TINYINT", "DECIMAL", "HUGEINT",
+                  "UBIGINT", "UINTEGER", "USMALLINT", "UTINYINT", "REAL")
+
+
+@dataclass
+class _SqlTable:
+    """The source's columns and types, and the SQL that reads each column as the memory engine does."""
+
+    con: Any
+    src: str
+    names: list[str]
+    types: dict[str, str]
+    as_text: bool
+    decimal: str
+
+    @classmethod
+    def describe(cls, con: Any, src: str, path: str, as_text: bool, decimal: str) -> _SqlTable:
+        """Column names and types of ``src``; typed files with repeated names are refused."""
+        desc = con.execute(f"DESCRIBE SELECT * FROM {src}").fetchall()
+        names = [str(r[0]) for r in desc]
+        if not as_text:
+            from ..read.tables import _refuse_duplicate_names
+
+            _refuse_duplicate_names(path, [n.strip() for n in names])
+        return cls(con, src, names, {str(r[0]): str(r[1]).upper() for r in desc}, as_text, decimal)
+
+    def typed_numeric(self, col: str) -> bool:
+        """True for a column the file itself types as a number."""
+        return self.types[col].startswith(_NUMERIC_TYPES)
+
+    def num_expr(self, col: str) -> tuple[str, str, str, str]:
+        """(value, missing, non-numeric, non-finite) SQL for a numeric column."""
+        c = q(col)
+        if self.typed_numeric(col):
+            v = f"CAST({c} AS DOUBLE)"
+            return v, f"({c} IS NULL OR isnan({v}))", "FALSE", f"isinf({v})"
+        text = f"trim(CAST({c} AS VARCHAR))"
+        body = f"replace({text}, ',', '.')" if self.decimal == "," else text
+        v = f"TRY_CAST({body} AS DOUBLE)"
+        missing = f"({c} IS NULL OR {text} IN ({_na_list()}))"
+        return v, missing, f"(NOT {missing} AND {v} IS NULL)", f"(NOT {missing} AND (isinf({v}) OR isnan({v})))"
+
+    def kind(self, col: str) -> str:
+        """'numeric' when every present value of the covariate parses as a number, else 'categorical'."""
+        if self.typed_numeric(col):
+            return "numeric"
+        _, missing, non_num, _ = self.num_expr(col)
+        bad, present = _one(self.con.execute(
+            f"SELECT COUNT(*) FILTER (WHERE {non_num}), COUNT(*) FILTER (WHERE NOT {missing}) FROM {self.src}"
+        ))
+        return "numeric" if (bad == 0 and present > 0) else "categorical"
+
+    def row_checks(self, cols: ChosenColumns, kinds: dict[str, str]) -> list[tuple[str, str, str]]:
+        """(column, reason, condition) in the order of the in-memory cleaning: a row's first problem."""
+        checks: list[tuple[str, str, str]] = []
+        for col in (cols.y, cols.x, *cols.covariates):
+            if col in kinds and kinds[col] == "categorical":
+                c = q(col)
+                missing_text = _na_list() if self.as_text else lit("")
+                checks.append((col, "missing", f"({c} IS NULL OR trim(CAST({c} AS VARCHAR)) IN ({missing_text}))"))
+            else:
+                _, miss, non_num, non_fin = self.num_expr(col)
+                checks += [(col, "missing", miss), (col, "non-numeric", non_num), (col, "non-finite", non_fin)]
+        return checks
+
+    def select_list(self, cols: ChosenColumns, cat_cols: list[str], num_cols: list[str],
+                    sql_name: dict[str, str]) -> str:
+        """y, x, then the covariates under the query's own names: categories trimmed, numbers parsed."""
+        parts = [f"{self.num_expr(cols.y)[0]} AS y", f"{self.num_expr(cols.x)[0]} AS x"]
+        parts += [f"trim(CAST({q(c)} AS VARCHAR)) AS {q(sql_name[c])}" for c in cat_cols]
+        parts += [f"{self.num_expr(c)[0]} AS {q(sql_name[c])}" for c in num_cols]
+        return ", ".join(parts)
+
+
+def _na_list() -> str:
+    """The missing-value texts as an SQL list of literals."""
+    return ", ".join(lit(s) for s in _NA_TEXT)
+
+
+def _sql_covariates(facts: dict, cov_cols: list[str], cat_cols: list[str], num_cols: list[str],
+                    sql_name: dict[str, str]) -> tuple[Covariate, ...]:
+    """Covariates in the user's order: categories coded from each unit's label, numbers by name only
+    (their sums are in the scans)."""
+    covs: list[Covariate] = []
+    for c in cat_cols:
+        vals = np.asarray(facts["units"][sql_name[c]]).astype(str)
+        lv = tuple(str(v) for v in np.unique(vals))
+        require_categories(c, lv)
+        codes = np.searchsorted(np.asarray(lv), vals)
+        covs.append(Covariate(c, "categorical", codes.astype(np.intp), lv))
+    for c in num_cols:
+        covs.append(Covariate(c, "numeric", np.empty(0)))
+    return tuple(sorted(covs, key=lambda cv: cov_cols.index(cv.name)))
+
+
+def _level_views(con: Any, study: SqlStudy, info: dict) -> None:
+    """x value → level code (for scans that group by level), and the rows with centred covariates."""
+    x_values = info["x_values"]
     con.register("bw_xmap_src", {"x": x_values, "code": study.x_codes_for_values(x_values).astype(np.int64)})
     con.execute("CREATE TEMP TABLE bw_xmap AS SELECT * FROM bw_xmap_src")
     con.unregister("bw_xmap_src")
-    shifted = ["x", "y", *[q(sql_name[c]) for c in cat_cols]]
-    shifted += [f"({q(sql_name[c])} - {info['num_mean'][c]!r}) AS {q(sql_name[c])}" for c in num_cols]
+    sql_name = info["sql_name"]
+    shifted = ["x", "y", *[q(sql_name[c]) for c in info["cat_cols"]]]
+    shifted += [f"({q(sql_name[c])} - {info['num_mean'][c]!r}) AS {q(sql_name[c])}" for c in info["num_cols"]]
     con.execute(f"CREATE TEMP VIEW bw_shifted AS SELECT {', '.join(shifted)} FROM bw_clean")
-    study.prefetch()
-    return study
 
 
 # ----------------------------------------------------------------------------- set-up scans
