@@ -21,6 +21,8 @@ import numpy as np
 
 from ..numfmt import fmt_num, fmt_p, p_clause
 from ..stats.rows import NoRows, Rows
+from ..stats.study import Study
+from ..tree.model_spec import ModelSpec
 from ..tree.tree import RemedyTree
 
 __all__ = ["report_markdown", "text_chart"]
@@ -153,26 +155,46 @@ def _stability_section(tree: RemedyTree, node_id: str, stab: dict[str, Any] | No
 
 
 def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
-    """The report of one exported node (``doc`` is its spec document)."""
+    """The report of one exported node (``doc`` is its spec document), section by section."""
     from ..tree.residuals import residuals_by_level
-    from ..tree.scoring import predict_terms
 
     study = tree.study
     node = tree.nodes[node_id]
     score = node.score
     assert score is not None
     spec = node.spec
-    y, x = study.y_name, study.x_name
-    fit = doc["fit"]
-    prov = doc["provenance"]
-    tests = doc["tests"]
-    alpha = tests["alpha"]
+    lr = residuals_by_level(study, score)
     out: list[str] = [f"# bendwise model hand-off: {_code(doc['node']['label'])}", ""]
     out += [f"> {doc['cautions']['use']}", ">", f"> {doc['cautions']['post_search']}", ""]
     out += [f"Node {_code(node_id)} · written {doc['created_utc']} by bendwise {doc['tool']['version']} · "
             f"spec schema {doc['schema_version']}", ""]
+    out += _data_section(study, doc)
+    out += _model_section(study, spec, doc)
+    out += _lack_of_fit_section(study, doc)
+    out += _residuals_section(study, score, spec, doc, lr)
+    out += _path_section(study, doc)
+    out += _stability_section(tree, node_id, doc.get("stability"))
+    out += _limits_section(study, spec, doc)
+    out += _charts_section(study, score, spec, doc, lr)
+    out += ["## Cautions", "", f"- {doc['cautions']['post_search']}", f"- {doc['cautions']['use']}"]
+    if not spec.response.is_identity:
+        out.append("- Predictions back-transformed from the fitted scale: the naive back-transform is a median; "
+                   "bendwise apply also gives the smearing mean (Duan 1983).")
+    out.append("")
+    return "\n".join(out)
 
-    # data
+
+def _is_line(spec: ModelSpec) -> bool:
+    """True for the straight line in the original units (no transform, degree 1, no covariates)."""
+    return (spec.response.is_identity and spec.predictor.is_identity and spec.degree == 1
+            and not spec.covariates)
+
+
+def _data_section(study: Study, doc: dict[str, Any]) -> list[str]:
+    """The file (with its checksum), the columns, the rows dropped and why, the levels and the range."""
+    y, x = study.y_name, study.x_name
+    prov = doc["provenance"]
+    out: list[str] = []
     d = prov["data"]
     rows = prov["rows"]
     out += ["## Data", ""]
@@ -195,8 +217,14 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     cal = doc["calibration"]
     out.append(f"- Calibrated range of {_code(x)}: {_n(cal['x_min'])} to {_n(cal['x_max'])}")
     out.append("")
+    return out
 
-    # model and fit
+
+def _model_section(study: Study, spec: ModelSpec, doc: dict[str, Any]) -> list[str]:
+    """The model's label and formula, weights, the coefficient table and the fit's summary numbers."""
+    y = study.y_name
+    fit = doc["fit"]
+    out: list[str] = []
     m = doc["model"]
     out += ["## Model", "", f"- {_code(doc['node']['label'])}", f"- Formula (for reading): {_code(m['formula_text'])}"]
     w = m["weights"]
@@ -209,9 +237,7 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     out += ["", f"- Residual SD σ̂ = {_n(fit['sigma'], 6)} on {fit['df_resid']} df{scale}; n = {fit['n']}",
             f"- r² = {fit['r2']:.6f}; adjusted r² = {fit['r2_adj']:.6f}",
             f"- Residual sum of squares = {_n(fit['sse'], 8)}{' (weighted)' if w['rule'] != 'none' or w['user_column'] else ''}"]
-    is_line = (spec.response.is_identity and spec.predictor.is_identity and spec.degree == 1
-               and not spec.covariates)
-    if is_line:
+    if _is_line(spec):
         b0 = next(c for c in fit["coefficients"] if c["name"] == "intercept")["estimate"]
         b1 = fit["coefficients"][1]["estimate"]
         out.append(f"- Straight line: intercept {_n(b0, 8)}, slope {_n(b1, 8)}")
@@ -219,8 +245,15 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
         out.append("- The model is not a straight line in the original units: the coefficients above replace a "
                    "single slope and intercept")
     out.append("")
+    return out
 
-    # tests
+
+def _lack_of_fit_section(study: Study, doc: dict[str, Any]) -> list[str]:
+    """This model's lack-of-fit tests and spread, then the straight line's tests, then warnings."""
+    y, x = study.y_name, study.x_name
+    tests = doc["tests"]
+    alpha = tests["alpha"]
+    out: list[str] = []
     out += ["## Lack of fit", ""]
     out.append(f"- This model, {_free(tests['lack_of_fit'].get('kind', 'lack of fit'))}: "
                f"{_test_line(tests['lack_of_fit'], alpha)}")
@@ -234,9 +267,15 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     for wtext in tests["warnings"]:
         out.append(f"- Note: {_free(wtext)}")
     out.append("")
+    return out
 
-    # residual table by level
-    lr = residuals_by_level(study, score)
+
+def _residuals_section(study: Study, score: Any, spec: ModelSpec, doc: dict[str, Any], lr: Any) -> list[str]:
+    """One row per level: mean y, fitted value, mean residual and residual SD (first 60 levels)."""
+    y, x = study.y_name, study.x_name
+    w = doc["model"]["weights"]
+    cal = doc["calibration"]
+    out: list[str] = []
     fitted_lv = np.asarray(score.level_fitted_y)
     out += ["## Residuals by level", ""]
     if isinstance(study.rows(), NoRows) and study.n > lr.residual.size:
@@ -266,8 +305,14 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
         out.append(f"\nA fitted value shown as — lies outside the values {_code(spec.response.short(y))} can take "
                    "(for 1/y: past its pole): the model gives no value there.")
     out.append("")
+    return out
 
-    # path
+
+def _path_section(study: Study, doc: dict[str, Any]) -> list[str]:
+    """The moves from the straight line to this node, each with its nested test, and the suggestion."""
+    y, x = study.y_name, study.x_name
+    tests = doc["tests"]
+    out: list[str] = []
     out += ["## How this model was reached", ""]
     out.append(f"1. `root` — straight line {_code(f'{y} ~ {x}')}")
     for i, step in enumerate(tests["path"], start=2):
@@ -281,12 +326,17 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
             + (f"node {_code(sug['node'])} — {_free(sug['reason'])}" if sug["node"] else f"no node — {_free(sug['reason'])}"),
             "", ("This export is the suggested node." if sug["exported_is_suggested"]
                  else "This export is NOT the suggested node: it was chosen by hand."), ""]
+    return out
 
-    out += _stability_section(tree, node_id, doc.get("stability"))
 
-    # limits
+def _limits_section(study: Study, spec: ModelSpec, doc: dict[str, Any]) -> list[str]:
+    """DL = 3.3σ/S and QL = 10σ/S for an unweighted straight line; otherwise why they are not given."""
+    x = study.x_name
+    fit = doc["fit"]
+    w = doc["model"]["weights"]
+    out: list[str] = []
     out += ["## Detection and quantitation limits", ""]
-    if is_line and w["rule"] == "none" and not w["user_column"]:
+    if _is_line(spec) and w["rule"] == "none" and not w["user_column"]:
         s, b1 = fit["sigma"], fit["coefficients"][1]["estimate"]
         out += [f"With σ = the residual SD ({_n(s, 5)}) and S = the slope ({_n(b1, 5)}):", "",
                 f"- DL = 3.3σ/S = {_n(3.3 * s / abs(b1), 5)} (units of {_code(x)})",
@@ -296,8 +346,16 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
         out.append("Not given: DL = 3.3σ/S and QL = 10σ/S assume a straight line in the original units with a "
                    "constant residual SD; this model is not one.")
     out.append("")
+    return out
 
-    # charts
+
+def _charts_section(study: Study, score: Any, spec: ModelSpec, doc: dict[str, Any], lr: Any) -> list[str]:
+    """Text charts: the data with the fitted curve, and the residuals with their level means."""
+    from ..tree.scoring import predict_terms
+
+    y, x = study.y_name, study.x_name
+    fit = doc["fit"]
+    m = doc["model"]
     every = study.rows()
     if isinstance(every, Rows):
         xs, ys = every.x, every.y
@@ -317,17 +375,13 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     with np.errstate(all="ignore"):
         zc = predict_terms(score.terms, beta, np.asarray(spec.predictor.forward(grid_x), dtype=float), covs_ref)
         yc = np.asarray(spec.response.inverse(zc), dtype=float)
-    out += ["## Charts", "", f"Data (o) and fitted curve (*) on the original scale, {_code(y)} against {_code(x)}"
+    out = ["## Charts", "", f"Data (o) and fitted curve (*) on the original scale, {_code(y)} against {_code(x)}"
             + (" (curve at the reference category / mean covariate)" if covs_ref else "")
             + "; a point drawn where the curve passes hides the curve, never the reverse:", "", "```"]
     out += text_chart([(grid_x, yc, "*"), (xs[idx], ys[idx], "o")])
     out += ["```", "", "Residuals (o) and their level means (#) against " + _code(x) + ", fitted scale:", "", "```"]
     out += text_chart([(lr.x, lr.residual, "o"), (lr.level_x, lr.level_mean, "#")], zero_line=True)
     out += ["```", ""]
+    return out
 
-    out += ["## Cautions", "", f"- {doc['cautions']['post_search']}", f"- {doc['cautions']['use']}"]
-    if not spec.response.is_identity:
-        out.append("- Predictions back-transformed from the fitted scale: the naive back-transform is a median; "
-                   "bendwise apply also gives the smearing mean (Duan 1983).")
-    out.append("")
-    return "\n".join(out)
+
