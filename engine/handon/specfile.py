@@ -259,7 +259,43 @@ def validate_spec(doc: Any) -> HandedModel:
     x_name = _str(pred.get("column"), "model.predictor.column")
     response = _transform(resp, "model.response", RESPONSE_KINDS)
     predictor = _transform(pred, "model.predictor", PREDICTOR_KINDS)
+    covs = _covariates(model, y_name, x_name)  # type: ignore[arg-type]
+    terms = _terms(model, {c.name: c for c in covs})
+    theta, normaliser, user_w = _weights(model)
+    fit = _obj(doc, "fit", "")
+    beta, cov_m = _coefficients(fit, len(terms))
+    sigma = _num(fit.get("sigma"), "fit.sigma", positive=True)
+    assert sigma is not None
+    if not math.isfinite(sigma * sigma):
+        raise _fail("fit.sigma", f"is {sigma:g}: its square overflows, so it cannot be a residual SD")
+    df = _int(fit.get("df_resid"), "fit.df_resid", 1)
+    n = _int(fit.get("n"), "fit.n", 2)
+    x_min, x_max, y_max = _calibration(doc)
+    return HandedModel(
+        schema_version=version,
+        response_name=y_name,  # type: ignore[arg-type]
+        predictor_name=x_name,  # type: ignore[arg-type]
+        response=response,
+        predictor=predictor,
+        terms=tuple(terms),
+        beta=beta,
+        cov=cov_m,
+        sigma=float(sigma),  # type: ignore[arg-type]
+        df_resid=df,
+        n=n,
+        covariates=tuple(covs),
+        weight_theta=theta,
+        weight_normaliser=float(normaliser),
+        user_weights=user_w,
+        x_min=x_min,
+        x_max=x_max,
+        y_sign=-1 if y_max < 0 else 1,
+        residuals=_training_residuals(doc),
+    )
 
+
+def _covariates(model: dict, y_name: str, x_name: str) -> list[HandedCovariate]:
+    """model.covariates: names used once, a kind, and (categorical) at least 2 distinct categories."""
     covs: list[HandedCovariate] = []
     for i, c in enumerate(_list(model.get("covariates"), "model.covariates")):
         w = f"model.covariates[{i}]"
@@ -276,8 +312,11 @@ def validate_spec(doc: Any) -> HandedModel:
         if name in (y_name, x_name) or any(o.name == name for o in covs):
             raise _fail(f"{w}.name", f"{name!r} is used twice")
         covs.append(HandedCovariate(name, kind, levels))  # type: ignore[arg-type]
-    known = {c.name: c for c in covs}
+    return covs
 
+
+def _terms(model: dict, known: dict[str, HandedCovariate]) -> list[Term]:
+    """model.terms: each term's kind, power, covariate and level agree with the covariates; no repeats."""
     terms: list[Term] = []
     for i, t in enumerate(_list(model.get("terms"), "model.terms", min_len=1)):
         w = f"model.terms[{i}]"
@@ -305,6 +344,11 @@ def validate_spec(doc: Any) -> HandedModel:
     if len(set(terms)) != len(terms):
         raise _fail("model.terms", "repeats a term")
 
+    return terms
+
+
+def _weights(model: dict) -> tuple[float | None, float, str | None]:
+    """model.weights: (θ of the power-of-mean rule or None, its normaliser, the user's weights column)."""
     wt = _obj(model, "weights", "model")
     rule = _str(wt.get("rule"), "model.weights.rule", choices=("none", "power-of-mean"))
     theta = None
@@ -314,8 +358,11 @@ def validate_spec(doc: Any) -> HandedModel:
         normaliser = _num(wt.get("normaliser"), "model.weights.normaliser", positive=True)  # type: ignore[assignment]
     user_w = _str(wt.get("user_column"), "model.weights.user_column", allow_none=True)
 
-    fit = _obj(doc, "fit", "")
-    p = len(terms)
+    return theta, normaliser, user_w  # type: ignore[return-value]
+
+
+def _coefficients(fit: dict, p: int) -> tuple[np.ndarray, np.ndarray]:
+    """fit.coefficients (one per term) and fit.covariance (p×p, symmetric, positive semi-definite)."""
     coefs = _list(fit.get("coefficients"), "fit.coefficients", min_len=1)
     if len(coefs) != p:
         raise _fail("fit.coefficients", f"holds {len(coefs)} coefficient(s) for {p} term(s)")
@@ -340,13 +387,11 @@ def validate_spec(doc: Any) -> HandedModel:
     if (diag < 0).any() or asym.any():
         raise _fail("fit.covariance", "is not a symmetric matrix with a non-negative diagonal")
     _check_psd(cov_m)
-    sigma = _num(fit.get("sigma"), "fit.sigma", positive=True)
-    assert sigma is not None
-    if not math.isfinite(sigma * sigma):
-        raise _fail("fit.sigma", f"is {sigma:g}: its square overflows, so it cannot be a residual SD")
-    df = _int(fit.get("df_resid"), "fit.df_resid", 1)
-    n = _int(fit.get("n"), "fit.n", 2)
+    return beta, cov_m
 
+
+def _calibration(doc: Any) -> tuple[float, float, float]:
+    """calibration: (x_min, x_max, y_max), with x_min below x_max."""
     cal = _obj(doc, "calibration", "")
     x_min = _num(cal.get("x_min"), "calibration.x_min")
     x_max = _num(cal.get("x_max"), "calibration.x_max")
@@ -356,6 +401,11 @@ def validate_spec(doc: Any) -> HandedModel:
     if not x_min < x_max:
         raise _fail("calibration.x_min", f"({x_min:g}) must be below calibration.x_max ({x_max:g})")
 
+    return x_min, x_max, y_max
+
+
+def _training_residuals(doc: Any) -> np.ndarray:
+    """training.residuals: at least 2 finite numbers (for the smearing mean)."""
     tr = _obj(doc, "training", "")
     res_raw = _list(tr.get("residuals"), "training.residuals", min_len=2)
     try:
@@ -366,27 +416,7 @@ def validate_spec(doc: Any) -> HandedModel:
             or not np.isfinite(residuals).all():
         raise _fail("training.residuals", "must be a list of finite numbers")
 
-    return HandedModel(
-        schema_version=version,
-        response_name=y_name,  # type: ignore[arg-type]
-        predictor_name=x_name,  # type: ignore[arg-type]
-        response=response,
-        predictor=predictor,
-        terms=tuple(terms),
-        beta=beta,
-        cov=cov_m,
-        sigma=float(sigma),  # type: ignore[arg-type]
-        df_resid=df,
-        n=n,
-        covariates=tuple(covs),
-        weight_theta=theta,
-        weight_normaliser=float(normaliser),
-        user_weights=user_w,
-        x_min=x_min,
-        x_max=x_max,
-        y_sign=-1 if y_max < 0 else 1,
-        residuals=residuals,
-    )
+    return residuals
 
 
 def model_from_spec(doc: Any) -> HandedModel:
