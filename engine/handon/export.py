@@ -31,6 +31,8 @@ from ..tree.tree import RemedyTree
 from .specfile import SCHEMA_VERSION, validate_spec
 
 if TYPE_CHECKING:
+    from ..stats.study import Study
+    from ..tree.model_spec import ModelSpec
     from ..tree.stability import Stability
 
 __all__ = [
@@ -145,7 +147,6 @@ def build_spec(tree: RemedyTree, node_id: str, *, data_path: str | Path | None =
                max_residuals: int = MAX_RESIDUALS, now: datetime | None = None) -> dict[str, Any]:
     """The spec document of one scored node (plain JSON values, schema version 1.x)."""
     from ..checks.straight_line import check
-    from ..tree.residuals import residuals_by_level
     from ..version import __version__
 
     study = tree.study
@@ -154,108 +155,28 @@ def build_spec(tree: RemedyTree, node_id: str, *, data_path: str | Path | None =
     assert score is not None
     spec = node.spec
     y, x = study.y_name, study.x_name
-    kinds = {c.name: c.kind for c in study.covariates}
-    sha = size = None
-    if data_path is not None:
-        sha, size = file_digest(data_path)
     if max_residuals < 2:
         raise UsageError(f"max_residuals {max_residuals} must be at least 2")
-    if isinstance(study.rows(), Rows):
-        lr_residual = residuals_by_level(study, score, max_rows=max_residuals).residual
-        sampled = study.n > max_residuals
-        sample_note = (f"the table has {study.n:,} rows; {lr_residual.shape[0]:,} evenly spaced residuals are kept"
-                       if sampled else None)
-        z = np.asarray(spec.response.forward(study.y), dtype=float)
-        levels = _level_table(study, z)
-        y_range = (float(study.y.min()), float(study.y.max()))
-    else:  # rows read through the SQL engine: level totals, and a seeded sample for the residuals
-        lr_residual = residuals_by_level(study, score, max_rows=max_residuals).residual
-        sampled = study.n > max_residuals
-        sample_note = (f"the table has {study.n:,} rows; residuals of a seeded random sample of "
-                       f"{lr_residual.shape[0]:,} rows (DuckDB reservoir sample) are kept" if sampled else None)
-        levels = _group_level_table(study, spec)
-        y_range = study.y_range()
+    training, levels, y_range = _training_block(study, score, spec, max_residuals)
     line = check(study, alpha=tree.alpha)
     sug = tree.suggest(rule)
-    fit = score.fit
     doc: dict[str, Any] = {
         "schema_version": SCHEMA_VERSION,
         "document": "bendwise model spec",
         "tool": {"name": "bendwise", "version": __version__},
         "created_utc": (now or datetime.now(UTC)).astimezone(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
-        "provenance": {
-            "data": {
-                "file": study.source if data_path is None else Path(data_path).name,
-                "sha256": sha,
-                "size_bytes": size,
-                "reading": reading or describe_reading(data_path),
-            },
-            "columns": {"response": y, "predictor": x, "covariates": [c.name for c in study.covariates],
-                        "weights": study.weights_name},
-            "rows": {"read": study.report.n_read, "used": study.report.n_used, "dropped": study.report.n_dropped,
-                     "drops": study.report.as_json()["drops"]},
-            "grouping": {
-                "rule": "exact" if study.tolerance is None else "tolerance",
-                "tolerance_text": study.tolerance_text,
-                "tolerance": study.tolerance,
-                "merged": study.approximate_groups,
-                "levels": study.c,
-            },
-        },
+        "provenance": _provenance_block(study, data_path, reading),
         "node": {"id": node.id, "label": spec.label(y, x), "move": node.move, "depth": node.depth,
                  "path": [n.id for n in tree.path(node.id)]},
-        "model": {
-            "response": {"column": y, "transform": spec.response.as_json(), "estimated": spec.response_estimated},
-            "predictor": {"column": x, "transform": spec.predictor.as_json(), "estimated": spec.predictor_estimated,
-                          "working_centre": score.centre, "working_scale": score.scale},
-            "degree": spec.degree,
-            "covariates": _covariates_block(study, spec),
-            "interactions": list(spec.interactions),
-            "terms": [t.as_json() for t in score.terms],
-            "weights": _weights_block(study, spec),
-            "formula_text": spec.formula(y, x, kinds),
-            "formula_note": "for reading only: bendwise rebuilds the model from the terms and never evaluates this text",
-        },
-        "fit": {
-            "scale": "fitted" if not spec.response.is_identity else "original",
-            "coefficients": [{"name": c.name, "estimate": c.estimate, "se": c.se, "t": c.t, "p": c.p}
-                             for c in fit.coefficients],
-            "covariance": [list(r) for r in fit.cov],
-            "sigma": fit.sigma,
-            "df_resid": fit.df_resid,
-            "n": fit.n,
-            "rank": fit.rank,
-            "sse": fit.sse,
-            "r2": fit.r2,
-            "r2_adj": fit.r2_adj,
-        },
+        "model": _model_block(study, spec, score),
+        "fit": _fit_block(spec, score.fit),
         "calibration": {
             "x_min": float(study.x_min), "x_max": float(study.x_max),
             "y_min": y_range[0], "y_max": y_range[1],
             "levels": levels,
         },
-        "training": {
-            "residuals": lr_residual,
-            "kind": "√w·(z − ẑ) per row on the fitted scale (the smearing sample)",
-            "count": int(lr_residual.shape[0]),
-            "rows": study.n,
-            "sampled": sampled,
-            "note": sample_note,
-        },
-        "tests": {
-            "alpha": tree.alpha,
-            "lack_of_fit": score.lack_of_fit.as_json(),
-            "lack_of_fit_pure": score.lack_of_fit_pure.as_json(),
-            "node_spread": score.spread.as_json(),
-            "straight_line": {"lack_of_fit": line.lack_of_fit.as_json(), "mandel": line.mandel.as_json(),
-                              "spread": line.spread.as_json(), "verdict": line.verdict},
-            "path": [
-                {"node": n.id, "move": n.move, "label": n.spec.label(y, x),
-                 "nested": n.nested.to_spec_dict() if n.nested is not None else None}
-                for n in tree.path(node.id)[1:]
-            ],
-            "warnings": list(score.warnings),
-        },
+        "training": training,
+        "tests": _tests_block(tree, node, line),
         "criteria": {**score.criteria.as_json(), "press": score.press, "press_note": score.press_note,
                      "max_studentized_residual": score.max_studentized},
         "suggestion": {"rule": sug.rule, "alpha": tree.alpha, "node": sug.node, "reason": sug.reason,
@@ -263,6 +184,118 @@ def build_spec(tree: RemedyTree, node_id: str, *, data_path: str | Path | None =
         "cautions": {"use": CAUTION, "post_search": POST_SEARCH_CAUTION},
     }
     return _clean(doc)
+
+
+def _training_block(study: Study, score: Any, spec: ModelSpec,
+                    max_residuals: int) -> tuple[dict[str, Any], list[dict[str, Any]], tuple[float, float]]:
+    """The smearing residuals (all rows, or evenly spaced / a seeded sample of a large table), the
+    level table and the range of y."""
+    from ..tree.residuals import residuals_by_level
+
+    lr_residual = residuals_by_level(study, score, max_rows=max_residuals).residual
+    sampled = study.n > max_residuals
+    if isinstance(study.rows(), Rows):
+        sample_note = (f"the table has {study.n:,} rows; {lr_residual.shape[0]:,} evenly spaced residuals are kept"
+                       if sampled else None)
+        z = np.asarray(spec.response.forward(study.y), dtype=float)
+        levels = _level_table(study, z)
+        y_range = (float(study.y.min()), float(study.y.max()))
+    else:  # rows read through the SQL engine: level totals, and a seeded sample for the residuals
+        sample_note = (f"the table has {study.n:,} rows; residuals of a seeded random sample of "
+                       f"{lr_residual.shape[0]:,} rows (DuckDB reservoir sample) are kept" if sampled else None)
+        levels = _group_level_table(study, spec)
+        y_range = study.y_range()
+    training = {
+        "residuals": lr_residual,
+        "kind": "√w·(z − ẑ) per row on the fitted scale (the smearing sample)",
+        "count": int(lr_residual.shape[0]),
+        "rows": study.n,
+        "sampled": sampled,
+        "note": sample_note,
+    }
+    return training, levels, y_range
+
+
+def _provenance_block(study: Study, data_path: str | Path | None, reading: dict[str, Any] | None) -> dict[str, Any]:
+    """Where the data came from (name, checksum, how it was read), the columns, the rows and the grouping."""
+    y, x = study.y_name, study.x_name
+    sha = size = None
+    if data_path is not None:
+        sha, size = file_digest(data_path)
+    return {
+        "data": {
+            "file": study.source if data_path is None else Path(data_path).name,
+            "sha256": sha,
+            "size_bytes": size,
+            "reading": reading or describe_reading(data_path),
+        },
+        "columns": {"response": y, "predictor": x, "covariates": [c.name for c in study.covariates],
+                    "weights": study.weights_name},
+        "rows": {"read": study.report.n_read, "used": study.report.n_used, "dropped": study.report.n_dropped,
+                 "drops": study.report.as_json()["drops"]},
+        "grouping": {
+            "rule": "exact" if study.tolerance is None else "tolerance",
+            "tolerance_text": study.tolerance_text,
+            "tolerance": study.tolerance,
+            "merged": study.approximate_groups,
+            "levels": study.c,
+        },
+    }
+
+
+def _model_block(study: Study, spec: ModelSpec, score: Any) -> dict[str, Any]:
+    """The model as data: transforms, degree, covariates, interactions, terms, weights, a formula to read."""
+    y, x = study.y_name, study.x_name
+    kinds = {c.name: c.kind for c in study.covariates}
+    return {
+        "response": {"column": y, "transform": spec.response.as_json(), "estimated": spec.response_estimated},
+        "predictor": {"column": x, "transform": spec.predictor.as_json(), "estimated": spec.predictor_estimated,
+                      "working_centre": score.centre, "working_scale": score.scale},
+        "degree": spec.degree,
+        "covariates": _covariates_block(study, spec),
+        "interactions": list(spec.interactions),
+        "terms": [t.as_json() for t in score.terms],
+        "weights": _weights_block(study, spec),
+        "formula_text": spec.formula(y, x, kinds),
+        "formula_note": "for reading only: bendwise rebuilds the model from the terms and never evaluates this text",
+    }
+
+
+def _fit_block(spec: ModelSpec, fit: Any) -> dict[str, Any]:
+    """Coefficients with their covariance, σ̂, degrees of freedom and r²."""
+    return {
+        "scale": "fitted" if not spec.response.is_identity else "original",
+        "coefficients": [{"name": c.name, "estimate": c.estimate, "se": c.se, "t": c.t, "p": c.p}
+                         for c in fit.coefficients],
+        "covariance": [list(r) for r in fit.cov],
+        "sigma": fit.sigma,
+        "df_resid": fit.df_resid,
+        "n": fit.n,
+        "rank": fit.rank,
+        "sse": fit.sse,
+        "r2": fit.r2,
+        "r2_adj": fit.r2_adj,
+    }
+
+
+def _tests_block(tree: RemedyTree, node: Any, line: Any) -> dict[str, Any]:
+    """This node's tests, the straight line's, each step's nested test on the path, and warnings."""
+    study, score = tree.study, node.score
+    y, x = study.y_name, study.x_name
+    return {
+        "alpha": tree.alpha,
+        "lack_of_fit": score.lack_of_fit.as_json(),
+        "lack_of_fit_pure": score.lack_of_fit_pure.as_json(),
+        "node_spread": score.spread.as_json(),
+        "straight_line": {"lack_of_fit": line.lack_of_fit.as_json(), "mandel": line.mandel.as_json(),
+                          "spread": line.spread.as_json(), "verdict": line.verdict},
+        "path": [
+            {"node": n.id, "move": n.move, "label": n.spec.label(y, x),
+             "nested": n.nested.to_spec_dict() if n.nested is not None else None}
+            for n in tree.path(node.id)[1:]
+        ],
+        "warnings": list(score.warnings),
+    }
 
 
 def _node(tree: RemedyTree, node_id: str):
