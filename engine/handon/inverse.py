@@ -195,8 +195,8 @@ def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
 
 def _numeric_row(model: HandedModel, y0: float, m: int, tq: float, covs: dict[str, np.ndarray],
                  w_user: float | None) -> InverseResult:
-    from scipy.optimize import brentq
-
+    """x̂ and its confidence set by search: where the curve meets the reading, and where the reading
+    lies inside the band, on a grid refined by root finding."""
     tr = model.response
     with np.errstate(all="ignore"):
         z0 = float(tr.forward(np.array([y0], dtype=float))[0])
@@ -204,106 +204,12 @@ def _numeric_row(model: HandedModel, y0: float, m: int, tq: float, covs: dict[st
     grid = np.linspace(s_lo, s_hi, GRID_POINTS)
     grid[np.argmin(np.abs(grid - t_lo))] = t_lo
     grid[np.argmin(np.abs(grid - t_hi))] = t_hi
-    uw = None if w_user is None else np.array([w_user])
-
-    def curve(t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        cv = {k: v if isinstance(v, OverCategories) else np.repeat(v, t.shape[0]) for k, v in covs.items()}
-        xm = term_matrix(model.terms, t, cv)
-        z = xm @ model.beta if any(isinstance(v, OverCategories) for v in cv.values()) \
-            else predict_terms(model.terms, model.beta, t, cv)
-        var = np.einsum("ij,jk,ik->i", xm, model.cov, xm)
-        w = weight_at(model, z, None if uw is None else np.repeat(uw, t.shape[0]))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            band = tq * tq * (model.sigma**2 / (m * w) + np.clip(var, 0.0, None))
-        return z, band
-
-    def gap(t: float) -> float:
-        z, band = curve(np.array([t]))
-        return float((z0 - z[0]) ** 2 - band[0])
-
-    def level_gap(t: float) -> float:
-        z, _ = curve(np.array([t]))
-        return float(z[0] - z0)
-
-    z, band = curve(grid)
-    i0 = int(np.searchsorted(grid, t_lo))
-    i1 = int(np.searchsorted(grid, t_hi, side="right") - 1)
-    steps = np.sign(np.diff(z))
-    trend = float(np.sign(z[i1] - z[i0]))
-    notes: list[str] = []
-    monotone_inside = trend != 0 and not (steps[i0:i1] == -trend).any()
-    if monotone_inside:
-        a = i0
-        while a > 0 and steps[a - 1] == trend:
-            a -= 1
-        b = i1
-        while b < grid.size - 1 and steps[b] == trend:
-            b += 1
-    else:
-        a, b = i0, i1
-        notes.append("the fitted curve is not monotone over the calibrated range: several x can give one "
-                     "response, so only the calibrated range was searched")
-    inc = not model.predictor.decreasing
-
-    def to_x(t: float) -> float:
-        return float(model.predictor.inverse(np.array([t]))[0])
-
-    # the point estimate: where the curve meets z0
-    x_hat = None
-    if math.isfinite(z0):
-        diff = z[a:b + 1] - z0
-        cross = [j for j in range(diff.size - 1) if diff[j] == 0 or diff[j] * diff[j + 1] < 0]
-        if diff[-1] == 0:
-            cross.append(diff.size - 1)
-        roots = []
-        for j in cross:
-            ta, tb = grid[a + j], grid[min(a + j + 1, b)]
-            roots.append(ta if diff[j] == 0 or ta == tb else brentq(level_gap, ta, tb, xtol=1e-14 * max(1, abs(ta))))
-        if len(roots) == 1:
-            x_hat = to_x(roots[0])
-        elif len(roots) > 1:
-            notes.append(f"the curve reaches this response at {len(roots)} points; no single x̂")
-        else:
-            notes.append("the fitted curve does not reach this response within the searched range")
-    else:
-        notes.append(f"the response is outside the range of {tr.short('y')}")
-
-    ok = ((z0 - z) ** 2 <= band) if math.isfinite(z0) else np.zeros_like(z, dtype=bool)
-    ok[:a] = False
-    ok[b + 1:] = False
-    pieces_t: list[tuple[float | None, float | None]] = []
-    opened = False
-    for ra, rb in _runs(ok):
-        if ra == a:
-            left: float | None = None
-            opened = True
-        else:
-            left = brentq(gap, grid[ra - 1], grid[ra], xtol=1e-14 * max(1.0, abs(grid[ra])))
-        if rb == b:
-            right: float | None = None
-            opened = True
-        else:
-            right = brentq(gap, grid[rb], grid[rb + 1], xtol=1e-14 * max(1.0, abs(grid[rb])))
-        pieces_t.append((left, right))
-    pieces: list[Piece] = []
-    for left, right in pieces_t:
-        xl = None if left is None else to_x(left)
-        xr = None if right is None else to_x(right)
-        pieces.append((xl, xr) if inc else (xr, xl))
-    pieces.sort(key=lambda p: -math.inf if p[0] is None else p[0])
-    if not pieces:
-        kind = "none"
-        notes.append(f"no x in the searched range {_rng(to_x(grid[a]), to_x(grid[b]))} is consistent with "
-                     "this response")
-    elif len(pieces) > 1:
-        kind = "split"
-    elif opened:
-        kind = "unbounded"
-        edge = "the end of the searched range" if (a == 0 or b == grid.size - 1) else \
-            "a turning point of the fitted curve"
-        notes.append(f"the set reaches {edge} (searched {_rng(to_x(grid[a]), to_x(grid[b]))}): that side is open")
-    else:
-        kind = "finite"
+    band_of = _Band(model, m, tq, covs, None if w_user is None else np.array([w_user]), z0)
+    z, band = band_of.curve(grid)
+    a, b, notes = _searched_span(grid, z, t_lo, t_hi)
+    x_hat = _point_estimate(model, band_of, grid, z, a, b, notes)
+    pieces, opened = _band_pieces(model, band_of, grid, z, band, a, b)
+    kind = _set_kind(band_of, pieces, opened, grid, a, b, notes)
     if model.weight_theta is not None:
         notes.append("weights estimated from the replicates: the interval is approximate")
     if not tr.is_identity and m > 1:
@@ -315,6 +221,132 @@ def _numeric_row(model: HandedModel, y0: float, m: int, tq: float, covs: dict[st
         outside_range=None if x_hat is None else bool(outside(model, np.array([x_hat]))[0]),
         method="numeric", note="; ".join(notes) or None,
     )
+
+
+class _Band:
+    """The fitted curve on the working x scale t and the band a reading z0 must fall in."""
+
+    def __init__(self, model: HandedModel, m: int, tq: float, covs: dict[str, np.ndarray],
+                 uw: np.ndarray | None, z0: float) -> None:
+        self.model, self.m, self.tq, self.covs, self.uw, self.z0 = model, m, tq, covs, uw, z0
+
+    def curve(self, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Fitted z at t and the squared half-width tq²·(σ²/(m·w) + var of the fitted value)."""
+        model = self.model
+        cv = {k: v if isinstance(v, OverCategories) else np.repeat(v, t.shape[0]) for k, v in self.covs.items()}
+        xm = term_matrix(model.terms, t, cv)
+        z = xm @ model.beta if any(isinstance(v, OverCategories) for v in cv.values()) \
+            else predict_terms(model.terms, model.beta, t, cv)
+        var = np.einsum("ij,jk,ik->i", xm, model.cov, xm)
+        w = weight_at(model, z, None if self.uw is None else np.repeat(self.uw, t.shape[0]))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            band = self.tq * self.tq * (model.sigma**2 / (self.m * w) + np.clip(var, 0.0, None))
+        return z, band
+
+    def gap(self, t: float) -> float:
+        """Negative where the reading lies inside the band at t."""
+        z, band = self.curve(np.array([t]))
+        return float((self.z0 - z[0]) ** 2 - band[0])
+
+    def level_gap(self, t: float) -> float:
+        """Fitted z at t minus the reading."""
+        z, _ = self.curve(np.array([t]))
+        return float(z[0] - self.z0)
+
+    def to_x(self, t: float) -> float:
+        """x from the working scale t."""
+        return float(self.model.predictor.inverse(np.array([t]))[0])
+
+
+def _searched_span(grid: np.ndarray, z: np.ndarray, t_lo: float, t_hi: float) -> tuple[int, int, list[str]]:
+    """Grid indices searched: beyond the calibrated range while the curve stays monotone, else only
+    the calibrated range (with a note)."""
+    i0 = int(np.searchsorted(grid, t_lo))
+    i1 = int(np.searchsorted(grid, t_hi, side="right") - 1)
+    steps = np.sign(np.diff(z))
+    trend = float(np.sign(z[i1] - z[i0]))
+    if trend != 0 and not (steps[i0:i1] == -trend).any():
+        a = i0
+        while a > 0 and steps[a - 1] == trend:
+            a -= 1
+        b = i1
+        while b < grid.size - 1 and steps[b] == trend:
+            b += 1
+        return a, b, []
+    return i0, i1, ["the fitted curve is not monotone over the calibrated range: several x can give one "
+                    "response, so only the calibrated range was searched"]
+
+
+def _point_estimate(model: HandedModel, band_of: _Band, grid: np.ndarray, z: np.ndarray, a: int, b: int,
+                    notes: list[str]) -> float | None:
+    """x̂ where the curve meets the reading, when it does so once in the searched span."""
+    from scipy.optimize import brentq
+
+    z0 = band_of.z0
+    if not math.isfinite(z0):
+        notes.append(f"the response is outside the range of {model.response.short('y')}")
+        return None
+    diff = z[a:b + 1] - z0
+    cross = [j for j in range(diff.size - 1) if diff[j] == 0 or diff[j] * diff[j + 1] < 0]
+    if diff[-1] == 0:
+        cross.append(diff.size - 1)
+    roots = []
+    for j in cross:
+        ta, tb = grid[a + j], grid[min(a + j + 1, b)]
+        roots.append(ta if diff[j] == 0 or ta == tb else
+                     brentq(band_of.level_gap, ta, tb, xtol=1e-14 * max(1, abs(ta))))
+    if len(roots) == 1:
+        return band_of.to_x(roots[0])
+    if len(roots) > 1:
+        notes.append(f"the curve reaches this response at {len(roots)} points; no single x̂")
+    else:
+        notes.append("the fitted curve does not reach this response within the searched range")
+    return None
+
+
+def _band_pieces(model: HandedModel, band_of: _Band, grid: np.ndarray, z: np.ndarray, band: np.ndarray,
+                 a: int, b: int) -> tuple[list[Piece], bool]:
+    """The x intervals where the reading lies inside the band (None for an open end), sorted, and
+    whether a piece reaches the end of the searched span."""
+    from scipy.optimize import brentq
+
+    z0 = band_of.z0
+    ok = ((z0 - z) ** 2 <= band) if math.isfinite(z0) else np.zeros_like(z, dtype=bool)
+    ok[:a] = False
+    ok[b + 1:] = False
+    opened = False
+    pieces: list[Piece] = []
+    for ra, rb in _runs(ok):
+        left: float | None = None
+        right: float | None = None
+        if ra == a:
+            opened = True
+        else:
+            left = band_of.to_x(brentq(band_of.gap, grid[ra - 1], grid[ra], xtol=1e-14 * max(1.0, abs(grid[ra]))))
+        if rb == b:
+            opened = True
+        else:
+            right = band_of.to_x(brentq(band_of.gap, grid[rb], grid[rb + 1], xtol=1e-14 * max(1.0, abs(grid[rb]))))
+        pieces.append((left, right) if not model.predictor.decreasing else (right, left))
+    pieces.sort(key=lambda p: -math.inf if p[0] is None else p[0])
+    return pieces, opened
+
+
+def _set_kind(band_of: _Band, pieces: list[Piece], opened: bool, grid: np.ndarray, a: int, b: int,
+              notes: list[str]) -> str:
+    """'none', 'split', 'unbounded' or 'finite', with a note for the first and third."""
+    span = _rng(band_of.to_x(grid[a]), band_of.to_x(grid[b]))
+    if not pieces:
+        notes.append(f"no x in the searched range {span} is consistent with this response")
+        return "none"
+    if len(pieces) > 1:
+        return "split"
+    if opened:
+        edge = "the end of the searched range" if (a == 0 or b == grid.size - 1) else \
+            "a turning point of the fitted curve"
+        notes.append(f"the set reaches {edge} (searched {span}): that side is open")
+        return "unbounded"
+    return "finite"
 
 
 def _rng(a: float, b: float) -> str:
