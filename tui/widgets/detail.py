@@ -79,12 +79,37 @@ def render_node(board: TreeSummary, nid: str, width: int = 100) -> Text:
 
 
 def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
-    from bendwise.engine.handon.chart_data import node_anova
-
-    tree = board.tree
+    """The detail of one node: its heading, then sums of squares, coefficients, criteria and notes."""
     node = board.nodes[nid]
     j = board.json[nid]
-    st = tree.study
+    parts = _head_section(board, nid)
+    s = node.score
+    if s is None:
+        parts.append(_heading("Not scored"))
+        parts.append(Text(str(node.error)))
+        parts += _path_section(board, nid)
+        parts += _pruned_section(node, j)
+        return Text("\n").join(parts)
+    narrow = width < WIDE_PANE
+    parts += _squares_section(board, nid, narrow)
+    parts += _coefficients_section(board, nid, narrow, width)
+    parts += _criteria_section(board, nid, narrow)
+    if nid == "root" and board.check is not None:
+        parts += _check_section(board.check)
+    parts += _move_detail(node.detail)
+    parts += _path_section(board, nid)
+    if s.warnings:
+        parts.append(_heading("Warnings"))
+        parts += [Text(f"! {w}") for w in s.warnings]
+    parts += _pruned_section(node, j)
+    return Text("\n").join(parts)
+
+
+def _head_section(board: TreeSummary, nid: str) -> list[Text]:
+    """Node id and label, the move that made it, its formula, the verdict and the suggestion mark."""
+    node = board.nodes[nid]
+    j = board.json[nid]
+    st = board.tree.study
     y, x = st.y_name, st.x_name
     parts: list[Text] = []
     head = Text.assemble((f"{nid}", "bold reverse"), " ", (node.spec.label(y, x), "bold"))
@@ -99,19 +124,22 @@ def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
     if not board.complete:
         parts.append(Text("growth not finished: ΔAICc and the suggestion refer to the nodes scored so far",
                           style="italic"))
-    s = node.score
-    if s is None:
-        parts.append(_heading("Not scored"))
-        parts.append(Text(str(node.error)))
-        parts += _path_section(board, nid)
-        parts += _pruned_section(node, j)
-        return Text("\n").join(parts)
+    return parts
 
-    # sum of squares
+
+def _squares_section(board: TreeSummary, nid: str, narrow: bool) -> list[Text]:
+    """The split of the sum of squares and which lack-of-fit test it is."""
+    from bendwise.engine.handon.chart_data import node_anova
+
+    node = board.nodes[nid]
+    s = node.score
+    assert s is not None
+    st = board.tree.study
+    y, x = st.y_name, st.x_name
+    parts: list[Text] = []
     scale = node.spec.response.short(y)
     if node.spec.weights is not None or st.weights is not None:
         scale += ", weighted"
-    narrow = width < WIDE_PANE
     parts.append(_heading(f"Sum of squares (scale: {scale})"))
     rows = board.check.anova if (nid == "root" and board.check is not None) else node_anova(s)
     t = _table("part", "df", "SS", "F", "p") if narrow else _table("part", "df", "SS", "MS", "F", "p")
@@ -132,8 +160,16 @@ def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
     if node.spec.covariates:
         parts.append(Text(f"classical pure-error test (grouping by {', '.join((x, *node.spec.covariates))}): "
                           f"{s.lack_of_fit_pure.summary()}"))
+    return parts
 
-    # coefficients
+
+def _coefficients_section(board: TreeSummary, nid: str, narrow: bool, width: int) -> list[Text]:
+    """Coefficients on the raw basis (with 95 % intervals when the pane is wide), σ̂ and R²."""
+    node = board.nodes[nid]
+    s = node.score
+    assert s is not None
+    st = board.tree.study
+    parts: list[Text] = []
     parts.append(_heading("Coefficients (raw basis)"))
     t = _table("term", "estimate", "std err", "p") if narrow else _table("term", "estimate", "std err", "p",
                                                                           "95% interval")
@@ -151,8 +187,18 @@ def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
     if s.fit.aliased:
         weighted = node.spec.weights is not None or st.weights is not None
         parts.append(Text(collinear_words(s.fit.aliased, weighted)))
+    return parts
 
-    # criteria
+
+def _criteria_section(board: TreeSummary, nid: str, narrow: bool) -> list[Text]:
+    """k, log-likelihood, AIC, AICc, ΔAICc and BIC, the choices counted in k, PRESS and side tests."""
+    node = board.nodes[nid]
+    s = node.score
+    assert s is not None
+    j = board.json[nid]
+    st = board.tree.study
+    y, x = st.y_name, st.x_name
+    parts: list[Text] = []
     crit = s.criteria
     delta = j["criteria"]["delta_aicc"]  # distance to the tree's best when the picture was taken
     parts.append(_heading(f"Criteria (original {y} scale)"))
@@ -179,16 +225,7 @@ def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
                  if s.max_deviation is not None
                  else f"departure from the straight line: {s.deviation_note or '—'}")
     parts += [Text(ln) for ln in lines]
-
-    if nid == "root" and board.check is not None:
-        parts += _check_section(board.check)
-    parts += _move_detail(node.detail)
-    parts += _path_section(board, nid)
-    if s.warnings:
-        parts.append(_heading("Warnings"))
-        parts += [Text(f"! {w}") for w in s.warnings]
-    parts += _pruned_section(node, j)
-    return Text("\n").join(parts)
+    return parts
 
 
 def _check_section(chk: Any) -> list[Text]:
