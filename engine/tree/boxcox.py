@@ -72,18 +72,7 @@ def profile_boxcox(
     Raises UsageError (a reason, not a crash) when the profile cannot say anything: the fit is
     exact at every λ (or at too many of them).
     """
-    if y is None:
-        if grid_provider is None or n is None or sum_log_y is None:
-            raise ValueError("without rows, give grid_provider, n and sum_log_y")
-        ly = None
-        slog = float(sum_log_y)
-    else:
-        if (y <= 0).any():
-            raise UsageError("Box–Cox needs y > 0")
-        n = y.shape[0]
-        logy = np.log(y)
-        slog = float(logy.sum())
-        ly = logy - slog / n
+    ly, n, slog = _log_scale(y, n, sum_log_y, grid_provider)
     if ly is not None:
         reach = float(np.max(np.abs(ly)))
         if reach > 0:
@@ -106,19 +95,7 @@ def profile_boxcox(
                 grid_cache["bc"] = stats_list
         vals = np.array([from_stats(st, float(v)) for st, v in zip(stats_list, grid_l, strict=True)])
         grid_l, vals = _finite_run(grid_l, vals)
-        spline = CubicSpline(grid_l, vals)
-        fine = np.arange(grid_l[0], grid_l[-1] + 1e-9, 0.0005)
-        fv = spline(fine)
-        i = int(np.argmax(fv))
-        lam_hat, top = float(fine[i]), float(fv[i])
-        below = fv < top - HALF_CHI2_95
-        left = np.flatnonzero(below[:i])
-        right = np.flatnonzero(below[i:])
-        def drop(v: float) -> float:
-            return float(spline(v)) - top + HALF_CHI2_95
-
-        low = float(brentq(drop, fine[left[-1]], fine[left[-1] + 1])) if left.size else None
-        high = float(brentq(drop, fine[i + right[0] - 1], fine[i + right[0]])) if right.size else None
+        lam_hat, low, high = _spline_profile(grid_l, vals)
     else:
         def ll(lam: float) -> float:
             st = compute_group_stats(codes, c, _bc(ly, lam), weights, bases)  # type: ignore[arg-type]
@@ -143,6 +120,39 @@ def profile_boxcox(
         chosen, estimated = round(lam_hat, 2), True
     grid = tuple((float(g), float(v)) for g, v in zip(grid_l, vals, strict=True))
     return BoxCoxProfile(lam_hat, low, high, grid, chosen, estimated)
+
+
+def _log_scale(y: np.ndarray | None, n: int | None, sum_log_y: float | None,
+               grid_provider: Callable | None) -> tuple[np.ndarray | None, int, float]:
+    """(log y − its mean, n, Σ log y) from the rows, or (None, n, Σ log y) as given without rows."""
+    if y is None:
+        if grid_provider is None or n is None or sum_log_y is None:
+            raise ValueError("without rows, give grid_provider, n and sum_log_y")
+        return None, n, float(sum_log_y)
+    if (y <= 0).any():
+        raise UsageError("Box–Cox needs y > 0")
+    logy = np.log(y)
+    slog = float(logy.sum())
+    return logy - slog / y.shape[0], y.shape[0], slog
+
+
+def _spline_profile(grid_l: np.ndarray, vals: np.ndarray) -> tuple[float, float | None, float | None]:
+    """λ̂ and the interval from a cubic spline through the grid profile (0.0005 steps, then roots)."""
+    spline = CubicSpline(grid_l, vals)
+    fine = np.arange(grid_l[0], grid_l[-1] + 1e-9, 0.0005)
+    fv = spline(fine)
+    i = int(np.argmax(fv))
+    lam_hat, top = float(fine[i]), float(fv[i])
+    below = fv < top - HALF_CHI2_95
+    left = np.flatnonzero(below[:i])
+    right = np.flatnonzero(below[i:])
+
+    def drop(v: float) -> float:
+        return float(spline(v)) - top + HALF_CHI2_95
+
+    low = float(brentq(drop, fine[left[-1]], fine[left[-1] + 1])) if left.size else None
+    high = float(brentq(drop, fine[i + right[0] - 1], fine[i + right[0]])) if right.size else None
+    return lam_hat, low, high
 
 
 def _finite_run(lams: np.ndarray, vals: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
