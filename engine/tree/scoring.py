@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -25,6 +26,9 @@ from ..stats.spread import spread_test
 from ..stats.study import Study
 from ..stats.transforms import Transform
 from .model_spec import ModelSpec
+
+if TYPE_CHECKING:
+    from ..stats.groups import GroupStats
 
 __all__ = [
     "Term", "NodeScore", "score_spec", "ROW_PASS_LIMIT", "MAX_FACTOR_LEVELS", "predict_terms",
@@ -320,8 +324,31 @@ def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = 
     warnings: list[str] = []
     if fit.aliased:
         warnings.append(f"collinear terms dropped: {', '.join(fit.aliased)}")
+    lof_shape, lof_pure = _lack_of_fit_pair(study, spec, fr, stats, fit)
+    loglik_y = fit.loglik + fr.jac
+    k = fit.rank + 1 + spec.extra_params
+    crit = criteria_from(loglik_y, k, study.n)
+    if not math.isfinite(loglik_y):
+        warnings.append("fits every row exactly (residual sum of squares 0 up to rounding): the likelihood "
+                        "is unbounded, so AIC, AICc and BIC are undefined")
+    y_levels = _level_curve(study, spec, terms, fit, warnings)
+    max_dev, dev_note = _departure(spec, root_line, y_levels)
+    press, press_note, rmax, spread = _row_diagnostics(study, spec, fr, stats, design, fit, big)
+    warnings += _design_warnings(study, spec, stats, fit)
+    return NodeScore(
+        spec=spec, terms=terms, fit=fit, lack_of_fit=lof_shape, lack_of_fit_pure=lof_pure, criteria=crit,
+        press=press, press_note=press_note, max_studentized=rmax, spread=spread,
+        max_deviation=max_dev, deviation_note=dev_note, warnings=tuple(warnings),
+        centre=fr.centre, scale=fr.scale,
+        level_x=tuple(float(v) for v in study.x_level_values),
+        level_fitted_y=tuple(float(v) for v in y_levels),
+    )
 
-    # lack of fit: shape in x, and the classical pure-error grouping
+
+def _lack_of_fit_pair(study: Study, spec: ModelSpec, fr: _Frame, stats: GroupStats,
+                      fit: Fit) -> tuple[LackOfFit, LackOfFit]:
+    """The node's shape-in-x test (x as a factor) and the classical pure-error test (grouping by x
+    and the covariates), each with its reason when it cannot run."""
     if not spec.covariates and not study.approximate_groups:
         sx = study.group_stats(fr.z, ("z", spec.response.key()), weights=fr.w, weights_key=fr.wkey,
                                level_weights=fr.w_level)
@@ -348,14 +375,12 @@ def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = 
                                      f"({', '.join((study.x_name, *spec.covariates))}); the shape-in-x test stands in",
                                      "pure error")
 
-    loglik_y = fit.loglik + fr.jac
-    k = fit.rank + 1 + spec.extra_params
-    crit = criteria_from(loglik_y, k, study.n)
-    if not math.isfinite(loglik_y):
-        warnings.append("fits every row exactly (residual sum of squares 0 up to rounding): the likelihood "
-                        "is unbounded, so AIC, AICc and BIC are undefined")
+    return lof_shape, lof_pure
 
-    # per-level fitted curve on the original scale (median back-transform)
+
+def _level_curve(study: Study, spec: ModelSpec, terms: Any, fit: Fit, warnings: list[str]) -> np.ndarray:
+    """Fitted y per x level on the original scale (median back-transform), covariates at their
+    reference category or mean; a warning when some levels cannot be back-transformed."""
     t_levels = np.asarray(spec.predictor.forward(study.x_level_values), dtype=float)
     beta = np.array([c.estimate for c in fit.coefficients])
     covs_ref: dict[str, np.ndarray] = {}
@@ -371,15 +396,22 @@ def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = 
             f"fitted values at {int(np.isnan(y_levels).sum())} level(s) fall outside the range of "
             f"{spec.response.short('y')}: they cannot be back-transformed"
         )
-    if spec.covariates:
-        max_dev, dev_note = None, "defined for a single predictor; this node has covariates"
-    elif root_line is None:
-        max_dev, dev_note = 0.0, None
-    else:
-        d = np.abs(y_levels - root_line)
-        max_dev, dev_note = (float(np.nanmax(d)), None) if np.isfinite(d).any() else (None, "curve undefined")
+    return y_levels
 
-    press, press_note, rmax, spread = _row_diagnostics(study, spec, fr, stats, design, fit, big)
+
+def _departure(spec: ModelSpec, root_line: np.ndarray | None, y_levels: np.ndarray) -> tuple[float | None, str | None]:
+    """Largest distance between this node's level curve and the straight line's, or why there is none."""
+    if spec.covariates:
+        return None, "defined for a single predictor; this node has covariates"
+    if root_line is None:
+        return 0.0, None
+    d = np.abs(y_levels - root_line)
+    return (float(np.nanmax(d)), None) if np.isfinite(d).any() else (None, "curve undefined")
+
+
+def _design_warnings(study: Study, spec: ModelSpec, stats: GroupStats, fit: Fit) -> list[str]:
+    """High leverage, high polynomial degree, estimated weights and tolerance-formed levels."""
+    warnings: list[str] = []
     if fit.group_leverage:
         wg = stats.wsum / stats.count
         hmax = float(np.max(np.asarray(fit.group_leverage) * wg))
@@ -391,14 +423,7 @@ def score_spec(study: Study, spec: ModelSpec, *, root_line: np.ndarray | None = 
         warnings.append("weights estimated from the same replicates: tests are approximate")
     if study.approximate_groups:
         warnings.append("levels formed by a tolerance: lack of fit is approximate")
-    return NodeScore(
-        spec=spec, terms=terms, fit=fit, lack_of_fit=lof_shape, lack_of_fit_pure=lof_pure, criteria=crit,
-        press=press, press_note=press_note, max_studentized=rmax, spread=spread,
-        max_deviation=max_dev, deviation_note=dev_note, warnings=tuple(warnings),
-        centre=fr.centre, scale=fr.scale,
-        level_x=tuple(float(v) for v in study.x_level_values),
-        level_fitted_y=tuple(float(v) for v in y_levels),
-    )
+    return warnings
 
 
 def _shape_test(study: Study, spec: ModelSpec, fr: _Frame, stats, fit: Fit) -> LackOfFit:
