@@ -411,7 +411,25 @@ def predict_forward(model: HandedModel, x: np.ndarray, covs: dict[str, np.ndarra
     with np.errstate(all="ignore"):
         median = np.where(defined, np.asarray(tr.inverse(z), dtype=float), np.nan)
     mean = median.copy() if tr.is_identity else smear_mean(model, z, w0)
-    # over- and underflow: the point, the smearing mean (its "z" is ẑ) and each interval end
+    over, under = _lost_to_range(model, z, se, median, mean, ends, defined)
+    intervals = (ci_lo, ci_hi, pi_lo, pi_hi)
+    notes, flags, blank = _row_notes(model, z, defined, over, under, mean, intervals, w0, user_w)
+    if blank.any():
+        mean, median, ci_lo, ci_hi, pi_lo, pi_hi = (np.where(blank, np.nan, v)
+                                                    for v in (mean, median, ci_lo, ci_hi, pi_lo, pi_hi))
+    return ForwardPrediction(
+        x=x, z_fit=z, z_se=se, fit=mean, median=median, ci_low=ci_lo, ci_high=ci_hi,
+        pi_low=pi_lo, pi_high=pi_hi, outside_range=outside(model, x), level=level,
+        notes=tuple(notes), ci_of="mean" if tr.is_identity else "median", flags=tuple(flags),
+    )
+
+
+def _lost_to_range(model: HandedModel, z: np.ndarray, se: np.ndarray, median: np.ndarray, mean: np.ndarray,
+                   ends: dict[str, tuple[np.ndarray, np.ndarray]],
+                   defined: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Rows where the point, the smearing mean or an interval end over- or underflows."""
+    tr = model.response
+    # the point, the smearing mean (its "z" is ẑ) and each interval end
     over, under = lost_to_range(tr, z, median, model.y_sign)
     checks = [(z, mean)]
     with np.errstate(all="ignore"):
@@ -421,11 +439,20 @@ def predict_forward(model: HandedModel, x: np.ndarray, covs: dict[str, np.ndarra
         over |= o & defined
         under |= u & defined
     over |= ~np.isfinite(z) | ~np.isfinite(se)
+    return over, under
+
+
+def _row_notes(model: HandedModel, z: np.ndarray, defined: np.ndarray, over: np.ndarray, under: np.ndarray,
+               mean: np.ndarray, intervals: tuple[np.ndarray, ...], w0: np.ndarray,
+               user_w: np.ndarray | None) -> tuple[list[str | None], list[str | None], np.ndarray]:
+    """Per row: a note in words, a flag for a value that cannot be given, and whether to blank the row."""
+    tr = model.response
+    ci_lo, ci_hi, pi_lo, pi_hi = intervals
     no_w_column = model.user_weights is not None and user_w is None
     notes: list[str | None] = []
     flags: list[str | None] = []
-    blank = np.zeros(x.shape[0], dtype=bool)
-    for i in range(x.shape[0]):
+    blank = np.zeros(z.shape[0], dtype=bool)
+    for i in range(z.shape[0]):
         parts = []
         flag = None
         if over[i] or (not np.isfinite(z[i])):
@@ -453,14 +480,7 @@ def predict_forward(model: HandedModel, x: np.ndarray, covs: dict[str, np.ndarra
             parts.append("the weight at this point is undefined (fitted mean 0): no prediction interval")
         notes.append("; ".join(parts) or None)
         flags.append(flag)
-    if blank.any():
-        mean, median, ci_lo, ci_hi, pi_lo, pi_hi = (np.where(blank, np.nan, v)
-                                                    for v in (mean, median, ci_lo, ci_hi, pi_lo, pi_hi))
-    return ForwardPrediction(
-        x=x, z_fit=z, z_se=se, fit=mean, median=median, ci_low=ci_lo, ci_high=ci_hi,
-        pi_low=pi_lo, pi_high=pi_hi, outside_range=outside(model, x), level=level,
-        notes=tuple(notes), ci_of="mean" if tr.is_identity else "median", flags=tuple(flags),
-    )
+    return notes, flags, blank
 
 
 def _beyond(tr: Transform, y_sign: int) -> str:
