@@ -546,6 +546,35 @@ def sigma_from_pure_error(
     return SigmaEstimate(sigma=upper, estimate=est, upper=upper, confidence=conf, ss_pure=ss, df=df)
 
 
+def _candidate_designs(levels: Sequence[float] | None, span: tuple[float, float] | None,
+                       means: Sequence[float] | None, level_counts: Sequence[int]) -> list[tuple[float, ...]]:
+    """The fixed levels, or each count of levels spread evenly over the span."""
+    if levels is not None:
+        return [tuple(float(v) for v in _as_levels(levels))]
+    if means is not None:
+        raise UsageError(
+            "means: true means need fixed levels; list the levels instead of a range"
+        )
+    lo, hi = span  # type: ignore[misc]
+    return [spaced_levels(int(c), lo, hi) for c in level_counts]
+
+
+def _design_rows(designs: list[tuple[float, ...]], reps_list: list[int], *, delta: float | None,
+                 means: Sequence[float] | None, sigma: float, alpha: float) -> tuple[list[DesignRow], DesignPower]:
+    """Power of both tests at every design × replicate count, and the first design's full result."""
+    rows: list[DesignRow] = []
+    first: DesignPower | None = None
+    for lv in designs:
+        for r in reps_list:
+            dp = design_power(lv, r, delta=delta, means=means, sigma=sigma, alpha=alpha)
+            first = first or dp
+            assert dp.lack_of_fit is not None and dp.curvature is not None
+            rows.append(DesignRow(levels=lv, replicates=r, total=dp.total,
+                                  power_lack_of_fit=dp.lack_of_fit.power, power_curvature=dp.curvature.power))
+    assert first is not None
+    return rows, first
+
+
 def search_designs(
     *,
     levels: Sequence[float] | None = None,
@@ -574,35 +603,10 @@ def search_designs(
     reps_list = [int(r) for r in _as_replicates(list(replicates), len(replicates))]
     if not reps_list:
         raise UsageError("replicates: empty search range; give at least one count")
-    if levels is not None:
-        designs = [tuple(float(v) for v in _as_levels(levels))]
-    else:
-        if means is not None:
-            raise UsageError(
-                "means: true means need fixed levels; list the levels instead of a range"
-            )
-        lo, hi = span  # type: ignore[misc]
-        designs = [spaced_levels(int(c), lo, hi) for c in level_counts]
+    designs = _candidate_designs(levels, span, means, level_counts)
     if delta is None and means is None:
         raise UsageError("delta: not given; state the bend size or the true means per level")
-
-    rows: list[DesignRow] = []
-    first: DesignPower | None = None
-    for lv in designs:
-        for r in reps_list:
-            dp = design_power(lv, r, delta=delta, means=means, sigma=s, alpha=a)
-            first = first or dp
-            assert dp.lack_of_fit is not None and dp.curvature is not None
-            rows.append(
-                DesignRow(
-                    levels=lv,
-                    replicates=r,
-                    total=dp.total,
-                    power_lack_of_fit=dp.lack_of_fit.power,
-                    power_curvature=dp.curvature.power,
-                )
-            )
-    assert first is not None
+    rows, first = _design_rows(designs, reps_list, delta=delta, means=means, sigma=s, alpha=a)
 
     def choose(test: str) -> DesignChoice | None:
         ok = [row for row in rows if row.power(test) >= t]
