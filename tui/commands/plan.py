@@ -176,6 +176,22 @@ def _sigma(args: argparse.Namespace) -> dict[str, Any] | None:
 # ---------------------------------------------------------------- run
 
 
+def _delta(args: argparse.Namespace, sigma: dict[str, Any] | None, s: float,
+           means: list[float] | None) -> float | None:
+    """The bend to detect in the working units (None when the true means are given)."""
+    if args.delta is not None:
+        if sigma is None:
+            raise UsageError("--delta: in y units needs --sigma or --from-data; or use --delta-sd")
+        return _number("--delta", args.delta)
+    if args.delta_sd is not None:
+        return _number("--delta-sd", args.delta_sd) * s
+    if means is not None:
+        if sigma is None:
+            raise UsageError("--means: in y units needs --sigma or --from-data")
+        return None
+    raise UsageError("--delta: not given; state the bend with --delta, --delta-sd or --means")
+
+
 def run(args: argparse.Namespace) -> int:
     """Compute and print the plan; returns 0."""
     from bendwise.engine.plan.power import design_power, search_designs
@@ -193,19 +209,7 @@ def run(args: argparse.Namespace) -> int:
 
     # Work in y units when σ is known, else in σ units (σ = 1).
     s = 1.0 if sigma is None else sigma["value"]
-    delta: float | None
-    if args.delta is not None:
-        if sigma is None:
-            raise UsageError("--delta: in y units needs --sigma or --from-data; or use --delta-sd")
-        delta = _number("--delta", args.delta)
-    elif args.delta_sd is not None:
-        delta = _number("--delta-sd", args.delta_sd) * s
-    elif means is not None:
-        if sigma is None:
-            raise UsageError("--means: in y units needs --sigma or --from-data")
-        delta = None
-    else:
-        raise UsageError("--delta: not given; state the bend with --delta, --delta-sd or --means")
+    delta = _delta(args, sigma, s, means)
 
     report: dict[str, Any] = {
         "command": "plan",
