@@ -850,6 +850,36 @@ def _series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missin
     """Everything the study needs from one scan, or None when the data need the exact path
     (missing or non-finite cells, a response ≤ 0, nothing in the first rows)."""
     keys = ["x", *cat_cols]
+    plan = _series_plan(con, keys, cat_cols, num_cols, progress)
+    if plan is None:
+        return None
+    fallback, y_ref, t_ref, big_m, big_k, centre_expr = plan
+    if progress:
+        progress("scanning rows: group sums (one pass)")
+    res = con.execute(series_sql("bw_all", keys, num_cols, [float(v) for v in t_ref], big_m, big_k, "bw_shift",
+                                 fallback, centre_expr)).fetchnumpy()
+    if progress:
+        progress("")
+    cat_vals = _clean_categories(res, cat_cols, cat_missing)
+    if cat_vals is None:
+        con.execute("DROP TABLE IF EXISTS bw_shift")
+        return None
+    series = _group_series(res, len(num_cols), big_m, big_k, t_ref)
+    n_unit = _floats(res["n"])
+    n = int(n_unit.sum())
+    slog = float((_floats(res["s1"]) + n_unit * _floats(res["centre"])).sum())
+    num_mean = {b: float(_floats(res[f"t{i}"]).sum() / n + t_ref[i]) for i, b in enumerate(num_cols)}
+    units = {"x": _floats(res["x"]), "n": n_unit, **cat_vals}
+    return {"n": n, "n_read": n, "drops": (), "y_min": float(series.ylo.min()), "y_max": float(series.yhi.max()),
+            "y_le0": 0, "y_eq0": 0, "y_lt0": 0, "slog": slog, "slogabs": slog,
+            "num_constant": _constant_covariates(series, num_cols, t_ref, n),
+            "num_mean": num_mean, "y_mean": y_ref, "units": units, "series": series}
+
+
+def _series_plan(con: Any, keys: list[str], cat_cols: list[str], num_cols: list[str],
+                 progress: ProgressFn | None) -> tuple[float, float, np.ndarray, int, int, str | None] | None:
+    """From the first rows: each group's centre of log y (a polynomial in x, or the table
+    ``bw_shift``), the reference values and the series orders; None when the series cannot serve."""
     key_list = ", ".join(q(k) for k in keys)
     ln = "CASE WHEN y > 0 THEN LN(y) END"
     parts = ["COUNT(*) AS n", "MIN(y) AS ylo", "AVG(y) AS ym", f"AVG({ln}) AS lm", f"STDDEV_POP({ln}) AS ls",
@@ -881,32 +911,30 @@ def _series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missin
         con.register("bw_shift_src", shift | {"bw_c": lm})
         con.execute("CREATE OR REPLACE TEMP TABLE bw_shift AS SELECT * FROM bw_shift_src")
         con.unregister("bw_shift_src")
-    if progress:
-        progress("scanning rows: group sums (one pass)")
-    res = con.execute(series_sql("bw_all", keys, num_cols, [float(v) for v in t_ref], big_m, big_k, "bw_shift",
-                                 fallback, centre_expr)).fetchnumpy()
-    if progress:
-        progress("")
+    return fallback, y_ref, t_ref, big_m, big_k, centre_expr
+
+
+def _clean_categories(res: dict, cat_cols: list[str], cat_missing: set[str]) -> dict[str, np.ndarray] | None:
+    """Each category column's labels per group, or None when the scan met a cell the one-scan path
+    cannot take (missing, non-finite, a response ≤ 0)."""
     n_unit = _floats(res["n"])
-    nchk = _floats(res["nchk"])
-    xs = _floats(res["x"])
-    ylo, yhi = _floats(res["ylo"]), _floats(res["yhi"])
     s1 = _floats(res["s1"])  # Σ(d + chk): NaN when any cell of the group is NaN or ±inf
-    clean = bool((nchk == n_unit).all() and np.isfinite(xs).all() and np.isfinite(s1).all()
-                 and (ylo > 0).all() and np.isfinite(yhi).all())
+    ylo, yhi = _floats(res["ylo"]), _floats(res["yhi"])
+    clean = bool((_floats(res["nchk"]) == n_unit).all() and np.isfinite(_floats(res["x"])).all()
+                 and np.isfinite(s1).all() and (ylo > 0).all() and np.isfinite(yhi).all())
     cat_vals: dict[str, np.ndarray] = {}
     for c in cat_cols:
         col = res[c]
         if np.ma.is_masked(col):
-            clean = False
-            break
+            return None
         cat_vals[c] = np.asarray(col).astype(str)
         clean = clean and not bool(np.isin(cat_vals[c], list(cat_missing)).any())
-    if not clean:
-        con.execute("DROP TABLE IF EXISTS bw_shift")
-        return None
-    n = int(n_unit.sum())
-    nb = len(num_cols)
+    return cat_vals if clean else None
+
+
+def _group_series(res: dict, nb: int, big_m: int, big_k: int, t_ref: np.ndarray) -> GroupSeries:
+    """The per-group power sums and covariate sums of the scan as a :class:`GroupSeries`."""
+    n_unit = _floats(res["n"])
     tsum = np.column_stack([_floats(res[f"t{i}"]) for i in range(nb)]) if nb else np.zeros((n_unit.size, 0))
     tt = np.zeros((n_unit.size, nb, nb))
     for i in range(nb):
@@ -917,11 +945,13 @@ def _series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missin
     for i in range(nb):
         for k in range(1, big_k + 1):
             cross[:, i, k - 1] = _floats(res[f"c{i}_{k}"])
-    centre = _floats(res["centre"])
-    series = GroupSeries(n_unit, centre, s, cross, tsum, tt, ylo, yhi, t_ref)
-    slog = float((s[:, 0] + n_unit * centre).sum())
-    # a covariate is constant when its group means agree and it has no spread within groups
-    # (to 1e-12 of its size: t′ = t − t_ref is then rounding noise around 0)
+    return GroupSeries(n_unit, _floats(res["centre"]), s, cross, tsum, tt, _floats(res["ylo"]),
+                       _floats(res["yhi"]), t_ref)
+
+
+def _constant_covariates(series: GroupSeries, num_cols: list[str], t_ref: np.ndarray, n: int) -> dict[str, float | None]:
+    """A covariate is constant when its group means agree and it has no spread within groups
+    (to 1e-12 of its size: t′ = t − t_ref is then rounding noise around 0): its value, else None."""
     num_constant: dict[str, float | None] = {}
     for i, b in enumerate(num_cols):
         size = 1e-12 * max(abs(float(t_ref[i])), 1e-300)
@@ -929,11 +959,7 @@ def _series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missin
         within = float(series.bb[:, i, i].sum()) / n
         flat = float(np.ptp(means)) <= size and within <= size * size
         num_constant[b] = float(t_ref[i] + means.mean()) if flat else None
-    num_mean = {b: float(tsum[:, i].sum() / n + t_ref[i]) for i, b in enumerate(num_cols)}
-    units = {"x": xs, "n": n_unit, **cat_vals}
-    return {"n": n, "n_read": n, "drops": (), "y_min": float(ylo.min()), "y_max": float(yhi.max()),
-            "y_le0": 0, "y_eq0": 0, "y_lt0": 0, "slog": slog, "slogabs": slog, "num_constant": num_constant,
-            "num_mean": num_mean, "y_mean": y_ref, "units": units, "series": series}
+    return num_constant
 
 
 def _exact_setup(con: Any, src: str, case: str, checks: list[tuple[str, str, str]], cat_cols: list[str],
