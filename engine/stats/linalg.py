@@ -14,7 +14,9 @@ back to the raw basis by a fixed matrix (computed in extended precision).
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -266,45 +268,10 @@ def fit_design(stats: GroupStats, design: Design, conf: float = 0.95) -> Fit:
     n = stats.n
     df = n - sol.rank
     sigma2 = sse / df if df > 0 else math.nan
-    to_raw = design.to_raw
-    cov_work = sol.cov_unscaled * sigma2 if df > 0 else np.full_like(sol.cov_unscaled, np.nan)
-    if _is_identity(to_raw) and np.isfinite(sol.beta).all() and np.isfinite(cov_work).all():
-        # the working basis is the raw basis: the extended-precision products are exact copies
-        beta_raw = beta_ld.astype(float)
-        cov_raw = cov_work + 0.0
-    else:
-        beta_raw = (to_raw @ beta_ld).astype(float)
-        tr = to_raw.astype(float)
-        cov_raw = (to_raw @ cov_work.astype(np.longdouble) @ to_raw.T).astype(float) if df > 0 else tr @ cov_work @ tr.T
-    tq = t_ppf(0.5 + conf / 2, df) if df > 0 else math.nan
+    beta_raw, cov_raw = _to_raw_basis(design.to_raw, sol, beta_ld, sigma2, df)
     aliased_names = tuple(design.names[i] for i in sol.aliased)
-    ests = beta_raw.tolist()
-    variances = np.diagonal(cov_raw).tolist()
-    ses: list[float] = []
-    tvals: list[float] = []
-    for name, est, var in zip(design.names, ests, variances, strict=True):
-        se = math.sqrt(var) if var > 0 else (0.0 if var == 0 else math.nan)
-        if name in aliased_names or df <= 0:
-            tval = math.nan
-        else:
-            tval = est / se if se > 0 else math.copysign(math.inf, est) if est else math.nan
-        ses.append(se)
-        tvals.append(tval)
-    pvals = _t_sf2_many(tvals, df) if df > 0 else [math.nan] * len(tvals)
-    coefs = tuple(
-        Coefficient(name, est, se, tval, pval, est - tq * se if df > 0 else math.nan,
-                    est + tq * se if df > 0 else math.nan)
-        for name, est, se, tval, pval in zip(design.names, ests, ses, tvals, pvals, strict=True)
-    )
-    wbar = float((stats.wsum * stats.mean).sum() / stats.wsum.sum())
-    if design.intercept:
-        ss_tot = float(stats.ss.sum() + (stats.wsum * (stats.mean - wbar) ** 2).sum())
-        dft = n - 1
-    else:
-        ss_tot = float(stats.ss.sum() + (stats.wsum * stats.mean**2).sum())
-        dft = n
-    r2 = 1.0 - sse / ss_tot if ss_tot > 0 else math.nan
-    r2_adj = 1.0 - (sse / df) / (ss_tot / dft) if df > 0 and ss_tot > 0 else math.nan
+    coefs = _coefficients(design.names, beta_raw, cov_raw, aliased_names, df, conf)
+    ss_tot, r2, r2_adj = _totals(stats, design.intercept, sse, df)
     if sse > 0:
         loglik = -0.5 * n * (math.log(2 * math.pi) + math.log(sse / n) + 1.0) + 0.5 * stats.sum_log_w
     else:
@@ -329,6 +296,58 @@ def fit_design(stats: GroupStats, design: Design, conf: float = 0.95) -> Fit:
         group_leverage=tuple(lev.tolist()),
         rounding=rounding,
     )
+
+
+def _to_raw_basis(to_raw: np.ndarray, sol: Any, beta_ld: np.ndarray, sigma2: float,
+                  df: int) -> tuple[np.ndarray, np.ndarray]:
+    """Coefficients and their covariance moved from the working basis to the raw one."""
+    cov_work = sol.cov_unscaled * sigma2 if df > 0 else np.full_like(sol.cov_unscaled, np.nan)
+    if _is_identity(to_raw) and np.isfinite(sol.beta).all() and np.isfinite(cov_work).all():
+        # the working basis is the raw basis: the extended-precision products are exact copies
+        return beta_ld.astype(float), cov_work + 0.0
+    beta_raw = (to_raw @ beta_ld).astype(float)
+    tr = to_raw.astype(float)
+    cov_raw = (to_raw @ cov_work.astype(np.longdouble) @ to_raw.T).astype(float) if df > 0 else tr @ cov_work @ tr.T
+    return beta_raw, cov_raw
+
+
+def _coefficients(names: Sequence[str], beta_raw: np.ndarray, cov_raw: np.ndarray, aliased_names: tuple[str, ...],
+                  df: int, conf: float) -> tuple[Coefficient, ...]:
+    """Estimate, standard error, t, two-sided p and interval of each coefficient (NaN where undefined)."""
+    tq = t_ppf(0.5 + conf / 2, df) if df > 0 else math.nan
+    ests = beta_raw.tolist()
+    variances = np.diagonal(cov_raw).tolist()
+    ses: list[float] = []
+    tvals: list[float] = []
+    for name, est, var in zip(names, ests, variances, strict=True):
+        se = math.sqrt(var) if var > 0 else (0.0 if var == 0 else math.nan)
+        if name in aliased_names or df <= 0:
+            tval = math.nan
+        else:
+            tval = est / se if se > 0 else math.copysign(math.inf, est) if est else math.nan
+        ses.append(se)
+        tvals.append(tval)
+    pvals = _t_sf2_many(tvals, df) if df > 0 else [math.nan] * len(tvals)
+    return tuple(
+        Coefficient(name, est, se, tval, pval, est - tq * se if df > 0 else math.nan,
+                    est + tq * se if df > 0 else math.nan)
+        for name, est, se, tval, pval in zip(names, ests, ses, tvals, pvals, strict=True)
+    )
+
+
+def _totals(stats: GroupStats, intercept: bool, sse: float, df: int) -> tuple[float, float, float]:
+    """Total sum of squares (about the weighted mean, or about 0 without an intercept), r², adjusted r²."""
+    n = stats.n
+    wbar = float((stats.wsum * stats.mean).sum() / stats.wsum.sum())
+    if intercept:
+        ss_tot = float(stats.ss.sum() + (stats.wsum * (stats.mean - wbar) ** 2).sum())
+        dft = n - 1
+    else:
+        ss_tot = float(stats.ss.sum() + (stats.wsum * stats.mean**2).sum())
+        dft = n
+    r2 = 1.0 - sse / ss_tot if ss_tot > 0 else math.nan
+    r2_adj = 1.0 - (sse / df) / (ss_tot / dft) if df > 0 and ss_tot > 0 else math.nan
+    return ss_tot, r2, r2_adj
 
 
 def rounding_floor(stats: GroupStats) -> float:
