@@ -585,6 +585,10 @@ def make_sql_study(
 def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tolerance: str | float | None,
                     decimal: str, delimiter: str | None, encoding: str | None, source: str,
                     progress: ProgressFn | None, memory_limit: str | None, exact: bool) -> SqlStudy:
+    """The study over ``path`` (see :func:`make_sql_study`).
+
+    Long because it wires the set-up steps in order (each its own function) and assembles the
+    facts the study keeps; splitting the dictionary would only scatter it."""
     tol, rel = parse_tolerance(tolerance)
     src, as_text = _source_sql(path, decimal, delimiter, encoding)
     con = _connect(memory_limit)

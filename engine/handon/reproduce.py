@@ -329,7 +329,10 @@ if __name__ == "__main__":
 
 
 def script_text(tree: RemedyTree, node_id: str, doc: dict[str, Any], data_rel: str | None) -> str:
-    """Text of ``reproduce.py`` for one exported node (its spec document is ``doc``)."""
+    """Text of ``reproduce.py`` for one exported node (its spec document is ``doc``).
+
+    Long because most of it is the literal head of the generated script, kept in one piece so it
+    reads as the file it writes."""
     study = tree.study
     node = tree.nodes[node_id]
     spec = node.spec

@@ -73,6 +73,9 @@ def compute_group_stats(
 ) -> GroupStats:
     """Aggregate response ``z`` (and optional bases) by integer group ``codes`` in 0..c-1.
 
+    Long because it is the inner loop of every score: the passes share their sorted order and
+    buffers, and the signature alone takes 10 lines.
+
     Two passes (means, then centred squares) keep the pure error accurate when the
     response has a large offset, as in the NIST StRD sets. ``order`` (rows sorted by group)
     may be passed in to reuse one sort for the per-group extremes of many responses;

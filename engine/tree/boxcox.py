@@ -71,6 +71,9 @@ def profile_boxcox(
 
     Raises UsageError (a reason, not a crash) when the profile cannot say anything: the fit is
     exact at every λ (or at too many of them).
+
+    Long because the two paths (grid with spline, exact maximisation) share the profile function
+    and the choice of a conventional λ; the signature alone takes 16 lines.
     """
     ly, n, slog = _log_scale(y, n, sum_log_y, grid_provider)
     if ly is not None:

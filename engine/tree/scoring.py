@@ -459,7 +459,10 @@ def _row_design(study: Study, design: Design, fr: _Frame) -> np.ndarray:
 
 
 def _row_diagnostics(study, spec, fr, stats, design, fit, big):
-    """PRESS (original y scale), largest studentized residual and spread on residuals."""
+    """PRESS (original y scale), largest studentized residual and spread on residuals.
+
+    Long because the three share one pass over the rows (leverages and residuals), which is the
+    expensive part on a large table."""
     name = "equal spread of residuals (Brown–Forsythe)"
     from ..stats.linalg import _mean_rows, solve_stacked  # noqa: F401 - internal reuse
 

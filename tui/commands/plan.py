@@ -193,7 +193,10 @@ def _delta(args: argparse.Namespace, sigma: dict[str, Any] | None, s: float,
 
 
 def run(args: argparse.Namespace) -> int:
-    """Compute and print the plan; returns 0."""
+    """Compute and print the plan; returns 0.
+
+    Long because the options are checked in the order the error messages promise before either
+    output (JSON or text) is written."""
     from bendwise.engine.plan.power import design_power, search_designs
 
     levels, span = _levels(args)
