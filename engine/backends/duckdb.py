@@ -30,7 +30,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import DataError, UsageError
-from ..read.cleaning import CleaningReport, DropCount
+from ..read.cleaning import CleaningReport
 from ..read.columns import NA_TEXT
 from ..read.files import data_files
 from ..read.usable import (
@@ -42,7 +42,7 @@ from ..read.usable import (
     require_spread,
 )
 from ..stats.groups import GroupStats, drop_rounding, normalised_boxcox_stats
-from ..stats.power_sums import GRID_TOL, SERIES_TOL, GroupSeries, choose_orders, series_helps
+from ..stats.power_sums import GRID_TOL, SERIES_TOL
 from ..stats.results import SideTest
 from ..stats.rows import SAMPLE_SEED, NoRows, Rows
 from ..stats.spread import bartlett_from_groups
@@ -54,53 +54,14 @@ from ..stats.study import (
     parse_tolerance,
 )
 from ..stats.transforms import Transform
+from .scans import exact_setup, floats, one_row, series_setup
+from .sql_text import aggregate_sql, lit, q, series_sql, transform_sql
 
 __all__ = ["SqlStudy", "make_sql_study", "aggregate_sql", "series_sql", "transform_sql", "choose_engine",
 ]
 
 _NA_TEXT = NA_TEXT  # the same missing-value texts as the in-memory reader
 ProgressFn = Callable[[str], None]
-
-
-def q(name: str) -> str:
-    """Quote an SQL identifier."""
-    return '"' + name.replace('"', '""') + '"'
-
-
-def lit(text: str) -> str:
-    """Quote an SQL string literal."""
-    return "'" + text.replace("'", "''") + "'"
-
-
-def transform_sql(t: Transform, col: str = "y") -> str:
-    """Standard-SQL expression of g(col)."""
-    try:
-        return t.sql(col)
-    except ValueError as exc:
-        raise UsageError(str(exc)) from None
-
-
-def aggregate_sql(source: str, keys: Sequence[str], nums: Sequence[str], zs: Sequence[str]) -> str:
-    """The GROUP BY query: per finest group, count, means, co-moments and extremes.
-
-    ``source`` is a table or sub-query with a column ``y`` and the key and numeric columns;
-    ``zs`` are SQL expressions of the transformed response. Standard aggregates only.
-    """
-    parts = ["COUNT(*) AS n"]
-    for i, b in enumerate(nums):
-        parts.append(f"AVG({q(b)}) AS b{i}_m")
-    for i, b in enumerate(nums):
-        for j in range(i, len(nums)):
-            parts.append(f"COVAR_POP({q(b)}, {q(nums[j])}) AS bb{i}_{j}")
-    for k, z in enumerate(zs):
-        parts.append(f"AVG({z}) AS z{k}_m")
-        parts.append(f"VAR_POP({z}) AS z{k}_v")
-        for i, b in enumerate(nums):
-            parts.append(f"COVAR_POP({z}, {q(b)}) AS z{k}_b{i}")
-        parts.append(f"MIN({z}) AS z{k}_lo")
-        parts.append(f"MAX({z}) AS z{k}_hi")
-    key_list = ", ".join(q(k) for k in keys)
-    return f"SELECT {key_list}, {', '.join(parts)} FROM {source} GROUP BY {key_list} ORDER BY {key_list}"
 
 
 def choose_engine(path: str, engine: str, memory_cap: int) -> str:
@@ -324,10 +285,10 @@ class SqlStudy(Study):
         self._say(f"scanning {self.n:,} rows for a sample of {min(k, self.n):,}")
         res = self.con.execute(f"SELECT {', '.join(cols)} FROM bw_clean{sample}").fetchnumpy()
         self._say("")
-        out = {"y": _floats(res["y"]), "x": _floats(res["x"])}
+        out = {"y": floats(res["y"]), "x": floats(res["x"])}
         for c in self.covariates:
             col = res[self._info["sql_name"][c.name]]
-            out[c.name] = np.asarray(col).astype(str) if c.kind == "categorical" else _floats(col)
+            out[c.name] = np.asarray(col).astype(str) if c.kind == "categorical" else floats(col)
         self._cache[("sample", k, seed)] = out
         return out
 
@@ -609,9 +570,9 @@ def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tol
     cat_sql = [sql_name[c] for c in cat_cols]
     num_sql = [sql_name[c] for c in num_cols]
     cat_missing = set(_NA_TEXT) if as_text else {""}
-    facts = None if exact else _series_setup(con, cat_sql, num_sql, cat_missing, progress)
+    facts = None if exact else series_setup(con, cat_sql, num_sql, cat_missing, progress)
     if facts is None:
-        facts = _exact_setup(con, src, case, checks, cat_sql, num_sql, progress)
+        facts = exact_setup(con, src, case, checks, cat_sql, num_sql, progress)
     user = {v: k for k, v in sql_name.items()}
     for key in ("num_constant", "num_mean"):  # (units stay keyed by the SQL names: "n" is theirs)
         if key in facts:
@@ -725,7 +686,7 @@ class _SqlTable:
         if self.typed_numeric(col):
             return "numeric"
         _, missing, non_num, _ = self.num_expr(col)
-        bad, present = _one(self.con.execute(
+        bad, present = one_row(self.con.execute(
             f"SELECT COUNT(*) FILTER (WHERE {non_num}), COUNT(*) FILTER (WHERE NOT {missing}) FROM {self.src}"
         ))
         return "numeric" if (bad == 0 and present > 0) else "categorical"
@@ -785,232 +746,3 @@ def _level_views(con: Any, study: SqlStudy, info: dict) -> None:
     con.execute(f"CREATE TEMP VIEW bw_shifted AS SELECT {', '.join(shifted)} FROM bw_clean")
 
 
-# ----------------------------------------------------------------------------- set-up scans
-
-PREFIX_ROWS = 1 << 16
-"""Rows read from the start of the data to place each replicate group's series centre."""
-def series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t_ref: Sequence[float], big_m: int,
-               big_k: int, shift_table: str | None, fallback_centre: float, centre_expr: str | None = None) -> str:
-    """The one-scan GROUP BY query: per finest group, count, extremes of y, covariate sums and
-    cross-products, and power sums Σd^k (k ≤ M), Σd^k·t (k ≤ K) of d = ln y − centre.
-
-    ``source`` has columns y, the keys and the numeric covariates; ``shift_table`` has the keys
-    and a column ``bw_c`` (the group's centre; groups missing from it use ``fallback_centre``).
-    Instead of the table, ``centre_expr`` may give the centre as an expression in x.
-    A column ``bw_chk`` is 0 on rows whose y, x and covariates are all finite, NULL or NaN
-    otherwise; it is counted and added into Σd, so dirty data are recognised. Standard SQL only.
-    """
-    on = " AND ".join(f"r.{q(k)} = s.{q(k)}" for k in keys)
-    sel = ", ".join([*(f"r.{q(k)}" for k in keys), "r.y", *(f"r.{q(b)}" for b in nums)])
-    if centre_expr is not None:
-        joined = f"SELECT {sel}, {centre_expr} AS bw_c FROM {source} AS r"
-    else:
-        joined = (f"SELECT {sel}, COALESCE(s.bw_c, {fallback_centre!r}) AS bw_c "
-                  f"FROM {source} AS r LEFT JOIN {shift_table} AS s ON {on}")
-    chk = " + ".join(["y * 0", "x * 0", *(f"{q(b)} * 0" for b in nums)])
-    cols = [*(q(k) for k in keys), "y", "bw_c", *(f"({q(b)} - {ref!r}) AS {q(b)}" for b, ref in zip(nums, t_ref, strict=True)),
-            "CASE WHEN y > 0 THEN LN(y) - bw_c END AS bw_d1", f"({chk}) AS bw_chk"]
-    query = f"SELECT {', '.join(cols)} FROM ({joined}) AS bw_j"
-    have = 1
-    while have < big_m:  # powers by repeated squaring: each level adds d^(h+1) … d^(2h)
-        new = [f"bw_d{have} * bw_d{k - have} AS bw_d{k}" for k in range(have + 1, min(2 * have, big_m) + 1)]
-        query = f"SELECT *, {', '.join(new)} FROM ({query}) AS bw_p{have}"
-        have = min(2 * have, big_m)
-    aggs = ["COUNT(*) AS n", "COUNT(bw_chk) AS nchk", "MIN(y) AS ylo", "MAX(y) AS yhi", "MIN(bw_c) AS centre"]
-    for i, b in enumerate(nums):
-        aggs.append(f"SUM({q(b)}) AS t{i}")
-        aggs += [f"SUM({q(b)} * {q(nums[j])}) AS tt{i}_{j}" for j in range(i, len(nums))]
-    aggs += ["SUM(bw_d1 + bw_chk) AS s1", *(f"SUM(bw_d{k}) AS s{k}" for k in range(2, big_m + 1))]
-    for i, b in enumerate(nums):
-        aggs += [f"SUM(bw_d{k} * {q(b)}) AS c{i}_{k}" for k in range(1, big_k + 1)]
-    key_list = ", ".join(q(k) for k in keys)
-    return f"SELECT {key_list}, {', '.join(aggs)} FROM ({query}) AS bw_q GROUP BY {key_list} ORDER BY {key_list}"
-
-
-def _centre_polynomial(px: np.ndarray, lm: np.ndarray, w: np.ndarray, ls: np.ndarray) -> str | None:
-    """A cubic (or lower) in x through the first rows' group means of ln y, as SQL, when it
-    passes within a quarter of the smallest group spread of every one of them (a join on the
-    group keys costs more than the polynomial); None otherwise."""
-    spreads = ls[np.isfinite(ls) & (ls > 0)]
-    if px.size < 1 or spreads.size == 0 or not np.isfinite(lm).all():
-        return None
-    centre, scale = float(np.average(px, weights=w)), float(np.ptp(px)) or 1.0
-    u = (px - centre) / scale
-    deg = min(3, px.size - 1)
-    v = np.vander(u, deg + 1, increasing=True)
-    sw = np.sqrt(w)
-    coef = np.linalg.lstsq(v * sw[:, None], lm * sw, rcond=None)[0]
-    if float(np.max(np.abs(v @ coef - lm))) > 0.25 * float(spreads.min()):
-        return None
-    u_sql = f"((x - {centre!r}) / {scale!r})"
-    expr = repr(float(coef[-1]))
-    for c in coef[-2::-1]:
-        expr = f"({float(c)!r} + {u_sql} * {expr})"
-    return expr
-
-
-def _series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missing: set[str],
-                  progress: ProgressFn | None) -> dict | None:
-    """Everything the study needs from one scan, or None when the data need the exact path
-    (missing or non-finite cells, a response ≤ 0, nothing in the first rows)."""
-    keys = ["x", *cat_cols]
-    plan = _series_plan(con, keys, cat_cols, num_cols, progress)
-    if plan is None:
-        return None
-    fallback, y_ref, t_ref, big_m, big_k, centre_expr = plan
-    if progress:
-        progress("scanning rows: group sums (one pass)")
-    res = con.execute(series_sql("bw_all", keys, num_cols, [float(v) for v in t_ref], big_m, big_k, "bw_shift",
-                                 fallback, centre_expr)).fetchnumpy()
-    if progress:
-        progress("")
-    cat_vals = _clean_categories(res, cat_cols, cat_missing)
-    if cat_vals is None:
-        con.execute("DROP TABLE IF EXISTS bw_shift")
-        return None
-    series = _group_series(res, len(num_cols), big_m, big_k, t_ref)
-    n_unit = _floats(res["n"])
-    n = int(n_unit.sum())
-    slog = float((_floats(res["s1"]) + n_unit * _floats(res["centre"])).sum())
-    num_mean = {b: float(_floats(res[f"t{i}"]).sum() / n + t_ref[i]) for i, b in enumerate(num_cols)}
-    units = {"x": _floats(res["x"]), "n": n_unit, **cat_vals}
-    return {"n": n, "n_read": n, "drops": (), "y_min": float(series.ylo.min()), "y_max": float(series.yhi.max()),
-            "y_le0": 0, "y_eq0": 0, "y_lt0": 0, "slog": slog, "slogabs": slog,
-            "num_constant": _constant_covariates(series, num_cols, t_ref, n),
-            "num_mean": num_mean, "y_mean": y_ref, "units": units, "series": series}
-
-
-def _series_plan(con: Any, keys: list[str], cat_cols: list[str], num_cols: list[str],
-                 progress: ProgressFn | None) -> tuple[float, float, np.ndarray, int, int, str | None] | None:
-    """From the first rows: each group's centre of log y (a polynomial in x, or the table
-    ``bw_shift``), the reference values and the series orders; None when the series cannot serve."""
-    key_list = ", ".join(q(k) for k in keys)
-    ln = "CASE WHEN y > 0 THEN LN(y) END"
-    parts = ["COUNT(*) AS n", "MIN(y) AS ylo", "AVG(y) AS ym", f"AVG({ln}) AS lm", f"STDDEV_POP({ln}) AS ls",
-             f"MIN({ln}) AS llo", f"MAX({ln}) AS lhi"]
-    parts += [f"AVG({q(b)}) AS m{i}" for i, b in enumerate(num_cols)]
-    if progress:
-        progress("reading the first rows: group centres")
-    pre = con.execute(f"SELECT {key_list}, {', '.join(parts)} FROM (SELECT * FROM bw_clean LIMIT {PREFIX_ROWS}) "
-                      f"AS bw_pre GROUP BY {key_list}").fetchnumpy()
-    ylo_pre = _floats(pre["ylo"])
-    if ylo_pre.size == 0 or not (ylo_pre > 0).all():
-        return None
-    w = _floats(pre["n"])
-    lm = _floats(pre["lm"])
-    fallback = float((w * lm).sum() / w.sum())
-    y_ref = float((w * _floats(pre["ym"])).sum() / w.sum())
-    t_ref = np.array([float((w * _floats(pre[f"m{i}"])).sum() / w.sum()) for i in range(len(num_cols))])
-    ls = _floats(pre["ls"])
-    sd = float(np.nanmax(ls)) if np.isfinite(ls).any() else 0.0
-    spread = float(np.nanmax(np.maximum(_floats(pre["lhi"]) - lm, lm - _floats(pre["llo"]))))
-    # the whole file reaches further into the tails than its first rows: twice their extremes
-    if not series_helps(sd, 2.0 * spread, len(num_cols)):
-        return None  # too wide a response for the series: scan each transform exactly
-    big_m, big_k = choose_orders(sd, 2.0 * spread, len(num_cols))
-    big_k = big_k if num_cols else 0
-    centre_expr = None if cat_cols else _centre_polynomial(_floats(pre["x"]), lm, w, _floats(pre["ls"]))
-    if centre_expr is None:  # a table of centres, joined on the group keys
-        shift = {k: (_floats(pre[k]) if k == "x" else np.asarray(pre[k], dtype=object)) for k in keys}
-        con.register("bw_shift_src", shift | {"bw_c": lm})
-        con.execute("CREATE OR REPLACE TEMP TABLE bw_shift AS SELECT * FROM bw_shift_src")
-        con.unregister("bw_shift_src")
-    return fallback, y_ref, t_ref, big_m, big_k, centre_expr
-
-
-def _clean_categories(res: dict, cat_cols: list[str], cat_missing: set[str]) -> dict[str, np.ndarray] | None:
-    """Each category column's labels per group, or None when the scan met a cell the one-scan path
-    cannot take (missing, non-finite, a response ≤ 0)."""
-    n_unit = _floats(res["n"])
-    s1 = _floats(res["s1"])  # Σ(d + chk): NaN when any cell of the group is NaN or ±inf
-    ylo, yhi = _floats(res["ylo"]), _floats(res["yhi"])
-    clean = bool((_floats(res["nchk"]) == n_unit).all() and np.isfinite(_floats(res["x"])).all()
-                 and np.isfinite(s1).all() and (ylo > 0).all() and np.isfinite(yhi).all())
-    cat_vals: dict[str, np.ndarray] = {}
-    for c in cat_cols:
-        col = res[c]
-        if np.ma.is_masked(col):
-            return None
-        cat_vals[c] = np.asarray(col).astype(str)
-        clean = clean and not bool(np.isin(cat_vals[c], list(cat_missing)).any())
-    return cat_vals if clean else None
-
-
-def _group_series(res: dict, nb: int, big_m: int, big_k: int, t_ref: np.ndarray) -> GroupSeries:
-    """The per-group power sums and covariate sums of the scan as a :class:`GroupSeries`."""
-    n_unit = _floats(res["n"])
-    tsum = np.column_stack([_floats(res[f"t{i}"]) for i in range(nb)]) if nb else np.zeros((n_unit.size, 0))
-    tt = np.zeros((n_unit.size, nb, nb))
-    for i in range(nb):
-        for j in range(i, nb):
-            tt[:, i, j] = tt[:, j, i] = _floats(res[f"tt{i}_{j}"])
-    s = np.column_stack([_floats(res[f"s{k}"]) for k in range(1, big_m + 1)])
-    cross = np.zeros((n_unit.size, nb, big_k))
-    for i in range(nb):
-        for k in range(1, big_k + 1):
-            cross[:, i, k - 1] = _floats(res[f"c{i}_{k}"])
-    return GroupSeries(n_unit, _floats(res["centre"]), s, cross, tsum, tt, _floats(res["ylo"]),
-                       _floats(res["yhi"]), t_ref)
-
-
-def _constant_covariates(series: GroupSeries, num_cols: list[str], t_ref: np.ndarray, n: int) -> dict[str, float | None]:
-    """A covariate is constant when its group means agree and it has no spread within groups
-    (to 1e-12 of its size: t′ = t − t_ref is then rounding noise around 0): its value, else None."""
-    num_constant: dict[str, float | None] = {}
-    for i, b in enumerate(num_cols):
-        size = 1e-12 * max(abs(float(t_ref[i])), 1e-300)
-        means = series.bmean[:, i] - t_ref[i]
-        within = float(series.bb[:, i, i].sum()) / n
-        flat = float(np.ptp(means)) <= size and within <= size * size
-        num_constant[b] = float(t_ref[i] + means.mean()) if flat else None
-    return num_constant
-
-
-def _exact_setup(con: Any, src: str, case: str, checks: list[tuple[str, str, str]], cat_cols: list[str],
-                 num_cols: list[str], progress: ProgressFn | None) -> dict:
-    """Cleaning counts per column and reason, ranges and domains, and the groups: three scans."""
-    if progress:
-        progress("scanning rows: cleaning counts")
-    counts = dict(con.execute(f"SELECT {case} AS r, COUNT(*) FROM {src} GROUP BY r").fetchall())
-    n_read = int(sum(counts.values()))
-    drops = tuple(DropCount(checks[i][0], checks[i][1], int(cnt), ())
-                  for i, cnt in sorted(counts.items()) if i >= 0 and cnt)
-    if progress:
-        progress("scanning rows: ranges and domains")
-    parts = ["COUNT(*)", "MIN(y)", "MAX(y)",
-             "COUNT(*) FILTER (WHERE y <= 0)", "COUNT(*) FILTER (WHERE y = 0)", "COUNT(*) FILTER (WHERE y < 0)",
-             "SUM(CASE WHEN y > 0 THEN LN(y) ELSE 0 END)", "SUM(CASE WHEN y <> 0 THEN LN(ABS(y)) ELSE 0 END)",
-             "AVG(y)"]
-    for b in num_cols:
-        parts += [f"MIN({q(b)})", f"MAX({q(b)})", f"AVG({q(b)})"]
-    row = _one(con.execute(f"SELECT {', '.join(parts)} FROM bw_clean"))
-    n = int(row[0])
-    facts: dict[str, Any] = {"n": n, "n_read": n_read, "drops": drops}
-    if n < 3:
-        return facts
-    keys = ["x", *cat_cols]
-    key_list = ", ".join(q(k) for k in keys)
-    units = con.execute(f"SELECT {key_list}, COUNT(*) AS n FROM bw_clean GROUP BY {key_list} "
-                        f"ORDER BY {key_list}").fetchnumpy()
-    facts.update({
-        "y_min": float(row[1]), "y_max": float(row[2]),
-        "y_le0": int(row[3]), "y_eq0": int(row[4]), "y_lt0": int(row[5]),
-        "slog": float(row[6]), "slogabs": float(row[7]), "y_mean": float(row[8]),
-        "num_constant": {b: (float(row[9 + 3 * i]) if row[9 + 3 * i] == row[10 + 3 * i] else None)
-                         for i, b in enumerate(num_cols)},
-        "num_mean": {b: float(row[11 + 3 * i]) for i, b in enumerate(num_cols)},
-        "units": {k: units[k] for k in keys} | {"n": units["n"]},
-    })
-    return facts
-
-
-def _floats(col: Any) -> np.ndarray:
-    """A fetched numeric column as float64, NULL as NaN."""
-    return np.ma.filled(np.ma.asarray(col, dtype=float), np.nan) if np.ma.is_masked(col) else np.asarray(col, dtype=float)
-
-
-def _one(cursor: Any) -> tuple:
-    row = cursor.fetchone()
-    if row is None:
-        raise DataError("the SQL engine returned no result; check the input files")
-    return tuple(row)

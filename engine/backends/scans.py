@@ -1,0 +1,194 @@
+"""The DuckDB study's set-up scans: the one-scan power sums on clean data, the exact path otherwise.
+
+On clean data with y > 0 a prefix of the rows places each group's centre of log y and one scan
+(``series_sql``) gives every group's power sums; otherwise three scans give the cleaning counts,
+the ranges and domains, and the groups. Both return the same dictionary of facts.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+
+from ..errors import DataError
+from ..read.cleaning import DropCount
+from ..stats.power_sums import GroupSeries, choose_orders, series_helps
+from .sql_text import centre_polynomial, q, series_sql
+
+__all__ = ["series_setup", "exact_setup", "floats", "one_row", "PREFIX_ROWS"]
+
+ProgressFn = Callable[[str], None]
+
+
+PREFIX_ROWS = 1 << 16
+"""Rows read from the start of the data to place each replicate group's series centre."""
+
+
+def series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missing: set[str],
+                  progress: ProgressFn | None) -> dict | None:
+    """Everything the study needs from one scan, or None when the data need the exact path
+    (missing or non-finite cells, a response ≤ 0, nothing in the first rows)."""
+    keys = ["x", *cat_cols]
+    plan = _series_plan(con, keys, cat_cols, num_cols, progress)
+    if plan is None:
+        return None
+    fallback, y_ref, t_ref, big_m, big_k, centre_expr = plan
+    if progress:
+        progress("scanning rows: group sums (one pass)")
+    res = con.execute(series_sql("bw_all", keys, num_cols, [float(v) for v in t_ref], big_m, big_k, "bw_shift",
+                                 fallback, centre_expr)).fetchnumpy()
+    if progress:
+        progress("")
+    cat_vals = _clean_categories(res, cat_cols, cat_missing)
+    if cat_vals is None:
+        con.execute("DROP TABLE IF EXISTS bw_shift")
+        return None
+    series = _group_series(res, len(num_cols), big_m, big_k, t_ref)
+    n_unit = floats(res["n"])
+    n = int(n_unit.sum())
+    slog = float((floats(res["s1"]) + n_unit * floats(res["centre"])).sum())
+    num_mean = {b: float(floats(res[f"t{i}"]).sum() / n + t_ref[i]) for i, b in enumerate(num_cols)}
+    units = {"x": floats(res["x"]), "n": n_unit, **cat_vals}
+    return {"n": n, "n_read": n, "drops": (), "y_min": float(series.ylo.min()), "y_max": float(series.yhi.max()),
+            "y_le0": 0, "y_eq0": 0, "y_lt0": 0, "slog": slog, "slogabs": slog,
+            "num_constant": _constant_covariates(series, num_cols, t_ref, n),
+            "num_mean": num_mean, "y_mean": y_ref, "units": units, "series": series}
+
+
+def _series_plan(con: Any, keys: list[str], cat_cols: list[str], num_cols: list[str],
+                 progress: ProgressFn | None) -> tuple[float, float, np.ndarray, int, int, str | None] | None:
+    """From the first rows: each group's centre of log y (a polynomial in x, or the table
+    ``bw_shift``), the reference values and the series orders; None when the series cannot serve."""
+    key_list = ", ".join(q(k) for k in keys)
+    ln = "CASE WHEN y > 0 THEN LN(y) END"
+    parts = ["COUNT(*) AS n", "MIN(y) AS ylo", "AVG(y) AS ym", f"AVG({ln}) AS lm", f"STDDEV_POP({ln}) AS ls",
+             f"MIN({ln}) AS llo", f"MAX({ln}) AS lhi"]
+    parts += [f"AVG({q(b)}) AS m{i}" for i, b in enumerate(num_cols)]
+    if progress:
+        progress("reading the first rows: group centres")
+    pre = con.execute(f"SELECT {key_list}, {', '.join(parts)} FROM (SELECT * FROM bw_clean LIMIT {PREFIX_ROWS}) "
+                      f"AS bw_pre GROUP BY {key_list}").fetchnumpy()
+    ylo_pre = floats(pre["ylo"])
+    if ylo_pre.size == 0 or not (ylo_pre > 0).all():
+        return None
+    w = floats(pre["n"])
+    lm = floats(pre["lm"])
+    fallback = float((w * lm).sum() / w.sum())
+    y_ref = float((w * floats(pre["ym"])).sum() / w.sum())
+    t_ref = np.array([float((w * floats(pre[f"m{i}"])).sum() / w.sum()) for i in range(len(num_cols))])
+    ls = floats(pre["ls"])
+    sd = float(np.nanmax(ls)) if np.isfinite(ls).any() else 0.0
+    spread = float(np.nanmax(np.maximum(floats(pre["lhi"]) - lm, lm - floats(pre["llo"]))))
+    # the whole file reaches further into the tails than its first rows: twice their extremes
+    if not series_helps(sd, 2.0 * spread, len(num_cols)):
+        return None  # too wide a response for the series: scan each transform exactly
+    big_m, big_k = choose_orders(sd, 2.0 * spread, len(num_cols))
+    big_k = big_k if num_cols else 0
+    centre_expr = None if cat_cols else centre_polynomial(floats(pre["x"]), lm, w, floats(pre["ls"]))
+    if centre_expr is None:  # a table of centres, joined on the group keys
+        shift = {k: (floats(pre[k]) if k == "x" else np.asarray(pre[k], dtype=object)) for k in keys}
+        con.register("bw_shift_src", shift | {"bw_c": lm})
+        con.execute("CREATE OR REPLACE TEMP TABLE bw_shift AS SELECT * FROM bw_shift_src")
+        con.unregister("bw_shift_src")
+    return fallback, y_ref, t_ref, big_m, big_k, centre_expr
+
+
+def _clean_categories(res: dict, cat_cols: list[str], cat_missing: set[str]) -> dict[str, np.ndarray] | None:
+    """Each category column's labels per group, or None when the scan met a cell the one-scan path
+    cannot take (missing, non-finite, a response ≤ 0)."""
+    n_unit = floats(res["n"])
+    s1 = floats(res["s1"])  # Σ(d + chk): NaN when any cell of the group is NaN or ±inf
+    ylo, yhi = floats(res["ylo"]), floats(res["yhi"])
+    clean = bool((floats(res["nchk"]) == n_unit).all() and np.isfinite(floats(res["x"])).all()
+                 and np.isfinite(s1).all() and (ylo > 0).all() and np.isfinite(yhi).all())
+    cat_vals: dict[str, np.ndarray] = {}
+    for c in cat_cols:
+        col = res[c]
+        if np.ma.is_masked(col):
+            return None
+        cat_vals[c] = np.asarray(col).astype(str)
+        clean = clean and not bool(np.isin(cat_vals[c], list(cat_missing)).any())
+    return cat_vals if clean else None
+
+
+def _group_series(res: dict, nb: int, big_m: int, big_k: int, t_ref: np.ndarray) -> GroupSeries:
+    """The per-group power sums and covariate sums of the scan as a :class:`GroupSeries`."""
+    n_unit = floats(res["n"])
+    tsum = np.column_stack([floats(res[f"t{i}"]) for i in range(nb)]) if nb else np.zeros((n_unit.size, 0))
+    tt = np.zeros((n_unit.size, nb, nb))
+    for i in range(nb):
+        for j in range(i, nb):
+            tt[:, i, j] = tt[:, j, i] = floats(res[f"tt{i}_{j}"])
+    s = np.column_stack([floats(res[f"s{k}"]) for k in range(1, big_m + 1)])
+    cross = np.zeros((n_unit.size, nb, big_k))
+    for i in range(nb):
+        for k in range(1, big_k + 1):
+            cross[:, i, k - 1] = floats(res[f"c{i}_{k}"])
+    return GroupSeries(n_unit, floats(res["centre"]), s, cross, tsum, tt, floats(res["ylo"]),
+                       floats(res["yhi"]), t_ref)
+
+
+def _constant_covariates(series: GroupSeries, num_cols: list[str], t_ref: np.ndarray, n: int) -> dict[str, float | None]:
+    """A covariate is constant when its group means agree and it has no spread within groups
+    (to 1e-12 of its size: t′ = t − t_ref is then rounding noise around 0): its value, else None."""
+    num_constant: dict[str, float | None] = {}
+    for i, b in enumerate(num_cols):
+        size = 1e-12 * max(abs(float(t_ref[i])), 1e-300)
+        means = series.bmean[:, i] - t_ref[i]
+        within = float(series.bb[:, i, i].sum()) / n
+        flat = float(np.ptp(means)) <= size and within <= size * size
+        num_constant[b] = float(t_ref[i] + means.mean()) if flat else None
+    return num_constant
+
+
+def exact_setup(con: Any, src: str, case: str, checks: list[tuple[str, str, str]], cat_cols: list[str],
+                 num_cols: list[str], progress: ProgressFn | None) -> dict:
+    """Cleaning counts per column and reason, ranges and domains, and the groups: three scans."""
+    if progress:
+        progress("scanning rows: cleaning counts")
+    counts = dict(con.execute(f"SELECT {case} AS r, COUNT(*) FROM {src} GROUP BY r").fetchall())
+    n_read = int(sum(counts.values()))
+    drops = tuple(DropCount(checks[i][0], checks[i][1], int(cnt), ())
+                  for i, cnt in sorted(counts.items()) if i >= 0 and cnt)
+    if progress:
+        progress("scanning rows: ranges and domains")
+    parts = ["COUNT(*)", "MIN(y)", "MAX(y)",
+             "COUNT(*) FILTER (WHERE y <= 0)", "COUNT(*) FILTER (WHERE y = 0)", "COUNT(*) FILTER (WHERE y < 0)",
+             "SUM(CASE WHEN y > 0 THEN LN(y) ELSE 0 END)", "SUM(CASE WHEN y <> 0 THEN LN(ABS(y)) ELSE 0 END)",
+             "AVG(y)"]
+    for b in num_cols:
+        parts += [f"MIN({q(b)})", f"MAX({q(b)})", f"AVG({q(b)})"]
+    row = one_row(con.execute(f"SELECT {', '.join(parts)} FROM bw_clean"))
+    n = int(row[0])
+    facts: dict[str, Any] = {"n": n, "n_read": n_read, "drops": drops}
+    if n < 3:
+        return facts
+    keys = ["x", *cat_cols]
+    key_list = ", ".join(q(k) for k in keys)
+    units = con.execute(f"SELECT {key_list}, COUNT(*) AS n FROM bw_clean GROUP BY {key_list} "
+                        f"ORDER BY {key_list}").fetchnumpy()
+    facts.update({
+        "y_min": float(row[1]), "y_max": float(row[2]),
+        "y_le0": int(row[3]), "y_eq0": int(row[4]), "y_lt0": int(row[5]),
+        "slog": float(row[6]), "slogabs": float(row[7]), "y_mean": float(row[8]),
+        "num_constant": {b: (float(row[9 + 3 * i]) if row[9 + 3 * i] == row[10 + 3 * i] else None)
+                         for i, b in enumerate(num_cols)},
+        "num_mean": {b: float(row[11 + 3 * i]) for i, b in enumerate(num_cols)},
+        "units": {k: units[k] for k in keys} | {"n": units["n"]},
+    })
+    return facts
+
+
+def floats(col: Any) -> np.ndarray:
+    """A fetched numeric column as float64, NULL as NaN."""
+    return np.ma.filled(np.ma.asarray(col, dtype=float), np.nan) if np.ma.is_masked(col) else np.asarray(col, dtype=float)
+
+
+def one_row(cursor: Any) -> tuple:
+    """The single row of a query, or one line saying the engine returned none."""
+    row = cursor.fetchone()
+    if row is None:
+        raise DataError("the SQL engine returned no result; check the input files")
+    return tuple(row)

@@ -1,0 +1,119 @@
+"""SQL text for the group statistics: quoting, transforms and the two aggregate queries.
+
+Everything here only writes SQL; nothing runs it. Identifiers are always quoted (``q``) and
+data-derived strings enter as literals (``lit``). The queries are standard SQL (COUNT, SUM, AVG,
+VAR_POP, COVAR_POP, MIN, MAX, LN, EXP, SQRT, CASE, COALESCE, LEFT JOIN), so another engine can
+run them; the DuckDB study (``duckdb.py``) and its set-up scans (``scans.py``) use them.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+
+from ..errors import UsageError
+from ..stats.transforms import Transform
+
+__all__ = ["q", "lit", "transform_sql", "aggregate_sql", "series_sql", "centre_polynomial"]
+
+
+def q(name: str) -> str:
+    """Quote an SQL identifier."""
+    return '"' + name.replace('"', '""') + '"'
+
+
+def lit(text: str) -> str:
+    """Quote an SQL string literal."""
+    return "'" + text.replace("'", "''") + "'"
+
+
+def transform_sql(t: Transform, col: str = "y") -> str:
+    """Standard-SQL expression of g(col)."""
+    try:
+        return t.sql(col)
+    except ValueError as exc:
+        raise UsageError(str(exc)) from None
+
+
+def aggregate_sql(source: str, keys: Sequence[str], nums: Sequence[str], zs: Sequence[str]) -> str:
+    """The GROUP BY query: per finest group, count, means, co-moments and extremes.
+
+    ``source`` is a table or sub-query with a column ``y`` and the key and numeric columns;
+    ``zs`` are SQL expressions of the transformed response. Standard aggregates only.
+    """
+    parts = ["COUNT(*) AS n"]
+    for i, b in enumerate(nums):
+        parts.append(f"AVG({q(b)}) AS b{i}_m")
+    for i, b in enumerate(nums):
+        for j in range(i, len(nums)):
+            parts.append(f"COVAR_POP({q(b)}, {q(nums[j])}) AS bb{i}_{j}")
+    for k, z in enumerate(zs):
+        parts.append(f"AVG({z}) AS z{k}_m")
+        parts.append(f"VAR_POP({z}) AS z{k}_v")
+        for i, b in enumerate(nums):
+            parts.append(f"COVAR_POP({z}, {q(b)}) AS z{k}_b{i}")
+        parts.append(f"MIN({z}) AS z{k}_lo")
+        parts.append(f"MAX({z}) AS z{k}_hi")
+    key_list = ", ".join(q(k) for k in keys)
+    return f"SELECT {key_list}, {', '.join(parts)} FROM {source} GROUP BY {key_list} ORDER BY {key_list}"
+
+
+def series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t_ref: Sequence[float], big_m: int,
+               big_k: int, shift_table: str | None, fallback_centre: float, centre_expr: str | None = None) -> str:
+    """The one-scan GROUP BY query: per finest group, count, extremes of y, covariate sums and
+    cross-products, and power sums Σd^k (k ≤ M), Σd^k·t (k ≤ K) of d = ln y − centre.
+
+    ``source`` has columns y, the keys and the numeric covariates; ``shift_table`` has the keys
+    and a column ``bw_c`` (the group's centre; groups missing from it use ``fallback_centre``).
+    Instead of the table, ``centre_expr`` may give the centre as an expression in x.
+    A column ``bw_chk`` is 0 on rows whose y, x and covariates are all finite, NULL or NaN
+    otherwise; it is counted and added into Σd, so dirty data are recognised. Standard SQL only.
+    """
+    on = " AND ".join(f"r.{q(k)} = s.{q(k)}" for k in keys)
+    sel = ", ".join([*(f"r.{q(k)}" for k in keys), "r.y", *(f"r.{q(b)}" for b in nums)])
+    if centre_expr is not None:
+        joined = f"SELECT {sel}, {centre_expr} AS bw_c FROM {source} AS r"
+    else:
+        joined = (f"SELECT {sel}, COALESCE(s.bw_c, {fallback_centre!r}) AS bw_c "
+                  f"FROM {source} AS r LEFT JOIN {shift_table} AS s ON {on}")
+    chk = " + ".join(["y * 0", "x * 0", *(f"{q(b)} * 0" for b in nums)])
+    cols = [*(q(k) for k in keys), "y", "bw_c", *(f"({q(b)} - {ref!r}) AS {q(b)}" for b, ref in zip(nums, t_ref, strict=True)),
+            "CASE WHEN y > 0 THEN LN(y) - bw_c END AS bw_d1", f"({chk}) AS bw_chk"]
+    query = f"SELECT {', '.join(cols)} FROM ({joined}) AS bw_j"
+    have = 1
+    while have < big_m:  # powers by repeated squaring: each level adds d^(h+1) … d^(2h)
+        new = [f"bw_d{have} * bw_d{k - have} AS bw_d{k}" for k in range(have + 1, min(2 * have, big_m) + 1)]
+        query = f"SELECT *, {', '.join(new)} FROM ({query}) AS bw_p{have}"
+        have = min(2 * have, big_m)
+    aggs = ["COUNT(*) AS n", "COUNT(bw_chk) AS nchk", "MIN(y) AS ylo", "MAX(y) AS yhi", "MIN(bw_c) AS centre"]
+    for i, b in enumerate(nums):
+        aggs.append(f"SUM({q(b)}) AS t{i}")
+        aggs += [f"SUM({q(b)} * {q(nums[j])}) AS tt{i}_{j}" for j in range(i, len(nums))]
+    aggs += ["SUM(bw_d1 + bw_chk) AS s1", *(f"SUM(bw_d{k}) AS s{k}" for k in range(2, big_m + 1))]
+    for i, b in enumerate(nums):
+        aggs += [f"SUM(bw_d{k} * {q(b)}) AS c{i}_{k}" for k in range(1, big_k + 1)]
+    key_list = ", ".join(q(k) for k in keys)
+    return f"SELECT {key_list}, {', '.join(aggs)} FROM ({query}) AS bw_q GROUP BY {key_list} ORDER BY {key_list}"
+
+
+def centre_polynomial(px: np.ndarray, lm: np.ndarray, w: np.ndarray, ls: np.ndarray) -> str | None:
+    """A cubic (or lower) in x through the first rows' group means of ln y, as SQL, when it
+    passes within a quarter of the smallest group spread of every one of them (a join on the
+    group keys costs more than the polynomial); None otherwise."""
+    spreads = ls[np.isfinite(ls) & (ls > 0)]
+    if px.size < 1 or spreads.size == 0 or not np.isfinite(lm).all():
+        return None
+    centre, scale = float(np.average(px, weights=w)), float(np.ptp(px)) or 1.0
+    u = (px - centre) / scale
+    deg = min(3, px.size - 1)
+    v = np.vander(u, deg + 1, increasing=True)
+    sw = np.sqrt(w)
+    coef = np.linalg.lstsq(v * sw[:, None], lm * sw, rcond=None)[0]
+    if float(np.max(np.abs(v @ coef - lm))) > 0.25 * float(spreads.min()):
+        return None
+    u_sql = f"((x - {centre!r}) / {scale!r})"
+    expr = repr(float(coef[-1]))
+    for c in coef[-2::-1]:
+        expr = f"({float(c)!r} + {u_sql} * {expr})"
+    return expr
