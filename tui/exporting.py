@@ -23,14 +23,15 @@ def default_export_name(node_id: str) -> str:
 
 def export_node(tree: RemedyTree, node_id: str, path: str | Path, force: bool = False, *,
                 data_path: str | Path | None = None, reading: dict[str, Any] | None = None,
-                report: str = "md") -> Path:
+                report: str = "md", rule: str = "aicc", stability: Any = None) -> Path:
     """Write the node's spec folder at ``path`` and return it (resolved).
 
     Raises ``FileExistsError`` when ``path`` exists and ``force`` is false (the app then asks for
     confirmation; with ``force`` only an earlier export folder is replaced), ``FileNotFoundError``
     when the parent folder does not exist, ``KeyError`` for an unknown node and ``ValueError``
     when the engine refuses the node (e.g. collinear terms), with its one-line reason.
-    ``report`` is 'md', 'html' or 'both' (which report files the folder gets).
+    ``report`` is 'md', 'html' or 'both' (which report files the folder gets); ``rule`` is the
+    suggestion rule on screen and ``stability`` a selection-stability result of this very tree.
     """
     from bendwise.engine.errors import BendwiseError
     from bendwise.engine.handon.export import ExportExists
@@ -48,7 +49,7 @@ def export_node(tree: RemedyTree, node_id: str, path: str | Path, force: bool = 
         reading = describe_reading(data_path)
     try:
         write_export(tree, node_id, target, data_path=None if str(data_path) == "-" else data_path,
-                     reading=reading, force=force, report=report)
+                     reading=reading, force=force, report=report, rule=rule, stability=stability)
     except ExportExists as exc:
         raise FileExistsError(str(exc)) from None
     except BendwiseError as exc:

@@ -45,6 +45,11 @@ class TreeSummary:
     """False when growth was cancelled part-way."""
     errors: dict[str, str] = field(default_factory=dict)
     """Node id → why growing it stopped (shown in its detail)."""
+    stability: Any = None
+    """Selection stability (an engine ``Stability``) measured on this very tree, α and rule; a new
+    picture of the tree starts without one, so shares never outlive the tree they belong to."""
+    stability_asked: int = 0
+    """Resamples asked for (more than ``stability.resamples`` when the run was stopped)."""
 
     @classmethod
     def take(cls, tree: RemedyTree, rule: str, check: Any = None, complete: bool = True) -> TreeSummary:

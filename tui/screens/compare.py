@@ -13,7 +13,14 @@ from textual.screen import Screen
 from textual.widgets import Footer, Static
 
 from ..messages import TreeSummary
-from ..widgets.formatting import fmt_p, num, test_words, verdict_style, verdict_word
+from ..widgets.formatting import (
+    fmt_p,
+    num,
+    stability_words,
+    test_words,
+    verdict_style,
+    verdict_word,
+)
 
 __all__ = ["CompareScreen", "compare_table"]
 
@@ -82,6 +89,8 @@ def compare_table(board: TreeSummary, a: str, b: str) -> Table:
         ("max departure", cells(lambda n: num(j[n].get("max_deviation_from_line"), 4))),
         ("warnings", cells(lambda n: "; ".join(j[n].get("warnings") or []) or "none")),
     ]
+    if board.stability is not None:
+        rows.insert(3, ("stability", cells(lambda n: stability_words(board, n))))
     for name, (va, vb) in rows:
         t.add_row(*(v if isinstance(v, Text) else Text(str(v)) for v in (name, va, vb)))
     return t

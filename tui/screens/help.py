@@ -33,7 +33,8 @@ def tree_marks() -> str:
     closed, opened = RemedyTreeView.icons()
     return (f"In the tree '*' marks the suggested node, '=' the node marked for comparison, '{closed.strip()}' a "
             f"node whose children are hidden or not grown yet (→ or Enter opens it; opening a node not grown yet "
-            f"grows it) and '{opened.strip()}' an open node.")
+            f"grows it) and '{opened.strip()}' an open node. After a stability run (t) each line shows, after its "
+            f"verdict, the share of resamples the node won; the shares go when the tree, α or rule changes.")
 
 
 def binding_sections(app) -> list[tuple[str, list[Binding]]]:

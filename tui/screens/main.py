@@ -61,6 +61,8 @@ class MainScreen(Screen):
         Binding("n", "goto_suggestion", "Suggested", show=False, id="main.suggested",
                 tooltip="Move the cursor to the suggested node"),
         Binding("e", "export", "Export", id="main.export", tooltip="Export the highlighted node: spec.json, reproduce.py and report.md in a folder"),
+        Binding("t", "stability", "Stability", show=False, id="main.stability",
+                tooltip="How often each node wins the suggestion on resampled data (Esc stops the run)"),
         Binding("1", "view('detail')", "Detail", show=False, id="main.view.detail",
                 tooltip="Show the detail of the node (numbers in words)"),
         Binding("2", "view('residuals')", "Residuals", show=False, id="main.view.residuals",
@@ -75,7 +77,7 @@ class MainScreen(Screen):
         Binding("left_square_bracket", "scroll_detail(-1)", "Detail up", show=False, id="main.detail.up",
                 tooltip="Scroll the detail pane up a page"),
         Binding("escape", "cancel", "Cancel", show=False, id="main.cancel",
-                tooltip="Stop growing (nodes scored so far stay)"),
+                tooltip="Stop growing or a stability run (what is done so far stays)"),
     ]
 
     alpha: reactive[float] = reactive(0.05, init=False)
@@ -255,7 +257,14 @@ class MainScreen(Screen):
             view.select_id(event.focus)
         self._refresh_status()
         self._show(view.highlighted_id)
-        if not event.summary.complete:
+        stab = event.summary.stability
+        if stab is not None:
+            partial = (f" (stopped after {stab.resamples} of {event.summary.stability_asked})"
+                       if stab.resamples < event.summary.stability_asked else "")
+            self.say(f"stability{partial}: {stab.reading()}")
+        elif old is not None and old.stability is not None and old.tree is event.summary.tree:
+            self.say("stability shares cleared: the tree, α or rule changed (t measures again)")
+        elif not event.summary.complete:
             self.say(f"growth stopped: {len(event.summary.nodes)} models scored; press g on a node to grow it")
         elif event.focus is not None:
             n = len(event.new_ids)
@@ -410,6 +419,29 @@ class MainScreen(Screen):
     def action_cancel(self) -> None:
         self.query_one(TreeGrower).cancel()
 
+    def action_stability(self) -> None:
+        from ..dialogs import StabilityDialog
+        from ..dialogs.stability import DEFAULT_RESAMPLES
+
+        if self._refuse_while_busy("measure stability"):
+            return
+        board = self.board
+        assert board is not None
+        if not board.complete:
+            self.say("growth was stopped part-way: grow the tree fully before measuring stability", warning=True)
+            return
+        last = board.stability
+
+        def chosen(answer: tuple[int, int] | None) -> None:
+            if answer is None or self.board is None or self.busy:
+                return
+            n, seed = answer
+            self.query_one(StatusPanel).busy(f"stability 0/{n} resamples")
+            self.query_one(TreeGrower).measure_stability(self.board, n, seed)
+
+        self.app.push_screen(StabilityDialog(board.stability_asked or DEFAULT_RESAMPLES,
+                                             0 if last is None else last.seed), chosen)
+
     def action_mark(self) -> None:
         nid = self._current()
         if nid is None or self.board is None:
@@ -519,7 +551,7 @@ class MainScreen(Screen):
                 req.path, delimiter=getattr(req, "delimiter", None), decimal=getattr(req, "decimal", None),
                 sheet=getattr(req, "sheet", None))
             written = export_node(board.tree, nid, path, force=force, data_path=req.path, reading=reading,
-                                  report=report)
+                                  report=report, rule=board.rule, stability=board.stability)
         except FileExistsError:
             def answer(yes: bool | None) -> None:
                 if yes:

@@ -14,7 +14,7 @@ from textual.strip import Strip
 
 from ..messages import TreeSummary
 from ..output import collinear_words, count, fmt_p, p_clause
-from .formatting import glyph, num, verdict_sentence, verdict_style, verdict_word
+from .formatting import glyph, num, stability_words, verdict_sentence, verdict_style, verdict_word
 
 if TYPE_CHECKING:
     from bendwise.engine.tree.results import MoveDetail
@@ -124,6 +124,12 @@ def _head_section(board: TreeSummary, nid: str) -> list[Text]:
     if not board.complete:
         parts.append(Text("growth not finished: ΔAICc and the suggestion refer to the nodes scored so far",
                           style="italic"))
+    words = stability_words(board, nid)
+    if words is not None:
+        stab = board.stability
+        parts.append(Text.assemble(("Stability", "bold"), f": {words}"))
+        parts.append(Text(f"{stab.reading()}; the same as grow --stability {board.stability_asked} --seed "
+                          f"{stab.seed} (t measures again)", style="dim"))
     return parts
 
 

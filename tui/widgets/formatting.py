@@ -22,6 +22,8 @@ __all__ = [
     "verdict_word",
     "verdict_sentence",
     "tree_label",
+    "share_text",
+    "stability_words",
     "test_words",
     "VERDICT_STYLE",
     "verdict_style",
@@ -117,8 +119,10 @@ def short_move(node: Any) -> str:
     return move.split(" (")[0].split(";")[0]
 
 
-def tree_label(node: Any, json: dict, alpha: float, *, suggested: bool, marked: bool) -> Text:
-    """'*n6   pass + x²' — mark (* suggested, = marked), id, verdict word, the move from the parent."""
+def tree_label(node: Any, json: dict, alpha: float, *, suggested: bool, marked: bool,
+               share: float | None = None) -> Text:
+    """'*n6   pass + x²' — mark (* suggested, = marked), id, verdict word, the move from the parent;
+    after a stability run the node's share of resamples follows the verdict ('pass  83% + x²')."""
     word = verdict_word(json, alpha)
     lead = "*" if suggested else ("=" if marked else " ")
     text = Text.assemble(
@@ -126,10 +130,29 @@ def tree_label(node: Any, json: dict, alpha: float, *, suggested: bool, marked: 
         (f"{node.id:<4} ", "bold" if suggested else ""),
         (word, verdict_style(word)),
         " " * (5 - len(word)) if len(word) < 5 else " ",
-        short_move(node),
     )
+    if share is not None:  # a node never suggested gets a dot: the lines stay readable
+        text.append(f"{share_text(share) if share > 0 else '·':>4} ", "bold" if share >= 0.5 else "dim")
+    text.append(short_move(node))
     if suggested and marked:
         text.append(" (marked)", "bold")
+    return text
+
+
+def share_text(share: float) -> str:
+    """A share of resamples as a whole percentage ('83%'; '<1%' when won rarely but not never)."""
+    pct = 100 * share
+    return "<1%" if 0 < pct < 0.5 else f"{pct:.0f}%"
+
+
+def stability_words(board: Any, nid: str) -> str | None:
+    """'wins 83 % of 200 resamples (seed 0, rule aicc)' for a node after a stability run, else None."""
+    stab = board.stability
+    if stab is None:
+        return None
+    text = f"wins {share_text(stab.share(nid))} of {stab.resamples} resamples (seed {stab.seed}, rule {stab.rule})"
+    if stab.resamples < board.stability_asked:
+        text += f"; partial: stopped after {stab.resamples} of {board.stability_asked}"
     return text
 
 

@@ -121,6 +121,11 @@ class TreeGrower(Widget):
         self.busy = True
         self._rejudge(board, alpha, rule)
 
+    def measure_stability(self, board: TreeSummary, resamples: int, seed: int) -> None:
+        """Regrow the tree on ``resamples`` resamples and count how often each node is suggested."""
+        self.busy = True
+        self._stability(board, resamples, seed)
+
     def cancel(self) -> None:
         """Stop growing after the current step (nodes scored so far stay)."""
         if self.busy:
@@ -250,4 +255,28 @@ class TreeGrower(Widget):
             except Exception as exc:  # noqa: BLE001
                 tree.alpha = before
                 return self._done(Growth(None, error=failure_line(exc)))
+        return self._done(Growth(summary))
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="tree")
+    def _stability(self, board: TreeSummary, resamples: int, seed: int) -> Growth:
+        """The same computation as ``grow --stability N --seed S`` (engine.tree.stability), with
+        progress per resample; a stopped run keeps the resamples done (the board says how many)."""
+        from bendwise.engine.tree.stability import selection_stability
+
+        worker = get_current_worker()
+        tree = board.tree
+
+        def tick(done: int, total: int) -> None:
+            self.post_message(self.Progressed(done, total, f"stability {done}/{total} resamples", 0))
+
+        with self._lock:
+            self.post_message(self.Progressed(0, resamples, f"stability 0/{resamples} resamples", 0))
+            try:
+                stab = selection_stability(tree, resamples, depth=self.depth, seed=seed, rule=board.rule,
+                                           progress=tick, cancel=lambda: worker.is_cancelled)
+                summary = TreeSummary.take(tree, board.rule, board.check, complete=board.complete)
+            except Exception as exc:  # noqa: BLE001 - one line in the status row
+                return self._done(Growth(None, error=f"stability not measured: {failure_line(exc)}"))
+        summary.errors.update(board.errors)
+        summary.stability, summary.stability_asked = stab, resamples
         return self._done(Growth(summary))

@@ -116,9 +116,11 @@ class RemedyTreeView(Tree[str]):
         key = None if sort == "moves" else board.tree.sort_key(sort)
         suggested = board.suggestion.node if board.suggestion is not None else None
 
+        stab = board.stability
+
         def label(nid: str):
             return tree_label(board.nodes[nid], board.json[nid], board.alpha, suggested=nid == suggested,
-                              marked=nid == marked)
+                              marked=nid == marked, share=None if stab is None else stab.share(nid))
 
         self.root.set_label(label("root"))
         self.root.data = "root"
