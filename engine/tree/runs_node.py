@@ -32,7 +32,7 @@ from ..errors import UsageError
 from ..stats.dist import f_sf
 from ..stats.results import Criteria, criteria_from
 
-__all__ = ["NodeRuns", "RunDesignSums", "design_sums", "profile_fit", "fit_runs", "within_run_lof", "node_runs", "node_rows", "score_runs", "apply_runs"]
+__all__ = ["NodeRuns", "RunDesignSums", "design_sums", "profile_fit", "fit_runs", "within_run_lof", "node_runs", "node_rows", "score_runs", "apply_runs", "raw_fixed"]
 
 CRITERIA_NOTE = ("criteria from the ML log-likelihood of the random-intercept model (original y scale, Jacobian "
                  "added); the SDs are REML")
@@ -192,6 +192,14 @@ class NodeRuns:
     lack_of_fit: LackOfFit
     beta: tuple[float, ...]
     """GLS coefficients at the REML estimates (the node's working basis)."""
+    cov: np.ndarray
+    """Covariance of ``beta`` at the REML estimates, (X′V⁻¹X)⁻¹ (working basis)."""
+    var_cov: np.ndarray
+    """Asymptotic covariance of (σ_w², σ_b²): inverse of the observed REML information."""
+    run_sizes: tuple[int, ...]
+    """Rows in each run."""
+    blups: tuple[float, ...]
+    """Each run's predicted offset (BLUP) on the node's scale: σ_b²/(σ_w² + nσ_b²) · its residual total."""
 
     def as_json(self) -> dict:
         """``runs`` of a node in ``grow --json``."""
@@ -255,6 +263,7 @@ def node_runs(x: np.ndarray, z: np.ndarray, jac: float, runs: RunFactor, setting
     ds, s2, tau, ll_reml, ll_ml = fit_runs(x, z, runs)
     a, b, _, _ = _pieces(ds, tau / s2)
     beta = np.linalg.lstsq(a, b, rcond=None)[0]
+    blups = tau / (s2 + ds.n * tau) * (ds.sz - ds.s @ beta)
     rank = int(np.linalg.matrix_rank(ds.xx.sum(axis=0)))
     crit = criteria_from(ll_ml + jac, rank + 2 + extra_params, ds.total)
     if rank < x.shape[1]:
@@ -265,8 +274,35 @@ def node_runs(x: np.ndarray, z: np.ndarray, jac: float, runs: RunFactor, setting
         method="REML random run intercept, maximised from per-run sums of the node's design",
         loglik_reml=ll_reml, loglik_ml=ll_ml, criteria=crit,
         lack_of_fit=within_run_lof(x, z, runs.codes, runs.count, setting),
-        beta=tuple(float(v) for v in beta),
+        beta=tuple(float(v) for v in beta), cov=s2 * np.linalg.pinv(a), var_cov=_variance_cov(ds, s2, tau),
+        run_sizes=tuple(int(v) for v in ds.n), blups=tuple(float(v) for v in blups),
     )
+
+
+def _variance_cov(ds: RunDesignSums, s2: float, tau: float) -> np.ndarray:
+    """Inverse of the observed REML information of (σ_w², σ_b²) by central differences."""
+    h = np.array([1e-4 * s2, 1e-4 * max(tau, 1e-2 * s2)])
+    theta = np.array([s2, tau])
+
+    def ll(v: np.ndarray) -> float:
+        return _loglik_at(ds, float(v[0]), float(v[1]))
+
+    hess = np.empty((2, 2))
+    for i in range(2):
+        for j in range(2):
+            ei, ej = np.eye(2)[i] * h[i], np.eye(2)[j] * h[j]
+            hess[i, j] = (ll(theta + ei + ej) - ll(theta + ei - ej) - ll(theta - ei + ej)
+                          + ll(theta - ei - ej)) / (4 * h[i] * h[j])
+    return np.linalg.pinv(-hess)
+
+
+def raw_fixed(study, spec, nr: NodeRuns) -> tuple[np.ndarray, np.ndarray]:
+    """The run model's coefficients and their covariance in the node's raw basis (as the spec stores them)."""
+    from .scoring import build_design, model_frame
+
+    design, _ = build_design(study, spec, model_frame(study, spec))
+    to_raw = design.to_raw.astype(float)
+    return to_raw @ np.asarray(nr.beta), to_raw @ nr.cov @ to_raw.T
 
 
 def node_rows(study, spec) -> tuple[np.ndarray, np.ndarray, float]:

@@ -53,6 +53,9 @@ def register(sub: argparse._SubParsersAction) -> None:
                    "the model saw, a number, or 'average' (a categorical covariate averaged over its categories "
                    "with equal weight: the average curve over, say, the calibration days; a new day's own shift "
                    "is not in the interval). Repeat for several covariates")
+    p.add_argument("--run", metavar="NAME",
+                   help="with a spec exported with --runs: the reading comes from this run of the calibration "
+                   "(its own offset); without it, from a new run (between-run SD in the interval)")
     p.add_argument("--sheet", metavar="NAME", help="Excel sheet of NEWDATA (default: the first)")
     p.add_argument("--decimal", choices=[".", ","], help="decimal mark of NEWDATA (default .)")
     p.add_argument("--delimiter", metavar="CHAR", help="field separator of NEWDATA (default: detected)")
@@ -86,6 +89,14 @@ def run(args: argparse.Namespace) -> int:
     if args.replicates != 1 and not args.inverse:
         raise UsageError("--replicates applies to --inverse only (it says how many readings each response averages)")
     doc, model = load_spec(args.spec)
+    runs_note = None
+    from bendwise.engine.handon.runs_spec import model_for_run, read_runs
+
+    runs = read_runs(doc, model)
+    if runs is not None:
+        model, runs_note = model_for_run(model, runs, args.run, args.replicates)
+    elif args.run is not None:
+        raise UsageError("--run needs a spec exported with --runs; this one has no runs")
     delim = "\t" if args.delimiter in {"\\t", "tab", "TAB"} else args.delimiter
     frame = load_table(args.newdata, sheet=args.sheet, decimal=args.decimal, delimiter=delim)
     label = doc.get("node", {}).get("label", "") if isinstance(doc.get("node"), dict) else ""
@@ -106,6 +117,8 @@ def run(args: argparse.Namespace) -> int:
         pred = predict_forward(model, inp.values, inp.covs, level=args.level, user_w=inp.user_w)
         rows = pred.rows(inp.cov_text)
         text = _render_forward(model, rows, args.level, label, pred.ci_of)
+    if runs_note:
+        text.insert(1, "  " + runs_note)
     if held:
         text.insert(1, "  held for every row: " + ", ".join(f"{k} = {v}" for k, v in held.items())
                     + ("; 'average' is the average curve over the categories, without a new category's own shift"
@@ -121,6 +134,7 @@ def run(args: argparse.Namespace) -> int:
             "level": args.level,
             "replicates": args.replicates if args.inverse else None,
             **({"held": held} if held else {}),
+            **({"runs": {"run": args.run, "note": runs_note, "df": model.df_resid}} if runs_note else {}),
             "rows": rows,
             "caution": CAUTION,
         })
