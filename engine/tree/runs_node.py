@@ -32,7 +32,7 @@ from ..errors import UsageError
 from ..stats.dist import f_sf
 from ..stats.results import Criteria, criteria_from
 
-__all__ = ["NodeRuns", "RunDesignSums", "design_sums", "profile_fit", "fit_runs", "within_run_lof", "node_runs", "node_rows", "score_runs", "apply_runs", "raw_fixed"]
+__all__ = ["NodeRuns", "RunDesignSums", "design_sums", "profile_fit", "fit_runs", "within_run_lof", "node_runs", "node_rows", "score_runs", "apply_runs", "raw_fixed", "gls_at", "variance_cov"]
 
 CRITERIA_NOTE = ("criteria from the ML log-likelihood of the random-intercept model (original y scale, Jacobian "
                  "added); the SDs are REML")
@@ -261,9 +261,7 @@ def node_runs(x: np.ndarray, z: np.ndarray, jac: float, runs: RunFactor, setting
               extra_params: int) -> NodeRuns:
     """Everything ``--runs`` adds to one node: REML SDs with interval, ML criteria, within-run lack of fit."""
     ds, s2, tau, ll_reml, ll_ml = fit_runs(x, z, runs)
-    a, b, _, _ = _pieces(ds, tau / s2)
-    beta = np.linalg.lstsq(a, b, rcond=None)[0]
-    blups = tau / (s2 + ds.n * tau) * (ds.sz - ds.s @ beta)
+    beta, cov, blups = gls_at(ds, s2, tau)
     rank = int(np.linalg.matrix_rank(ds.xx.sum(axis=0)))
     crit = criteria_from(ll_ml + jac, rank + 2 + extra_params, ds.total)
     if rank < x.shape[1]:
@@ -274,12 +272,20 @@ def node_runs(x: np.ndarray, z: np.ndarray, jac: float, runs: RunFactor, setting
         method="REML random run intercept, maximised from per-run sums of the node's design",
         loglik_reml=ll_reml, loglik_ml=ll_ml, criteria=crit,
         lack_of_fit=within_run_lof(x, z, runs.codes, runs.count, setting),
-        beta=tuple(float(v) for v in beta), cov=s2 * np.linalg.pinv(a), var_cov=_variance_cov(ds, s2, tau),
+        beta=tuple(float(v) for v in beta), cov=cov, var_cov=variance_cov(ds, s2, tau),
         run_sizes=tuple(int(v) for v in ds.n), blups=tuple(float(v) for v in blups),
     )
 
 
-def _variance_cov(ds: RunDesignSums, s2: float, tau: float) -> np.ndarray:
+def gls_at(ds: RunDesignSums, s2: float, tau: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """GLS coefficients, their covariance (X′V⁻¹X)⁻¹ and each run's BLUP at σ_w² and σ_b²."""
+    a, b, _, _ = _pieces(ds, tau / s2)
+    beta = np.linalg.lstsq(a, b, rcond=None)[0]
+    blups = tau / (s2 + ds.n * tau) * (ds.sz - ds.s @ beta)
+    return beta, s2 * np.linalg.pinv(a), blups
+
+
+def variance_cov(ds: RunDesignSums, s2: float, tau: float) -> np.ndarray:
     """Inverse of the observed REML information of (σ_w², σ_b²) by central differences."""
     h = np.array([1e-4 * s2, 1e-4 * max(tau, 1e-2 * s2)])
     theta = np.array([s2, tau])
