@@ -152,6 +152,28 @@ def _stability_section(tree: RemedyTree, node_id: str, stab: dict[str, Any] | No
     return out + [""]
 
 
+def _runs_section(runs: dict[str, Any] | None) -> list[str]:
+    """Between- and within-run SDs, the within-run test and what apply does with them (``--runs`` only)."""
+    if not runs:
+        return []
+    iv = runs["between_sd_interval"]
+    hi = _n(iv["high"], 4) if iv["high"] is not None else "unbounded"
+    out = ["## Runs", "",
+           f"{_code(runs['column'])}: {runs['count']} runs, each with its own random offset (intercept) on the "
+           "model's scale; the mean curve is the node's.", "",
+           f"- Between-run SD {_n(runs['between_sd'], 5)} (95 % profile-likelihood interval {_n(iv['low'], 4)} … {hi})",
+           f"- Within-run SD {_n(runs['within_sd'], 5)}",
+           f"- Method: {_free(runs['method'])}",
+           f"- Lack of fit within runs: {_test_line(runs['lack_of_fit_within_runs'])}",
+           "- Criteria in this report come from the ML log-likelihood of the run model (original y scale, "
+           "Jacobian added), so nodes compare like with like.", ""]
+    rows = [[_code(label, table=True), _n(u, 5)] for label, u in zip(runs["labels"], runs["blups"], strict=True)]
+    out += _md_table(["run", "offset (BLUP)"], rows)
+    out += ["", "`bendwise apply` with this spec gives intervals for a reading from a new run (between-run SD "
+            "included; " + _free(runs["df_method"]) + "), or with `--run NAME` for a run above.", ""]
+    return out
+
+
 def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     """The report of one exported node (``doc`` is its spec document)."""
     from ..tree.residuals import residuals_by_level
@@ -283,6 +305,7 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
                  else "This export is NOT the suggested node: it was chosen by hand."), ""]
 
     out += _stability_section(tree, node_id, doc.get("stability"))
+    out += _runs_section(doc.get("runs"))
 
     # limits
     out += ["## Detection and quantitation limits", ""]
