@@ -91,7 +91,7 @@ def test_new_run_intervals_cover_a_small_quick_version():
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("k", [4, 6, 8])
+@pytest.mark.parametrize("k", [4, 5, 6, 8])
 def test_new_run_intervals_cover_95_percent(k):
     runs, fixed = coverage(1000, k, seed=100 + k)
     assert 0.93 <= runs <= 0.97
