@@ -157,12 +157,17 @@ def _runs_section(runs: dict[str, Any] | None) -> list[str]:
     if not runs:
         return []
     iv = runs["between_sd_interval"]
-    hi = _n(iv["high"], 4) if iv["high"] is not None else "unbounded"
+    shown = "no interval with random slopes"
+    if iv["low"] is not None:
+        shown = "95 % profile-likelihood interval " + _n(iv["low"], 4) + " … " + (
+            _n(iv["high"], 4) if iv["high"] is not None else "unbounded")
     out = ["## Runs", "",
            f"{_code(runs['column'])}: {runs['count']} runs, each with its own random offset (intercept) on the "
            "model's scale; the mean curve is the node's.", "",
-           f"- Between-run SD {_n(runs['between_sd'], 5)} (95 % profile-likelihood interval {_n(iv['low'], 4)} … {hi})",
+           f"- Between-run SD {_n(runs['between_sd'], 5)} ({shown})",
            f"- Within-run SD {_n(runs['within_sd'], 5)}",
+           *([f"- Random slopes: slope SD {_n(runs['slopes']['slope_sd'], 5)}; between-run SD above is the "
+              "intercepts' SD at x = 0"] if runs.get("slopes") else []),
            f"- Method: {_free(runs['method'])}",
            f"- Lack of fit within runs: {_test_line(runs['lack_of_fit_within_runs'])}",
            "- Criteria in this report come from the ML log-likelihood of the run model (original y scale, "

@@ -39,8 +39,13 @@ def runs_block(tree, node) -> dict[str, Any]:
     if nr is None:
         raise UsageError(f"node {node.id} has no run model ({node.runs_error}); export another node or drop --runs")
     beta, cov = raw_fixed(tree.study, node.spec, nr)
-    lo, hi = nr.between_sd_interval
-    return {
+    lo, hi = nr.between_sd_interval if nr.between_sd_interval is not None else (None, None)
+    slopes = {} if nr.slopes is None else {"slopes": {
+        "covariance": nr.slopes.d.tolist(), "theta_covariance": nr.slopes.theta_cov.tolist(),
+        "blups": nr.slopes.blups.tolist(), "pev": nr.slopes.pev.tolist(),
+        "slope_sd": nr.slopes.slope_sd, "correlation": nr.slopes.correlation,
+        "note": "each run's (intercept, slope) offsets in the raw basis; between_sd is the intercepts' SD at x = 0"}}
+    return {**slopes,
         "column": nr.column, "count": nr.count, "labels": list(tree.runs.labels), "run_sizes": list(nr.run_sizes),
         "between_sd": nr.between_sd, "within_sd": nr.within_sd,
         "between_sd_interval": {"low": lo, "high": hi, "level": 0.95}, "method": nr.method,
@@ -64,6 +69,14 @@ class HandedRuns:
     cov: np.ndarray
     var_cov: np.ndarray
     blups: np.ndarray
+    slope_cov: np.ndarray | None = None
+    """With random slopes: covariance D of a run's (intercept, slope) offsets (raw basis)."""
+    theta_cov: np.ndarray | None = None
+    """With random slopes: covariance of (σ_w², D₀₀, D₀₁, D₁₁)."""
+    slope_blups: np.ndarray | None = None
+    """With random slopes: each run's (intercept, slope) offsets (k × 2)."""
+    pev: np.ndarray | None = None
+    """With random slopes: prediction error covariance of each run's offsets (k × 2 × 2)."""
 
 
 def _nums(v: Any, where: str, count: int | None = None) -> np.ndarray:
@@ -98,11 +111,27 @@ def read_runs(doc: dict, model: HandedModel) -> HandedRuns | None:
     sds = _nums([block.get("between_sd"), block.get("within_sd")], "between_sd/within_sd", 2)
     if sds[0] < 0 or sds[1] <= 0:
         raise SpecError("spec fields runs.between_sd ≥ 0 and runs.within_sd > 0 are needed; export the model again")
-    return HandedRuns(column, tuple(labels), _nums(block.get("run_sizes"), "run_sizes", k), float(sds[0]),
+    base = HandedRuns(column, tuple(labels), _nums(block.get("run_sizes"), "run_sizes", k), float(sds[0]),
                       float(sds[1]), _nums(block.get("coefficients"), "coefficients", p),
                       _matrix(block.get("covariance"), "covariance", p),
                       _matrix(block.get("variance_covariance"), "variance_covariance", 2),
                       _nums(block.get("blups"), "blups", k))
+    sl = block.get("slopes")
+    if sl is None:
+        return base
+    if not isinstance(sl, dict) or not model.is_line:
+        raise SpecError("spec field runs.slopes must be an object, on a straight line; export the model again")
+    pev = sl.get("pev")
+    if not isinstance(pev, list) or len(pev) != k:
+        raise SpecError(f"spec field runs.slopes.pev must hold {k} 2×2 matrices; export the model again")
+    blups = sl.get("blups")
+    if not isinstance(blups, list) or len(blups) != k:
+        raise SpecError(f"spec field runs.slopes.blups must hold {k} pairs; export the model again")
+    return dataclasses.replace(
+        base, slope_cov=_matrix(sl.get("covariance"), "slopes.covariance", 2),
+        theta_cov=_matrix(sl.get("theta_covariance"), "slopes.theta_covariance", 4),
+        slope_blups=np.vstack([_nums(b, "slopes.blups", 2) for b in blups]),
+        pev=np.stack([_matrix(m, "slopes.pev", 2) for m in pev]))
 
 
 def satterthwaite(v_of, s2: float, tau: float, w: np.ndarray) -> float:
@@ -115,6 +144,49 @@ def satterthwaite(v_of, s2: float, tau: float, w: np.ndarray) -> float:
     return 2 * v * v / var if var > 0 else math.inf
 
 
+def _embed(model: HandedModel, cov: np.ndarray, block: np.ndarray) -> np.ndarray:
+    """``cov`` plus a 2 × 2 block on the (intercept, slope) terms of a straight line."""
+    idx = [next(j for j, t in enumerate(model.terms) if (t.kind, t.power) == key) for key in (("const", 0), ("tpow", 1))]
+    out = cov.copy()
+    out[np.ix_(idx, idx)] += block
+    return out
+
+
+def _slopes_model(model: HandedModel, runs: HandedRuns, run: str | None, m: float) -> tuple[HandedModel, str]:
+    """Random intercept and slope: the run's (intercept, slope) variance joins the coefficients' covariance."""
+    assert runs.slope_cov is not None and runs.theta_cov is not None and runs.pev is not None
+    s2 = runs.within_sd**2
+    beta = runs.beta.copy()
+    if run is None:
+        xc = (model.x_min + model.x_max) / 2
+        z = np.array([1.0, xc])
+        v = float(z @ runs.slope_cov @ z) + s2 / m
+        g = np.array([1.0 / m, 1.0, 2.0 * xc, xc * xc])
+        var = float(g @ runs.theta_cov @ g)
+        nu = min(2 * v * v / var if var > 0 else math.inf, float(runs.run_sizes.sum()) - 2)
+        cov = _embed(model, runs.cov, runs.slope_cov)
+        what = (f"a new {runs.column} (its own intercept and slope; t on {nu:.3g} df, Satterthwaite 1946 at the "
+                f"middle of the calibrated range, x = {xc:.4g})")
+    else:
+        i = _run_index(runs, run)
+        assert runs.slope_blups is not None
+        idx = [next(j for j, t in enumerate(model.terms) if (t.kind, t.power) == key) for key in (("const", 0), ("tpow", 1))]
+        beta[idx] += runs.slope_blups[i]
+        cov = _embed(model, runs.cov, runs.pev[i])
+        nu = float(runs.run_sizes.sum()) - 2 * len(runs.labels)
+        what = f"{runs.column} {run!r} (its own intercept and slope offsets; t on the within-run {nu:.0f} df)"
+    out = dataclasses.replace(model, beta=beta, cov=cov, sigma=math.sqrt(s2), df_resid=nu)  # type: ignore[arg-type]
+    return out, f"intervals for a reading from {what}"
+
+
+def _run_index(runs: HandedRuns, run: str) -> int:
+    if run not in runs.labels:
+        shown = ", ".join(repr(s) for s in runs.labels[:8])
+        raise UsageError(f"--run {run!r} is not a {runs.column} of the calibration ({shown}); "
+                         "leave --run out for a new one")
+    return runs.labels.index(run)
+
+
 def model_for_run(model: HandedModel, runs: HandedRuns, run: str | None, replicates: int) -> tuple[HandedModel, str]:
     """The model ``predict``/``inverse`` use for a reading from a new run (``run`` None) or a known run.
 
@@ -122,17 +194,15 @@ def model_for_run(model: HandedModel, runs: HandedRuns, run: str | None, replica
     reading's variance for m = ``replicates``; ``df_resid`` is Satterthwaite's ν.
     """
     s2, tau, m = runs.within_sd**2, runs.between_sd**2, float(replicates)
+    if runs.slope_cov is not None:
+        return _slopes_model(model, runs, run, m)
     beta = runs.beta.copy()
     if run is None:
         def v_of(a: float, b: float) -> float:
             return b + a / m
         what = f"a new {runs.column} (between-run SD {runs.between_sd:.4g} included)"
     else:
-        if run not in runs.labels:
-            shown = ", ".join(repr(s) for s in runs.labels[:8])
-            raise UsageError(f"--run {run!r} is not a {runs.column} of the calibration ({shown}); "
-                             "leave --run out for a new one")
-        i = runs.labels.index(run)
+        i = _run_index(runs, run)
         n_i = float(runs.run_sizes[i])
         const = [j for j, t in enumerate(model.terms) if t.kind == "const"]
         if not const:

@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -31,6 +32,9 @@ from ..checks.runs import INTERVAL_LEVEL, RunFactor
 from ..errors import UsageError
 from ..stats.dist import f_sf
 from ..stats.results import Criteria, criteria_from
+
+if TYPE_CHECKING:
+    from .runs_slopes import SlopeParts
 
 __all__ = ["NodeRuns", "RunDesignSums", "design_sums", "profile_fit", "fit_runs", "within_run_lof", "node_runs", "node_rows", "score_runs", "apply_runs", "raw_fixed", "gls_at", "variance_cov"]
 
@@ -182,7 +186,8 @@ class NodeRuns:
     count: int
     between_sd: float
     within_sd: float
-    between_sd_interval: tuple[float, float | None]
+    between_sd_interval: tuple[float, float | None] | None
+    """Profile REML interval for σ_b (None with random slopes)."""
     method: str
     loglik_reml: float
     loglik_ml: float
@@ -200,18 +205,28 @@ class NodeRuns:
     """Rows in each run."""
     blups: tuple[float, ...]
     """Each run's predicted offset (BLUP) on the node's scale: σ_b²/(σ_w² + nσ_b²) · its residual total."""
+    slopes: SlopeParts | None = None
+    """With ``--run-slopes`` (straight line only): random intercept and slope, raw basis."""
 
     def as_json(self) -> dict:
         """``runs`` of a node in ``grow --json``."""
-        lo, hi = self.between_sd_interval
+        iv = None
+        if self.between_sd_interval is not None:
+            lo, hi = self.between_sd_interval
+            iv = {"low": lo, "high": hi, "level": INTERVAL_LEVEL,
+                  "method": "profile REML likelihood (χ²₁ cut-off, σ_w profiled out)"}
+        extra = {} if self.slopes is None else {"slopes": {
+            "slope_sd": self.slopes.slope_sd, "correlation": self.slopes.correlation,
+            "covariance": [[float(v) for v in row] for row in self.slopes.d],
+            "note": "between_sd is the SD of the runs' intercepts at x = 0; random effects in the raw basis"}}
         return {
             "column": self.column, "count": self.count, "between_sd": self.between_sd, "within_sd": self.within_sd,
-            "between_sd_interval": {"low": lo, "high": hi, "level": INTERVAL_LEVEL,
-                                    "method": "profile REML likelihood (χ²₁ cut-off, σ_w profiled out)"},
+            "between_sd_interval": iv,
             "method": self.method,
             "criteria": {"aic": self.criteria.aic, "aicc": self.criteria.aicc, "bic": self.criteria.bic,
                          "k": self.criteria.k, "loglik_ml": self.criteria.loglik, "note": CRITERIA_NOTE},
             "lack_of_fit_within_runs": self.lack_of_fit.as_json(),
+            **extra,
         }
 
 
@@ -258,7 +273,7 @@ def within_run_lof(x: np.ndarray, z: np.ndarray, run_codes: np.ndarray, k: int, 
 
 
 def node_runs(x: np.ndarray, z: np.ndarray, jac: float, runs: RunFactor, setting: np.ndarray,
-              extra_params: int) -> NodeRuns:
+              extra_params: int, interval: bool = True) -> NodeRuns:
     """Everything ``--runs`` adds to one node: REML SDs with interval, ML criteria, within-run lack of fit."""
     ds, s2, tau, ll_reml, ll_ml = fit_runs(x, z, runs)
     beta, cov, blups = gls_at(ds, s2, tau)
@@ -268,7 +283,7 @@ def node_runs(x: np.ndarray, z: np.ndarray, jac: float, runs: RunFactor, setting
         raise UsageError("the node's terms are collinear: its run model cannot be fitted in full")
     return NodeRuns(
         column=runs.name, count=runs.count, between_sd=math.sqrt(tau), within_sd=math.sqrt(s2),
-        between_sd_interval=between_interval(ds, s2, tau),
+        between_sd_interval=between_interval(ds, s2, tau) if interval else None,
         method="REML random run intercept, maximised from per-run sums of the node's design",
         loglik_reml=ll_reml, loglik_ml=ll_ml, criteria=crit,
         lack_of_fit=within_run_lof(x, z, runs.codes, runs.count, setting),
@@ -320,17 +335,45 @@ def node_rows(study, spec) -> tuple[np.ndarray, np.ndarray, float]:
     return _row_design(study, design, fr), np.asarray(fr.z, dtype=float), float(fr.jac)
 
 
-def score_runs(study, spec, runs: RunFactor) -> NodeRuns:
-    """``node_runs`` for a node of the tree; refuses weighted nodes with one line."""
+def score_runs(study, spec, runs: RunFactor, slopes: bool = False) -> NodeRuns:
+    """``node_runs`` for a node of the tree (``slopes``: random slopes too, straight line only);
+    refuses weighted nodes, and random slopes on other nodes, with one line."""
+    from .model_spec import ModelSpec
+
     if spec.weights is not None:
         raise UsageError("power-of-mean weights and a random run intercept are not fitted together; "
                          "the run model is unweighted")
+    if slopes and spec != ModelSpec():
+        raise UsageError("--run-slopes: random run slopes are fitted for the straight line only; drop "
+                         "--run-slopes to compare this node")
     x, z, jac = node_rows(study, spec)
     setting, _ = study.group_codes(tuple(spec.covariates))
-    return node_runs(x, z, jac, runs, np.asarray(setting), spec.extra_params)
+    out = node_runs(x, z, jac, runs, np.asarray(setting), spec.extra_params, interval=not slopes)
+    return with_slopes(study, spec, out, x, z, jac, runs) if slopes else out
 
 
-def apply_runs(study, node, runs: RunFactor) -> None:
+def with_slopes(study, spec, base: NodeRuns, x: np.ndarray, z: np.ndarray, jac: float, runs: RunFactor) -> NodeRuns:
+    """The straight line's run model with random intercept AND slope (engine.tree.runs_slopes)."""
+    import dataclasses
+
+    from .runs_slopes import fit_slopes, slope_parts
+    from .scoring import build_design, model_frame
+
+    ds = design_sums(x, z, runs.codes, runs.count)
+    start = (base.between_sd / base.within_sd) ** 2
+    reml, ml = fit_slopes(ds, True, start), fit_slopes(ds, False, start)
+    to_raw = build_design(study, spec, model_frame(study, spec))[0].to_raw.astype(float)
+    parts = slope_parts(ds, reml, to_raw)
+    crit = criteria_from(ml.loglik + jac, x.shape[1] + 4 + spec.extra_params, ds.total)
+    return dataclasses.replace(
+        base, between_sd=math.sqrt(max(float(parts.d[0, 0]), 0.0)), within_sd=math.sqrt(reml.s2),
+        between_sd_interval=None, loglik_reml=reml.loglik, loglik_ml=ml.loglik, criteria=crit,
+        method="REML random run intercept and slope (straight line), maximised from per-run sums",
+        beta=tuple(float(v) for v in reml.beta), cov=reml.cov, blups=tuple(float(v) for v in parts.blups[:, 0]),
+        slopes=parts)
+
+
+def apply_runs(study, node, runs: RunFactor, slopes: bool = False) -> None:
     """Attach the run model to a scored tree node: its within-run lack of fit becomes the node's
     lack-of-fit test and its ML criteria the node's criteria (like with like across nodes); a node
     whose run model cannot be fitted keeps no criteria, so it is never ranked against the others."""
@@ -340,7 +383,7 @@ def apply_runs(study, node, runs: RunFactor) -> None:
 
     s = node.score
     try:
-        node.runs = score_runs(study, node.spec, runs)
+        node.runs = score_runs(study, node.spec, runs, slopes)
     except BendwiseError as exc:
         node.runs_error = str(exc)
         crit = Criteria(math.nan, s.criteria.k, s.criteria.n, None, None, None)

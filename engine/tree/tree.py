@@ -99,7 +99,7 @@ class RemedyTree:
     """The candidate tree on one study; deterministic order, cached and deduplicated."""
 
     def __init__(self, study: Study, *, alpha: float = 0.05, allowable_deviation: float | None = None,
-                 runs: str | None = None) -> None:
+                 runs: str | None = None, run_slopes: bool = False) -> None:
         if not 0 < alpha < 1:
             raise UsageError(f"alpha {alpha!r} must lie strictly between 0 and 1, e.g. 0.05")
         if allowable_deviation is not None and not allowable_deviation > 0:
@@ -109,6 +109,10 @@ class RemedyTree:
         self.allowable_deviation = allowable_deviation
         self.runs = None if runs is None else run_factor(study, runs)
         """The runs column as a factor (random intercept in every node), or None."""
+        if run_slopes and runs is None:
+            raise UsageError("--run-slopes needs --runs COL (the column naming the runs)")
+        self.run_slopes = run_slopes
+        """Random run slopes too (the straight line only; other nodes are refused with a reason)."""
         self.nodes: dict[str, Node] = {}
         self._by_spec: dict[ModelSpec, str] = {}
         self._aside: dict[ModelSpec, NodeScore | None] = {}
@@ -131,7 +135,7 @@ class RemedyTree:
         except BendwiseError as exc:
             node.error = str(exc)
         if self.runs is not None and node.score is not None:
-            apply_runs(self.study, node, self.runs)
+            apply_runs(self.study, node, self.runs, self.run_slopes)
         if node.parent is not None:
             node.nested = _nested(self.nodes[node.parent], node)
 

@@ -37,6 +37,9 @@ def add_runs_arg(p: argparse.ArgumentParser) -> None:
     p.add_argument("--runs", metavar="COL",
                    help="column naming the run (day, batch, instrument): every node gets a random run intercept, "
                    "between-/within-run SDs and lack of fit within runs; criteria from ML fits")
+    p.add_argument("--run-slopes", action="store_true",
+                   help="with --runs: each run also gets its own slope (the straight line only; other nodes are "
+                   "refused with a reason)")
 
 
 def add_stability_args(p: argparse.ArgumentParser) -> None:
@@ -103,7 +106,7 @@ def build_tree(args: argparse.Namespace, progress=None):
     else:
         study = load_study(args)
     tree = RemedyTree(study, alpha=args.alpha, allowable_deviation=getattr(args, "allowable_deviation", None),
-                      runs=runs or None)
+                      runs=runs or None, run_slopes=bool(getattr(args, "run_slopes", False)))
     tree.grow(args.depth, progress)
     return study, tree
 
@@ -217,16 +220,22 @@ def render(study, tree, rule: str) -> list[str]:
 def render_runs(tree, rule: str) -> list[str]:
     """The runs table: between- and within-run SD per node, and what the tests and criteria mean."""
     r = tree.runs
-    out = ["", f"Runs · {r.name}: {r.count} runs as a random intercept in every node"]
+    kind = "a random intercept and slope (straight line only)" if tree.run_slopes else "a random intercept in every node"
+    out = ["", f"Runs · {r.name}: {r.count} runs as {kind}"]
     rows = []
     for n in sorted(tree.nodes.values(), key=tree.sort_key(rule)):
         if n.runs is None:
             rows.append([n.id, "—", "—", "—", (n.runs_error or n.error or "")[:60]])
             continue
-        lo, hi = n.runs.between_sd_interval
-        rows.append([n.id, fmt_num(n.runs.between_sd, 4),
-                     f"{fmt_num(lo, 3)} … {fmt_num(hi, 3) if hi is not None else 'unbounded'}",
-                     fmt_num(n.runs.within_sd, 4), ""])
+        iv, note = "—", ""
+        if n.runs.between_sd_interval is not None:
+            lo, hi = n.runs.between_sd_interval
+            iv = f"{fmt_num(lo, 3)} … {fmt_num(hi, 3) if hi is not None else 'unbounded'}"
+        if n.runs.slopes is not None:
+            c = n.runs.slopes.correlation
+            note = (f"intercept SD at x = 0; slope SD {fmt_num(n.runs.slopes.slope_sd, 4)}, correlation "
+                    f"{fmt_num(c, 3) if c is not None else '—'}")
+        rows.append([n.id, fmt_num(n.runs.between_sd, 4), iv, fmt_num(n.runs.within_sd, 4), note])
     out += ["  " + line for line in table(rows, ["node", "between-run SD", "95% interval", "within-run SD", "note"],
                                           right={1, 3})]
     out.append("  SDs: REML on each node's scale (response transform applied), from per-run sums of its design;")
