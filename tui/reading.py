@@ -38,15 +38,17 @@ class DataRequest:
     """Decimal mark of text files."""
     delimiter: str | None = None
     """Field separator of text files."""
+    runs: str | None = None
+    """Column naming the run (day, batch): a random intercept in every node, never a fixed covariate."""
 
     @property
     def source(self) -> str:
         """Name shown to the user."""
         return "<stdin>" if self.path == "-" else Path(self.path).name
 
-    def choose(self, y: str, x: str, covariates: tuple[str, ...]) -> DataRequest:
+    def choose(self, y: str, x: str, covariates: tuple[str, ...], runs: str | None = None) -> DataRequest:
         """Copy with the columns picked on the start screen."""
-        return replace(self, y=y, x=x, covariates=covariates)
+        return replace(self, y=y, x=x, covariates=covariates, runs=runs)
 
 
 def datasets_dir() -> Path:
@@ -81,5 +83,11 @@ def build_study(req: DataRequest, frame: Any = None) -> Study:
         raise UsageError("choose a response and a predictor column")
     if frame is None:
         frame = read_frame(req)
-    return make_study(frame, y=req.y, x=req.x, covariates=list(req.covariates), weights=req.weights,
+    covariates = list(req.covariates)
+    if req.runs:
+        from bendwise.engine.checks.runs import validate_runs_column
+
+        covariates = [validate_runs_column(frame, req.runs, req.y, req.x),
+                      *(c for c in covariates if c != req.runs)]
+    return make_study(frame, y=req.y, x=req.x, covariates=covariates, weights=req.weights,
                       tolerance=req.tolerance, source=req.source)

@@ -486,6 +486,11 @@ def export_node(tree: RemedyTree, node_id: str, out_dir: str | Path, *, data_pat
                      max_residuals=max_residuals, now=now)
     if stability is not None:
         doc["stability"] = {**stability.to_dict(), "exported_node_share": stability.share(node_id)}
+    if getattr(tree, "runs", None) is not None:
+        from .runs_spec import read_runs, runs_block
+
+        doc["runs"] = _clean(runs_block(tree, tree.nodes[node_id]))
+        read_runs(doc, validate_spec(doc))
     validate_spec(doc)  # what we write must read back
     rel = None
     if data_path is not None:

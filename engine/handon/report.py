@@ -154,6 +154,33 @@ def _stability_section(tree: RemedyTree, node_id: str, stab: dict[str, Any] | No
     return out + [""]
 
 
+def _runs_section(runs: dict[str, Any] | None) -> list[str]:
+    """Between- and within-run SDs, the within-run test and what apply does with them (``--runs`` only)."""
+    if not runs:
+        return []
+    iv = runs["between_sd_interval"]
+    shown = "no interval with random slopes"
+    if iv["low"] is not None:
+        shown = "95 % profile-likelihood interval " + _n(iv["low"], 4) + " … " + (
+            _n(iv["high"], 4) if iv["high"] is not None else "unbounded")
+    out = ["## Runs", "",
+           f"{_code(runs['column'])}: {runs['count']} runs, each with its own random offset (intercept) on the "
+           "model's scale; the mean curve is the node's.", "",
+           f"- Between-run SD {_n(runs['between_sd'], 5)} ({shown})",
+           f"- Within-run SD {_n(runs['within_sd'], 5)}",
+           *([f"- Random slopes: slope SD {_n(runs['slopes']['slope_sd'], 5)}; between-run SD above is the "
+              "intercepts' SD at x = 0"] if runs.get("slopes") else []),
+           f"- Method: {_free(runs['method'])}",
+           f"- Lack of fit within runs: {_test_line(runs['lack_of_fit_within_runs'])}",
+           "- Criteria in this report come from the ML log-likelihood of the run model (original y scale, "
+           "Jacobian added), so nodes compare like with like.", ""]
+    rows = [[_code(label, table=True), _n(u, 5)] for label, u in zip(runs["labels"], runs["blups"], strict=True)]
+    out += _md_table(["run", "offset (BLUP)"], rows)
+    out += ["", "`bendwise apply` with this spec gives intervals for a reading from a new run (between-run SD "
+            "included; " + _free(runs["df_method"]) + "), or with `--run NAME` for a run above.", ""]
+    return out
+
+
 def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     """The report of one exported node (``doc`` is its spec document), section by section."""
     from ..tree.residuals import residuals_by_level
@@ -174,6 +201,7 @@ def report_markdown(tree: RemedyTree, node_id: str, doc: dict[str, Any]) -> str:
     out += _residuals_section(study, score, spec, doc, lr)
     out += _path_section(study, doc)
     out += _stability_section(tree, node_id, doc.get("stability"))
+    out += _runs_section(doc.get("runs"))
     out += _limits_section(study, spec, doc)
     out += _charts_section(study, score, spec, doc, lr)
     out += ["## Cautions", "", f"- {doc['cautions']['post_search']}", f"- {doc['cautions']['use']}"]

@@ -179,7 +179,10 @@ def weigh_evidence(tree: RemedyTree, alpha: float, policy: SuggestionPolicy) -> 
         tests.append((SPREAD, "trend of spread with the mean (likelihood ratio, θ = 0)", trend.p, None))
     else:
         tests.append((SPREAD, "trend of spread with the mean", None, trend.reason))
+    runs = getattr(tree, "runs", None)
     for cov in tree.study.covariates:
+        if runs is not None and cov.name == runs.name:
+            continue  # a random intercept, never a fixed covariate move
         t = tree.covariate_test(cov.name)
         tests.append((f"covariate:{cov.name}", f"nested F: line + {cov.name} against the line",
                       t.p if t.testable else None, None if t.testable else t.reason))

@@ -19,6 +19,7 @@ import numpy as np
 from ..cautions import POST_SEARCH_CAUTION
 from ..checks.lack_of_fit import nested_test
 from ..checks.results import NestedTest
+from ..checks.runs import run_factor
 from ..errors import BendwiseError, UsageError
 from ..stats.study import Study
 from ..stats.transforms import IDENTITY, Transform
@@ -26,6 +27,7 @@ from ..stats.variance import VarianceTrend, variance_trend
 from .model_spec import ModelSpec
 from .moves import MAX_DEGREE, MOVES, Offer
 from .results import MoveDetail, NodeSummary
+from .runs_node import NodeRuns, apply_runs
 from .scoring import NodeScore, score_spec
 from .suggestion import RULES, Suggestion, SuggestionPolicy
 from .suggestion import suggest as _suggest
@@ -71,6 +73,10 @@ class Node:
     """True once its moves were generated."""
     detail: MoveDetail = field(default_factory=MoveDetail)
     """Move details (Box–Cox profile, Box–Tidwell search, variance fit)."""
+    runs: NodeRuns | None = None
+    """With a runs column: the node refitted with a random run intercept (engine.tree.runs_node)."""
+    runs_error: str | None = None
+    """Why the run model of this node could not be fitted."""
 
 
 def _nested(parent: Node, child: Node) -> NestedTest:
@@ -92,7 +98,8 @@ def _nested(parent: Node, child: Node) -> NestedTest:
 class RemedyTree:
     """The candidate tree on one study; deterministic order, cached and deduplicated."""
 
-    def __init__(self, study: Study, *, alpha: float = 0.05, allowable_deviation: float | None = None) -> None:
+    def __init__(self, study: Study, *, alpha: float = 0.05, allowable_deviation: float | None = None,
+                 runs: str | None = None, run_slopes: bool = False) -> None:
         if not 0 < alpha < 1:
             raise UsageError(f"alpha {alpha!r} must lie strictly between 0 and 1, e.g. 0.05")
         if allowable_deviation is not None and not allowable_deviation > 0:
@@ -100,6 +107,12 @@ class RemedyTree:
         self.study = study
         self.alpha = alpha
         self.allowable_deviation = allowable_deviation
+        self.runs = None if runs is None else run_factor(study, runs)
+        """The runs column as a factor (random intercept in every node), or None."""
+        if run_slopes and runs is None:
+            raise UsageError("--run-slopes needs --runs COL (the column naming the runs)")
+        self.run_slopes = run_slopes
+        """Random run slopes too (the straight line only; other nodes are refused with a reason)."""
         self.nodes: dict[str, Node] = {}
         self._by_spec: dict[ModelSpec, str] = {}
         self._aside: dict[ModelSpec, NodeScore | None] = {}
@@ -121,6 +134,8 @@ class RemedyTree:
             node.score = score_spec(self.study, node.spec, root_line=self._root_line)
         except BendwiseError as exc:
             node.error = str(exc)
+        if self.runs is not None and node.score is not None:
+            apply_runs(self.study, node, self.runs, self.run_slopes)
         if node.parent is not None:
             node.nested = _nested(self.nodes[node.parent], node)
 
@@ -355,7 +370,12 @@ class RemedyTree:
 
     def node_json(self, node: Node) -> dict:
         """The stable JSON shape of a node (documented in the README): ``node_summary(node).to_dict()``."""
-        return self.node_summary(node).to_dict()
+        out = self.node_summary(node).to_dict()
+        if self.runs is not None:
+            out["runs"] = None if node.runs is None else node.runs.as_json()
+            if node.runs is None:
+                out["runs_error"] = node.runs_error
+        return out
 
     def as_json(self, rule: str = "aicc") -> dict:
         """``{"suggested", "reason", "rule", "alpha", "caution", "nodes"}``."""
@@ -376,8 +396,8 @@ def _order(node_id: str) -> int:
 
 
 def grow(study: Study, *, depth: int = 2, alpha: float = 0.05, allowable_deviation: float | None = None,
-         progress: ProgressFn | None = None, cancel: CancelFn | None = None) -> RemedyTree:
-    """Build the remedy tree breadth-first to ``depth``."""
-    tree = RemedyTree(study, alpha=alpha, allowable_deviation=allowable_deviation)
+         progress: ProgressFn | None = None, cancel: CancelFn | None = None, runs: str | None = None) -> RemedyTree:
+    """Build the remedy tree breadth-first to ``depth`` (``runs``: column of a random run intercept)."""
+    tree = RemedyTree(study, alpha=alpha, allowable_deviation=allowable_deviation, runs=runs)
     tree.grow(depth, progress, cancel)
     return tree

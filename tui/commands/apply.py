@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import math
+from typing import Any
 
 from ..output import emit_json, fmt_num
 from .common import CAUTION, table
@@ -53,6 +54,9 @@ def register(sub: argparse._SubParsersAction) -> None:
                    "the model saw, a number, or 'average' (a categorical covariate averaged over its categories "
                    "with equal weight: the average curve over, say, the calibration days; a new day's own shift "
                    "is not in the interval). Repeat for several covariates")
+    p.add_argument("--run", metavar="NAME",
+                   help="with a spec exported with --runs: the reading comes from this run of the calibration "
+                   "(its own offset); without it, from a new run (between-run SD in the interval)")
     p.add_argument("--sheet", metavar="NAME", help="Excel sheet of NEWDATA (default: the first)")
     p.add_argument("--decimal", choices=[".", ","], help="decimal mark of NEWDATA (default .)")
     p.add_argument("--delimiter", metavar="CHAR", help="field separator of NEWDATA (default: detected)")
@@ -74,22 +78,12 @@ def _held(items: list[str]) -> dict[str, str]:
     return out
 
 
-def run(args: argparse.Namespace) -> int:
-    """Load, check, compute, print."""
-    from bendwise.engine import load_table
-    from bendwise.engine.errors import UsageError
-    from bendwise.engine.handon.export import write_rows_csv
+def _compute(args: argparse.Namespace, model: Any, frame: Any, held: dict[str, str],
+             label: str) -> tuple[list[dict[str, Any]], list[str]]:
+    """Rows of results and the text report: x̂ from responses (``--inverse``) or y from x."""
     from bendwise.engine.handon.inverse import inverse_predict
     from bendwise.engine.handon.predict import new_inputs, predict_forward
-    from bendwise.engine.handon.specfile import load_spec
 
-    if args.replicates != 1 and not args.inverse:
-        raise UsageError("--replicates applies to --inverse only (it says how many readings each response averages)")
-    doc, model = load_spec(args.spec)
-    delim = "\t" if args.delimiter in {"\\t", "tab", "TAB"} else args.delimiter
-    frame = load_table(args.newdata, sheet=args.sheet, decimal=args.decimal, delimiter=delim)
-    label = doc.get("node", {}).get("label", "") if isinstance(doc.get("node"), dict) else ""
-    held = _held(args.hold)
     if args.inverse:
         inp = new_inputs(model, frame, "y", held)
         results = inverse_predict(model, inp.values, replicates=args.replicates, covs=inp.covs,
@@ -100,12 +94,38 @@ def run(args: argparse.Namespace) -> int:
             for name, vals in inp.cov_text.items():
                 row[name] = vals[i]
             rows.append(row)
-        text = _render_inverse(model, rows, args.level, label)
-    else:
-        inp = new_inputs(model, frame, "x", held)
-        pred = predict_forward(model, inp.values, inp.covs, level=args.level, user_w=inp.user_w)
-        rows = pred.rows(inp.cov_text)
-        text = _render_forward(model, rows, args.level, label, pred.ci_of)
+        return rows, _render_inverse(model, rows, args.level, label)
+    inp = new_inputs(model, frame, "x", held)
+    pred = predict_forward(model, inp.values, inp.covs, level=args.level, user_w=inp.user_w)
+    rows = pred.rows(inp.cov_text)
+    return rows, _render_forward(model, rows, args.level, label, pred.ci_of)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Load, check, compute, print."""
+    from bendwise.engine import load_table
+    from bendwise.engine.errors import UsageError
+    from bendwise.engine.handon.export import write_rows_csv
+    from bendwise.engine.handon.specfile import load_spec
+
+    if args.replicates != 1 and not args.inverse:
+        raise UsageError("--replicates applies to --inverse only (it says how many readings each response averages)")
+    doc, model = load_spec(args.spec)
+    runs_note = None
+    from bendwise.engine.handon.runs_spec import model_for_run, read_runs
+
+    runs = read_runs(doc, model)
+    if runs is not None:
+        model, runs_note = model_for_run(model, runs, args.run, args.replicates)
+    elif args.run is not None:
+        raise UsageError("--run needs a spec exported with --runs; this one has no runs")
+    delim = "\t" if args.delimiter in {"\\t", "tab", "TAB"} else args.delimiter
+    frame = load_table(args.newdata, sheet=args.sheet, decimal=args.decimal, delimiter=delim)
+    label = doc.get("node", {}).get("label", "") if isinstance(doc.get("node"), dict) else ""
+    held = _held(args.hold)
+    rows, text = _compute(args, model, frame, held, label)
+    if runs_note:
+        text.insert(1, "  " + runs_note)
     if held:
         text.insert(1, "  held for every row: " + ", ".join(f"{k} = {v}" for k, v in held.items())
                     + ("; 'average' is the average curve over the categories, without a new category's own shift"
@@ -121,6 +141,7 @@ def run(args: argparse.Namespace) -> int:
             "level": args.level,
             "replicates": args.replicates if args.inverse else None,
             **({"held": held} if held else {}),
+            **({"runs": {"run": args.run, "note": runs_note, "df": model.df_resid}} if runs_note else {}),
             "rows": rows,
             "caution": CAUTION,
         })

@@ -31,8 +31,9 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="report.md, report.html (one self-contained page with figures; needs matplotlib) or "
                         "both (default: both when matplotlib is installed, else md)")
     p.add_argument("--alpha", type=alpha_arg, default=0.05, help="level for lack of fit (default 0.05)")
-    from .grow import add_stability_args
+    from .grow import add_runs_arg, add_stability_args
 
+    add_runs_arg(p)
     add_stability_args(p)
     p.set_defaults(func=run)
 
@@ -74,6 +75,9 @@ def run(args: argparse.Namespace) -> int:
         print(f"  wrote {path}")
     print(f"  check it: python {written[1]}")
     print(f"  use it:   bendwise apply {written[0]} NEWDATA")
+    if tree.runs is not None:
+        print(f"  runs:     {tree.runs.name} as a random intercept; apply gives intervals for a new "
+              f"{tree.runs.name} (or --run NAME for one of the calibration's)")
     print("")
     print(CAUTION)
     return 0

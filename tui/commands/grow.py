@@ -25,10 +25,21 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--alpha", type=alpha_arg, default=0.05, help="level for lack of fit (default 0.05)")
     p.add_argument("--allowable-deviation", type=float, metavar="D",
                    help="largest departure from the line that matters in practice (y units)")
+    add_runs_arg(p)
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--quiet", action="store_true", help="no progress on stderr")
     add_stability_args(p)
     p.set_defaults(func=run)
+
+
+def add_runs_arg(p: argparse.ArgumentParser) -> None:
+    """``--runs COL`` (grow and export): runs as a random intercept in every node."""
+    p.add_argument("--runs", metavar="COL",
+                   help="column naming the run (day, batch, instrument): every node gets a random run intercept, "
+                   "between-/within-run SDs and lack of fit within runs; criteria from ML fits")
+    p.add_argument("--run-slopes", action="store_true",
+                   help="with --runs: each run also gets its own slope (the straight line only; other nodes are "
+                   "refused with a reason)")
 
 
 def add_stability_args(p: argparse.ArgumentParser) -> None:
@@ -84,8 +95,18 @@ def build_tree(args: argparse.Namespace, progress=None):
 
     if args.depth < 0 or args.depth > 4:
         raise UsageError(f"depth {args.depth} is out of range; use 0 to 4")
-    study = load_study(args)
-    tree = RemedyTree(study, alpha=args.alpha, allowable_deviation=getattr(args, "allowable_deviation", None))
+    runs = getattr(args, "runs", None)
+    if runs:
+        from .check_runs import load_study_with_runs
+
+        study = load_study_with_runs(args)
+        runs = args.runs
+        if getattr(args, "stability", None):
+            raise UsageError("--stability resamples replicates without regard to runs; drop it or --runs")
+    else:
+        study = load_study(args)
+    tree = RemedyTree(study, alpha=args.alpha, allowable_deviation=getattr(args, "allowable_deviation", None),
+                      runs=runs or None, run_slopes=bool(getattr(args, "run_slopes", False)))
     tree.grow(args.depth, progress)
     return study, tree
 
@@ -175,6 +196,8 @@ def render(study, tree, rule: str) -> list[str]:
                      fmt_num(d, 3) if d is not None else "—", fmt_num(s.criteria.bic, 5), verdict_word(tree, n)])
     out += table(rows, ["node", "model", "k", "lack-of-fit p", "nested p", "ΔAICc", "BIC", "verdict"],
                  right={2, 3, 4, 5, 6})
+    if tree.runs is not None:
+        out += render_runs(tree, rule)
     out += ["", "Tree (move → model)"]
 
     def walk(nid: str, indent: str) -> None:
@@ -191,4 +214,33 @@ def render(study, tree, rule: str) -> list[str]:
 
     walk("root", "  ")
     out += ["", POST_SEARCH_CAUTION, CAUTION]
+    return out
+
+
+def render_runs(tree, rule: str) -> list[str]:
+    """The runs table: between- and within-run SD per node, and what the tests and criteria mean."""
+    r = tree.runs
+    kind = "a random intercept and slope (straight line only)" if tree.run_slopes else "a random intercept in every node"
+    out = ["", f"Runs · {r.name}: {r.count} runs as {kind}"]
+    rows = []
+    for n in sorted(tree.nodes.values(), key=tree.sort_key(rule)):
+        if n.runs is None:
+            rows.append([n.id, "—", "—", "—", (n.runs_error or n.error or "")[:60]])
+            continue
+        iv, note = "—", ""
+        if n.runs.between_sd_interval is not None:
+            lo, hi = n.runs.between_sd_interval
+            iv = f"{fmt_num(lo, 3)} … {fmt_num(hi, 3) if hi is not None else 'unbounded'}"
+        if n.runs.slopes is not None:
+            c = n.runs.slopes.correlation
+            note = (f"intercept SD at x = 0; slope SD {fmt_num(n.runs.slopes.slope_sd, 4)}, correlation "
+                    f"{fmt_num(c, 3) if c is not None else '—'}")
+        rows.append([n.id, fmt_num(n.runs.between_sd, 4), iv, fmt_num(n.runs.within_sd, 4), note])
+    out += ["  " + line for line in table(rows, ["node", "between-run SD", "95% interval", "within-run SD", "note"],
+                                          right={1, 3})]
+    out.append("  SDs: REML on each node's scale (response transform applied), from per-run sums of its design;")
+    out.append("  interval: profile REML likelihood (χ²₁ cut-off). Lack of fit above: within runs (runs as blocks")
+    out.append("  in the node and in the run + level means; pure error within run × level cells).")
+    out.append("  ΔAICc and BIC above: ML log-likelihoods of the run models (original y scale, Jacobian added),")
+    out.append("  so nodes compare like with like; the run column is not offered as a fixed covariate.")
     return out

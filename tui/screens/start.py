@@ -35,6 +35,9 @@ class StartScreen(Screen):
                 tooltip="Use the highlighted column as the predictor x (its settings are the replicate levels)"),
         Binding("c,space", "toggle_covariate", "Covariate", id="start.covariate",
                 tooltip="Admit (or drop) the highlighted column as a covariate the tree may add"),
+        Binding("r", "toggle_runs", "Runs", id="start.runs",
+                tooltip="Mark (or unmark) the highlighted column as the run (day, batch): a random intercept in "
+                "every model, never a fixed covariate"),
         Binding("g,enter", "go", "Grow", id="start.go", tooltip="Build the study from the chosen columns and grow the tree"),
     ]
 
@@ -74,6 +77,7 @@ class StartScreen(Screen):
         self.y: str | None = request.y
         self.x: str | None = request.x
         self.covariates: list[str] = list(request.covariates)
+        self.runs: str | None = request.runs
         self._building = False
 
     def compose(self) -> ComposeResult:
@@ -130,7 +134,7 @@ class StartScreen(Screen):
             Text.assemble(("bendwise", "bold"), f" · {self.request.source} · {n:,} rows · {len(self.columns)} columns"))
         self._fill()
         self.query_one("#start-message", Static).update(
-            "y = response · x = predictor · c/space = covariate · Enter = grow the tree")
+            "y = response · x = predictor · c/space = covariate · r = runs (day, batch) · Enter = grow the tree")
 
     @on(LoadFailed)
     def _failed(self, event: LoadFailed) -> None:
@@ -141,7 +145,7 @@ class StartScreen(Screen):
     def _built(self, event: StudyBuilt) -> None:
         from .main import MainScreen
 
-        req = self.request.choose(self.y or "", self.x or "", tuple(self.covariates))
+        req = self.request.choose(self.y or "", self.x or "", tuple(self.covariates), self.runs)
         self.app.switch_screen(MainScreen(req, study=event.study, depth=self.depth, alpha=self.alpha, rule=self.rule))
 
     @on(DataTable.RowSelected, "#columns")
@@ -158,6 +162,8 @@ class StartScreen(Screen):
             return "y"
         if name == self.x:
             return "x"
+        if name == self.runs:
+            return "runs"
         return "cov" if name in self.covariates else ""
 
     def _fill(self) -> None:
@@ -206,7 +212,7 @@ class StartScreen(Screen):
         covs = ", ".join(self.covariates) if self.covariates else "none"
         self.query_one("#choice", Static).update(Text.assemble(
             ("response y: ", "bold"), self.y or "— (press y)", ("   predictor x: ", "bold"), self.x or "— (press x)",
-            ("   covariates: ", "bold"), covs))
+            ("   covariates: ", "bold"), covs, ("   runs: ", "bold"), self.runs or "none"))
 
     # ---- actions ----------------------------------------------------------------------
     def action_role(self, role: str) -> None:
@@ -227,6 +233,21 @@ class StartScreen(Screen):
                 self.y = None
         if name in self.covariates:
             self.covariates.remove(name)
+        if name == self.runs:
+            self.runs = None
+        self._fill()
+
+    def action_toggle_runs(self) -> None:
+        """Mark the highlighted column as the runs column (again: unmark)."""
+        name = self._current()
+        if name is None:
+            return
+        if name in (self.y, self.x):
+            self.notify(f"{name} is already the {'response' if name == self.y else 'predictor'}", severity="warning")
+            return
+        self.runs = None if self.runs == name else name
+        if name in self.covariates:
+            self.covariates.remove(name)
         self._fill()
 
     def action_toggle_covariate(self) -> None:
@@ -240,6 +261,8 @@ class StartScreen(Screen):
             self.covariates.remove(name)
         else:
             self.covariates.append(name)
+            if name == self.runs:
+                self.runs = None
         self._fill()
 
     def action_go(self) -> None:
@@ -250,4 +273,4 @@ class StartScreen(Screen):
             return
         self._building = True
         self.query_one("#start-message", Static).update("building the study…")
-        self._build(self.request.choose(self.y, self.x, tuple(self.covariates)))
+        self._build(self.request.choose(self.y, self.x, tuple(self.covariates), self.runs))

@@ -196,7 +196,7 @@ class TreeGrower(Widget):
                     study = self.study = build_study(self.request)
                     say(self.StudyBuilt(study))
                 say(self.Progressed(None, None, "scoring the straight line", 0))
-                tree = RemedyTree(study, alpha=alpha)
+                tree = RemedyTree(study, alpha=alpha, runs=self.request.runs)
                 say(self.NodeScored(tree.root, tree.node_json(tree.root), tree=tree))
                 count = [1]
 

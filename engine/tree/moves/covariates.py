@@ -19,8 +19,12 @@ class AddCovariate:
     def propose(self, tree: RemedyTree, node: Node) -> list[Offer | Skip]:
         st, sp = tree.study, node.spec
         out: list[Offer | Skip] = []
+        runs = getattr(tree, "runs", None)
         for cov in st.covariates:
-            if cov.name not in sp.covariates:
+            if runs is not None and cov.name == runs.name:
+                out.append(Skip(f"+ {cov.name}", "it is the runs column: runs enter as a random intercept, "
+                                "not as a fixed covariate"))
+            elif cov.name not in sp.covariates:
                 child = sp.with_(covariates=sp.covariates + (cov.name,))
                 out.append(Offer(f"+ {cov.name}", child, cost(st, sp, child)))
         return out
