@@ -65,7 +65,7 @@ def _simulate_xhat(levels, runs, reps, *, sw, sb, slope, at, n_sim, seed, new_re
     The line is OLS (equal to REML for this balanced design); the mean squares between runs and
     within runs (line + run offsets) give the estimated variance and Satterthwaite's df.
     """
-    # reference: Satterthwaite (1946) for the df; Searle, Casella & McCulloch (1992) §3.6 for
+    # reference: Satterthwaite (1946) for the df; Searle, Casella & McCulloch (1992) ch. 3 for
     # the balanced one-way mean squares; t quantiles from scipy.stats.t
     lv = np.asarray(levels, float)
     c, m, r = lv.size, reps, runs
