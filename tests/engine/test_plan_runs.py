@@ -1,7 +1,7 @@
 """Planning over several runs: power of the within-run tests, x̂ precision for a new run, and the
 cheapest design by cost.
 
-Monte Carlo checks are seeded (the outcome is fixed) and use at least 2,000 simulated data sets:
+Monte Carlo checks draw from fixed random streams (the outcome is fixed) and use at least 2,000 simulated data sets:
 rejection rates within 3 simulation standard errors of the computed power; the SD of x̂ within
 3 standard errors of its planned value (plus 2 % for the first-order slope approximation);
 coverage of the interval within 3 standard errors plus 1.5 points (Satterthwaite's df is itself
@@ -12,6 +12,9 @@ from __future__ import annotations
 
 import json
 import math
+import subprocess
+import sys
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -40,12 +43,12 @@ def _layout(levels, runs, reps):
     return run, level
 
 
-def _rejections(levels, runs, reps, *, deviations, sw, sb, tau, n_sim, seed):
+def _rejections(levels, runs, reps, *, deviations, sw, sb, tau, n_sim, stream):
     """Rejection rates at α = 0.05 of the engine's own within-run tests (as run by check --runs)."""
     lv = np.asarray(levels, float)
     run, level = _layout(lv, runs, reps)
     factor = RunFactor("run", run, tuple(str(i) for i in range(runs)))
-    rng = np.random.default_rng(seed)
+    rng = np.random.default_rng(stream)
     dev = np.asarray(deviations, float)
     lof_rej = shape_rej = 0
     for _ in range(n_sim):
@@ -59,7 +62,7 @@ def _rejections(levels, runs, reps, *, deviations, sw, sb, tau, n_sim, seed):
     return lof_rej / n_sim, shape_rej / n_sim
 
 
-def _simulate_xhat(levels, runs, reps, *, sw, sb, slope, at, n_sim, seed, new_readings=1):
+def _simulate_xhat(levels, runs, reps, *, sw, sb, slope, at, n_sim, stream, new_readings=1):
     """x̂ errors and interval half-widths, computed from scratch on simulated balanced data.
 
     The line is OLS (equal to REML for this balanced design); the mean squares between runs and
@@ -71,7 +74,7 @@ def _simulate_xhat(levels, runs, reps, *, sw, sb, slope, at, n_sim, seed, new_re
     c, m, r = lv.size, reps, runs
     run, level = _layout(lv, r, m)
     x = lv[level]
-    rng = np.random.default_rng(seed)
+    rng = np.random.default_rng(stream)
     y = 1.0 + slope * x + rng.normal(0, sb, (n_sim, r))[:, run] + rng.normal(0, sw, (n_sim, x.size))
     xc = x - x.mean()
     b1 = (y @ xc) / (xc @ xc)
@@ -121,7 +124,7 @@ def test_within_run_power_matches_simulation(runs, reps, delta, sb):
     else:  # a true line: the test keeps its level whatever the run shifts
         planned, dev = 0.05, (0.0,) * len(LEVELS)
     rate, _ = _rejections(LEVELS, runs, reps, deviations=dev, sw=sw, sb=sb, tau=0.0, n_sim=2000,
-                          seed=11 + runs)
+                          stream=11 + runs)
     se = math.sqrt(planned * (1 - planned) / 2000)
     assert abs(rate - planned) <= 3 * se, (rate, planned, se)
 
@@ -132,7 +135,7 @@ def test_shape_test_power_matches_simulation():
     assert (sh.df_num, sh.df_den) == (12, 20)
     assert sh.noncentrality == pytest.approx(1 + 2 * 0.015**2 / 0.02**2)
     _, rate = _rejections(LEVELS, 4, 2, deviations=d.deviations, sw=0.02, sb=0.03, tau=0.015,
-                          n_sim=2000, seed=5)
+                          n_sim=2000, stream=5)
     se = math.sqrt(sh.power * (1 - sh.power) / 2000)
     assert abs(rate - sh.power) <= 3 * se, (rate, sh.power)
     none = runs_design(LEVELS, 4, 2, delta=0.01, sigma_within=0.02, interaction_sd=0.0)
@@ -163,7 +166,7 @@ def test_xhat_sd_and_coverage_match_simulation(runs, reps, sb, at):
     n_sim = 4000
     p = xhat_precision(LEVELS, runs, reps, sigma_within=0.02, sigma_between=sb, slope=0.05, at=at)
     err, half = _simulate_xhat(LEVELS, runs, reps, sw=0.02, sb=sb, slope=0.05, at=at,
-                               n_sim=n_sim, seed=runs * 7)
+                               n_sim=n_sim, stream=runs * 7)
     sd = float(np.std(err, ddof=1))
     assert abs(sd / p.sd - 1) <= 3 / math.sqrt(2 * (n_sim - 1)) + 0.02, (sd, p.sd)
     coverage = float(np.mean(np.abs(err) <= half))
@@ -323,3 +326,20 @@ def test_cli_refusals(capsys, extra, words):
     code, out, err = _cli(BASE + extra, capsys)
     assert code == 2 and out == ""
     assert words in err and err.count("\n") == 1, err
+
+
+def test_installed_entry_point_runs_a_multi_run_plan():
+    """The real ``bendwise`` command of this environment, as a user would run it."""
+    exe = Path(sys.executable).parent / "bendwise"
+    if not exe.exists():
+        pytest.skip("no bendwise entry point next to this Python")
+    argv = [str(exe), *BASE, "--runs", "5", "--replicates", "3", "--between-sd", "0.05",
+            "--slope", "0.05", "--run-cost", "40", "--target-power", "0.8"]
+    done = subprocess.run(argv, capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert "lack of fit within runs" in done.stdout
+    assert "Cheapest designs meeting the goal:" in done.stdout
+    bad = subprocess.run([str(exe), *BASE, "--runs", "3", "--replicates", "2",
+                          "--measurement-cost", "-1"], capture_output=True, text=True, timeout=120)
+    assert bad.returncode == 2 and bad.stdout == ""
+    assert bad.stderr.strip().endswith("--measurement-cost: '-1' is negative; give 0 or more")
