@@ -69,6 +69,9 @@ def register(subparsers: Any) -> None:
         "--target-power", metavar="P", help="search for the cheapest design reaching power P"
     )
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    from bendwise.tui.commands.plan_runs import add_options
+
+    add_options(p)
     p.set_defaults(func=run)
 
 
@@ -176,22 +179,6 @@ def _sigma(args: argparse.Namespace) -> dict[str, Any] | None:
 # ---------------------------------------------------------------- run
 
 
-def _delta(args: argparse.Namespace, sigma: dict[str, Any] | None, s: float,
-           means: list[float] | None) -> float | None:
-    """The bend to detect in the working units (None when the true means are given)."""
-    if args.delta is not None:
-        if sigma is None:
-            raise UsageError("--delta: in y units needs --sigma or --from-data; or use --delta-sd")
-        return _number("--delta", args.delta)
-    if args.delta_sd is not None:
-        return _number("--delta-sd", args.delta_sd) * s
-    if means is not None:
-        if sigma is None:
-            raise UsageError("--means: in y units needs --sigma or --from-data")
-        return None
-    raise UsageError("--delta: not given; state the bend with --delta, --delta-sd or --means")
-
-
 def run(args: argparse.Namespace) -> int:
     """Compute and print the plan; returns 0.
 
@@ -208,11 +195,14 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError("--means: needs listed levels, not --range")
     if args.delta is not None and args.delta_sd is not None:
         raise UsageError("--delta: give it or --delta-sd, not both")
-    sigma = _sigma(args)
+    if args.runs is not None:
+        return _run_runs(args, levels, means, alpha, target)
+    from bendwise.tui.commands.plan_runs import refuse_without_runs
 
-    # Work in y units when σ is known, else in σ units (σ = 1).
+    refuse_without_runs(args)
+    sigma = _sigma(args)
     s = 1.0 if sigma is None else sigma["value"]
-    delta = _delta(args, sigma, s, means)
+    delta = _bend(args, sigma, means)
 
     report: dict[str, Any] = {
         "command": "plan",
@@ -258,6 +248,43 @@ def run(args: argparse.Namespace) -> int:
         lines += _search_lines(search, known)
     print("\n".join(line.rstrip() for line in lines))
     return 0
+
+
+def _bend(args: argparse.Namespace, sigma: dict[str, Any] | None, means: list[float] | None,
+          required: bool = True) -> float | None:
+    """The bend size in y units (σ units when σ is unknown); None when ``means`` set it.
+
+    When ``required`` is False and no bend is stated, None too (a plan for precision only).
+    """
+    s = 1.0 if sigma is None else sigma["value"]
+    if args.delta is not None:
+        if sigma is None:
+            raise UsageError("--delta: in y units needs --sigma or --from-data; or use --delta-sd")
+        return _number("--delta", args.delta)
+    if args.delta_sd is not None:
+        return _number("--delta-sd", args.delta_sd) * s
+    if means is not None:
+        if sigma is None:
+            raise UsageError("--means: in y units needs --sigma or --from-data")
+        return None
+    if required:
+        raise UsageError("--delta: not given; state the bend with --delta, --delta-sd or --means")
+    return None
+
+
+def _run_runs(args: argparse.Namespace, levels: list[float] | None, means: list[float] | None,
+              alpha: float, target: float | None) -> int:
+    """Hand a ``--runs`` plan over to plan_runs, with σ and the bend read as for one run."""
+    from bendwise.tui.commands.plan_runs import run_runs
+
+    if args.from_data is not None:
+        raise UsageError("--from-data: not with --runs; give --sigma (the within-run SD) and "
+                         "--between-sd, e.g. from bendwise check --runs")
+    sigma = _sigma(args)
+    needs_bend = target is not None or args.target_halfwidth is None
+    delta = _bend(args, sigma, means, required=needs_bend)
+    return run_runs(args, levels=levels, delta=delta, means=means, sigma=sigma, alpha=alpha,
+                    target=target)
 
 
 # ---------------------------------------------------------------- JSON
