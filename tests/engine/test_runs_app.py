@@ -55,3 +55,12 @@ async def test_r_marks_the_runs_column_and_the_tree_grows_with_runs():
         assert board.complete and set(board.nodes) == set(tree.nodes)
         assert board.json["root"]["runs"] == tree.node_json(tree.root)["runs"]
         assert board.json["root"]["criteria"] == tree.node_json(tree.root)["criteria"]
+        # the detail pane shows the run model's numbers (the engine's, formatted by the app)
+        from bendwise.tui.widgets.detail import NodeDetail
+        from bendwise.tui.widgets.formatting import num
+
+        text = " ".join(app.screen.query_one(NodeDetail).text.split())
+        runs = tree.node_json(tree.root)["runs"]
+        assert f"between-run SD {num(runs['between_sd'], 5)}" in text
+        assert f"within-run SD {num(runs['within_sd'], 5)}" in text
+        assert "lack of fit within runs: F = " + num(runs["lack_of_fit_within_runs"]["f"], 4) in text

@@ -94,6 +94,7 @@ def _render_node(board: TreeSummary, nid: str, width: int) -> Text:
     parts += _squares_section(board, nid, narrow)
     parts += _coefficients_section(board, nid, narrow, width)
     parts += _criteria_section(board, nid, narrow)
+    parts += _runs_section(j)
     if nid == "root" and board.check is not None:
         parts += _check_section(board.check)
     parts += _move_detail(node.detail)
@@ -232,6 +233,28 @@ def _criteria_section(board: TreeSummary, nid: str, narrow: bool) -> list[Text]:
                  else f"departure from the straight line: {s.deviation_note or '—'}")
     parts += [Text(ln) for ln in lines]
     return parts
+
+
+def _runs_section(j: dict) -> list[Text]:
+    """With a runs column: between- and within-run SDs, the within-run test and the ML criteria."""
+    if "runs" not in j:
+        return []
+    runs = j["runs"]
+    if runs is None:
+        return [_heading("Runs"), Text(f"no run model: {j.get('runs_error') or 'not fitted'}")]
+    iv = runs.get("between_sd_interval") or {}
+    band = (f" (95% {num(iv.get('low'), 4)} … {num(iv.get('high'), 4) if iv.get('high') is not None else 'open'})"
+            if iv.get("low") is not None else "")
+    lof = runs["lack_of_fit_within_runs"]
+    test = (f"F = {num(lof['f'], 4)} on {lof['df_lack']} and {lof['df_pure']} df, {p_clause(lof['p'])}"
+            if lof.get("testable") else f"not testable — {lof.get('reason')}")
+    crit = runs.get("criteria") or {}
+    out = [_heading(f"Runs ({runs['column']}: {runs['count']} runs, random offset)"),
+           Text(f"between-run SD {num(runs['between_sd'], 5)}{band} · within-run SD {num(runs['within_sd'], 5)}"),
+           Text(f"lack of fit within runs: {test}"),
+           Text(f"ML criteria: AICc {num(crit.get('aicc'), 6)} · BIC {num(crit.get('bic'), 6)} (k {crit.get('k')})"),
+           Text(runs["method"], style="dim")]
+    return out
 
 
 def _check_section(chk: Any) -> list[Text]:
