@@ -54,20 +54,21 @@ from ..stats.study import (
     parse_tolerance,
 )
 from ..stats.transforms import Transform
+from .dialect import DUCKDB, Dialect
 from .scans import exact_setup, floats, one_row, series_setup
-from .sql_text import aggregate_sql, lit, q, series_sql, transform_sql
+from .sql_text import aggregate_sql, lit, series_sql, transform_sql
 
-__all__ = ["SqlStudy", "make_sql_study", "aggregate_sql", "series_sql", "transform_sql", "choose_engine",
-]
+__all__ = ["SqlStudy", "make_sql_study", "build_sql_study", "aggregate_sql", "series_sql", "transform_sql",
+           "choose_engine"]
 
 _NA_TEXT = NA_TEXT  # the same missing-value texts as the in-memory reader
 ProgressFn = Callable[[str], None]
 
 
 def choose_engine(path: str, engine: str, memory_cap: int) -> str:
-    """'memory' or 'duckdb' for ``--engine auto|memory|duckdb``."""
-    if engine not in {"auto", "memory", "duckdb"}:
-        raise UsageError(f"engine {engine!r} is unknown; use auto, memory or duckdb")
+    """'memory', 'duckdb' or 'spark' for ``--engine auto|memory|duckdb|spark`` (auto never picks Spark)."""
+    if engine not in {"auto", "memory", "duckdb", "spark"}:
+        raise UsageError(f"engine {engine!r} is unknown; use auto, memory, duckdb or spark")
     if engine != "auto":
         return engine
     if path == "-":
@@ -166,8 +167,10 @@ class SqlStudy(Study):
     """
 
 
-    def __init__(self, con: Any, *, progress: ProgressFn | None = None, **kw: Any) -> None:
+    def __init__(self, con: Any, *, progress: ProgressFn | None = None, dialect: Dialect = DUCKDB,
+                 **kw: Any) -> None:
         self.con = con
+        self.dialect = dialect
         self.progress = progress
         info = kw.pop("_info")
         self._info = info
@@ -280,10 +283,10 @@ class SqlStudy(Study):
         hit = self._cache.get(("sample", k, seed))
         if hit is not None:
             return hit
-        cols = ["y", "x", *(q(self._info["sql_name"][c.name]) for c in self.covariates)]
-        sample = "" if self.n <= k else f" USING SAMPLE reservoir({int(k)} ROWS) REPEATABLE ({int(seed)})"
+        cols = ["y", "x", *(self.dialect.quote(self._info["sql_name"][c.name]) for c in self.covariates)]
+        select = f"SELECT {', '.join(cols)} FROM bw_clean"
         self._say(f"scanning {self.n:,} rows for a sample of {min(k, self.n):,}")
-        res = self.con.execute(f"SELECT {', '.join(cols)} FROM bw_clean{sample}").fetchnumpy()
+        res = self.con.execute(select if self.n <= k else self.dialect.sample(select, k, seed)).fetchnumpy()
         self._say("")
         out = {"y": floats(res["y"]), "x": floats(res["x"])}
         for c in self.covariates:
@@ -336,7 +339,7 @@ class SqlStudy(Study):
         shifts = [float(np.asarray(t.forward(y_ref), dtype=float)[0]) for t in todo]
         shifts = [v if math.isfinite(v) else 0.0 for v in shifts]
         zs = [f"({transform_sql(t, 'y')} - {v!r})" for t, v in zip(todo, shifts, strict=True)]
-        sql = aggregate_sql("bw_shifted", keys, nums, zs)
+        sql = aggregate_sql("bw_shifted", keys, nums, zs, self.dialect)
         self.exact_scans += 1
         self._say(f"scanning {self.n:,} rows for {len(todo)} response transform(s)")
         res = self.con.execute(sql).fetchnumpy()
@@ -546,14 +549,29 @@ def make_sql_study(
 def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tolerance: str | float | None,
                     decimal: str, delimiter: str | None, encoding: str | None, source: str,
                     progress: ProgressFn | None, memory_limit: str | None, exact: bool) -> SqlStudy:
-    """The study over ``path`` (see :func:`make_sql_study`).
+    """The DuckDB study over ``path`` (see :func:`make_sql_study`)."""
+    parse_tolerance(tolerance)  # a bad tolerance is refused before any reading
+    src, as_text = _source_sql(path, decimal, delimiter, encoding)
+    con = _connect(memory_limit)
+    names, types = _describe(con, src, path, as_text)
+    return build_sql_study(con, DUCKDB, src, names, types, as_text, path=path, y=y, x=x, covariates=covariates,
+                           tolerance=tolerance, decimal=decimal, source=source, progress=progress, exact=exact)
+
+
+def build_sql_study(con: Any, d: Dialect, src: str, names: list[str], types: dict[str, str], as_text: bool, *,
+                    path: str, y: str, x: str, covariates: Sequence[str], tolerance: str | float | None,
+                    decimal: str, source: str, progress: ProgressFn | None, exact: bool) -> SqlStudy:
+    """The study over the table ``src`` of an open connection, whatever the engine (``d`` says how
+    it spells things): the columns resolved and typed, the cleaning and group scans, the study.
+
+    ``names`` and ``types`` are the table's columns and their declared types; ``as_text`` says the
+    columns arrive as text (CSV). ``con`` answers ``execute(sql)`` with ``fetchnumpy``,
+    ``fetchall`` and ``fetchone``, as DuckDB's connection does.
 
     Long because it wires the set-up steps in order (each its own function) and assembles the
     facts the study keeps; splitting the dictionary would only scatter it."""
     tol, rel = parse_tolerance(tolerance)
-    src, as_text = _source_sql(path, decimal, delimiter, encoding)
-    con = _connect(memory_limit)
-    table = _SqlTable.describe(con, src, path, as_text, decimal)
+    table = _SqlTable(con, d, src, names, types, as_text, decimal)
     cols = choose_columns(SimpleNamespace(columns=table.names), y=y, x=x, covariates=covariates)
     cov_cols = list(cols.covariates)
     kinds = {c: table.kind(c) for c in cov_cols}
@@ -570,9 +588,9 @@ def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tol
     cat_sql = [sql_name[c] for c in cat_cols]
     num_sql = [sql_name[c] for c in num_cols]
     cat_missing = set(_NA_TEXT) if as_text else {""}
-    facts = None if exact else series_setup(con, cat_sql, num_sql, cat_missing, progress)
+    facts = None if exact else series_setup(con, cat_sql, num_sql, cat_missing, progress, d)
     if facts is None:
-        facts = exact_setup(con, src, case, checks, cat_sql, num_sql, progress)
+        facts = exact_setup(con, src, case, checks, cat_sql, num_sql, progress, d)
     user = {v: k for k, v in sql_name.items()}
     for key in ("num_constant", "num_mean"):  # (units stay keyed by the SQL names: "n" is theirs)
         if key in facts:
@@ -607,6 +625,7 @@ def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tol
     study = SqlStudy(
         con,
         progress=progress,
+        dialect=d,
         _info=info,
         source=source or Path(path).name,
         report=CleaningReport(source or Path(path).name, n_read, n, drops),
@@ -639,47 +658,46 @@ def _connect(memory_limit: str | None) -> Any:
     return con
 
 
-_NUMERIC_TYPES = ("DOUBLE", "FLOAT", "INTEGER", "BIGINT", "SMALLINT", "TINYINT", "DECIMAL", "HUGEINT",
-                  "UBIGINT", "UINTEGER", "USMALLINT", "UTINYINT", "REAL")
+def _describe(con: Any, src: str, path: str, as_text: bool) -> tuple[list[str], dict[str, str]]:
+    """Column names and declared types of ``src`` (DuckDB); typed files with repeated names are refused."""
+    desc = con.execute(f"DESCRIBE SELECT * FROM {src}").fetchall()
+    names = [str(r[0]) for r in desc]
+    if not as_text:
+        from ..read.tables import _refuse_duplicate_names
+
+        _refuse_duplicate_names(path, [n.strip() for n in names])
+    return names, {str(r[0]): str(r[1]).upper() for r in desc}
 
 
 @dataclass
 class _SqlTable:
-    """The source's columns and types, and the SQL that reads each column as the memory engine does."""
+    """The source's columns and types, and the SQL that reads each column as the memory engine does
+    (spelled by the engine's dialect)."""
 
     con: Any
+    d: Dialect
     src: str
     names: list[str]
     types: dict[str, str]
     as_text: bool
     decimal: str
 
-    @classmethod
-    def describe(cls, con: Any, src: str, path: str, as_text: bool, decimal: str) -> _SqlTable:
-        """Column names and types of ``src``; typed files with repeated names are refused."""
-        desc = con.execute(f"DESCRIBE SELECT * FROM {src}").fetchall()
-        names = [str(r[0]) for r in desc]
-        if not as_text:
-            from ..read.tables import _refuse_duplicate_names
-
-            _refuse_duplicate_names(path, [n.strip() for n in names])
-        return cls(con, src, names, {str(r[0]): str(r[1]).upper() for r in desc}, as_text, decimal)
-
     def typed_numeric(self, col: str) -> bool:
         """True for a column the file itself types as a number."""
-        return self.types[col].startswith(_NUMERIC_TYPES)
+        return self.d.is_number_type(self.types[col])
 
     def num_expr(self, col: str) -> tuple[str, str, str, str]:
         """(value, missing, non-numeric, non-finite) SQL for a numeric column."""
-        c = q(col)
+        d = self.d
+        c = d.quote(col)
         if self.typed_numeric(col):
             v = f"CAST({c} AS DOUBLE)"
-            return v, f"({c} IS NULL OR isnan({v}))", "FALSE", f"isinf({v})"
-        text = f"trim(CAST({c} AS VARCHAR))"
+            return v, f"({c} IS NULL OR isnan({v}))", "FALSE", d.isinf(v)
+        text = f"trim(CAST({c} AS {d.text_type}))"
         body = f"replace({text}, ',', '.')" if self.decimal == "," else text
-        v = f"TRY_CAST({body} AS DOUBLE)"
-        missing = f"({c} IS NULL OR {text} IN ({_na_list()}))"
-        return v, missing, f"(NOT {missing} AND {v} IS NULL)", f"(NOT {missing} AND (isinf({v}) OR isnan({v})))"
+        v = d.to_double(body)
+        missing = f"({c} IS NULL OR {text} IN ({_na_list(d)}))"
+        return v, missing, f"(NOT {missing} AND {v} IS NULL)", f"(NOT {missing} AND ({d.isinf(v)} OR isnan({v})))"
 
     def kind(self, col: str) -> str:
         """'numeric' when every present value of the covariate parses as a number, else 'categorical'."""
@@ -696,9 +714,10 @@ class _SqlTable:
         checks: list[tuple[str, str, str]] = []
         for col in (cols.y, cols.x, *cols.covariates):
             if col in kinds and kinds[col] == "categorical":
-                c = q(col)
-                missing_text = _na_list() if self.as_text else lit("")
-                checks.append((col, "missing", f"({c} IS NULL OR trim(CAST({c} AS VARCHAR)) IN ({missing_text}))"))
+                c = self.d.quote(col)
+                missing_text = _na_list(self.d) if self.as_text else self.d.literal("")
+                checks.append((col, "missing", f"({c} IS NULL OR trim(CAST({c} AS {self.d.text_type})) "
+                                               f"IN ({missing_text}))"))
             else:
                 _, miss, non_num, non_fin = self.num_expr(col)
                 checks += [(col, "missing", miss), (col, "non-numeric", non_num), (col, "non-finite", non_fin)]
@@ -707,15 +726,16 @@ class _SqlTable:
     def select_list(self, cols: ChosenColumns, cat_cols: list[str], num_cols: list[str],
                     sql_name: dict[str, str]) -> str:
         """y, x, then the covariates under the query's own names: categories trimmed, numbers parsed."""
+        q = self.d.quote
         parts = [f"{self.num_expr(cols.y)[0]} AS y", f"{self.num_expr(cols.x)[0]} AS x"]
-        parts += [f"trim(CAST({q(c)} AS VARCHAR)) AS {q(sql_name[c])}" for c in cat_cols]
+        parts += [f"trim(CAST({q(c)} AS {self.d.text_type})) AS {q(sql_name[c])}" for c in cat_cols]
         parts += [f"{self.num_expr(c)[0]} AS {q(sql_name[c])}" for c in num_cols]
         return ", ".join(parts)
 
 
-def _na_list() -> str:
+def _na_list(d: Dialect) -> str:
     """The missing-value texts as an SQL list of literals."""
-    return ", ".join(lit(s) for s in _NA_TEXT)
+    return ", ".join(d.literal(s) for s in _NA_TEXT)
 
 
 def _sql_covariates(facts: dict, cov_cols: list[str], cat_cols: list[str], num_cols: list[str],
@@ -737,9 +757,8 @@ def _sql_covariates(facts: dict, cov_cols: list[str], cat_cols: list[str], num_c
 def _level_views(con: Any, study: SqlStudy, info: dict) -> None:
     """x value → level code (for scans that group by level), and the rows with centred covariates."""
     x_values = info["x_values"]
-    con.register("bw_xmap_src", {"x": x_values, "code": study.x_codes_for_values(x_values).astype(np.int64)})
-    con.execute("CREATE TEMP TABLE bw_xmap AS SELECT * FROM bw_xmap_src")
-    con.unregister("bw_xmap_src")
+    study.dialect.put(con, "bw_xmap", {"x": x_values, "code": study.x_codes_for_values(x_values).astype(np.int64)})
+    q = study.dialect.quote
     sql_name = info["sql_name"]
     shifted = ["x", "y", *[q(sql_name[c]) for c in info["cat_cols"]]]
     shifted += [f"({q(sql_name[c])} - {info['num_mean'][c]!r}) AS {q(sql_name[c])}" for c in info["num_cols"]]

@@ -15,7 +15,8 @@ import numpy as np
 from ..errors import DataError
 from ..read.cleaning import DropCount
 from ..stats.power_sums import GroupSeries, choose_orders, series_helps
-from .sql_text import centre_polynomial, q, series_sql
+from .dialect import DUCKDB, Dialect
+from .sql_text import centre_polynomial, series_sql
 
 __all__ = ["series_setup", "exact_setup", "floats", "one_row", "PREFIX_ROWS"]
 
@@ -27,23 +28,23 @@ PREFIX_ROWS = 1 << 16
 
 
 def series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missing: set[str],
-                  progress: ProgressFn | None) -> dict | None:
+                 progress: ProgressFn | None, d: Dialect = DUCKDB) -> dict | None:
     """Everything the study needs from one scan, or None when the data need the exact path
     (missing or non-finite cells, a response ≤ 0, nothing in the first rows)."""
     keys = ["x", *cat_cols]
-    plan = _series_plan(con, keys, cat_cols, num_cols, progress)
+    plan = _series_plan(con, keys, cat_cols, num_cols, progress, d)
     if plan is None:
         return None
     fallback, y_ref, t_ref, big_m, big_k, centre_expr = plan
     if progress:
         progress("scanning rows: group sums (one pass)")
     res = con.execute(series_sql("bw_all", keys, num_cols, [float(v) for v in t_ref], big_m, big_k, "bw_shift",
-                                 fallback, centre_expr)).fetchnumpy()
+                                 fallback, centre_expr, d)).fetchnumpy()
     if progress:
         progress("")
     cat_vals = _clean_categories(res, cat_cols, cat_missing)
     if cat_vals is None:
-        con.execute("DROP TABLE IF EXISTS bw_shift")
+        con.execute(f"{d.drop} bw_shift")
         return None
     series = _group_series(res, len(num_cols), big_m, big_k, t_ref)
     n_unit = floats(res["n"])
@@ -57,10 +58,11 @@ def series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missing
             "num_mean": num_mean, "y_mean": y_ref, "units": units, "series": series}
 
 
-def _series_plan(con: Any, keys: list[str], cat_cols: list[str], num_cols: list[str],
-                 progress: ProgressFn | None) -> tuple[float, float, np.ndarray, int, int, str | None] | None:
+def _series_plan(con: Any, keys: list[str], cat_cols: list[str], num_cols: list[str], progress: ProgressFn | None,
+                 d: Dialect) -> tuple[float, float, np.ndarray, int, int, str | None] | None:
     """From the first rows: each group's centre of log y (a polynomial in x, or the table
     ``bw_shift``), the reference values and the series orders; None when the series cannot serve."""
+    q = d.quote
     key_list = ", ".join(q(k) for k in keys)
     ln = "CASE WHEN y > 0 THEN LN(y) END"
     parts = ["COUNT(*) AS n", "MIN(y) AS ylo", "AVG(y) AS ym", f"AVG({ln}) AS lm", f"STDDEV_POP({ln}) AS ls",
@@ -89,9 +91,7 @@ def _series_plan(con: Any, keys: list[str], cat_cols: list[str], num_cols: list[
     centre_expr = None if cat_cols else centre_polynomial(floats(pre["x"]), lm, w, floats(pre["ls"]))
     if centre_expr is None:  # a table of centres, joined on the group keys
         shift = {k: (floats(pre[k]) if k == "x" else np.asarray(pre[k], dtype=object)) for k in keys}
-        con.register("bw_shift_src", shift | {"bw_c": lm})
-        con.execute("CREATE OR REPLACE TEMP TABLE bw_shift AS SELECT * FROM bw_shift_src")
-        con.unregister("bw_shift_src")
+        d.put(con, "bw_shift", shift | {"bw_c": lm})
     return fallback, y_ref, t_ref, big_m, big_k, centre_expr
 
 
@@ -144,8 +144,9 @@ def _constant_covariates(series: GroupSeries, num_cols: list[str], t_ref: np.nda
 
 
 def exact_setup(con: Any, src: str, case: str, checks: list[tuple[str, str, str]], cat_cols: list[str],
-                 num_cols: list[str], progress: ProgressFn | None) -> dict:
+                num_cols: list[str], progress: ProgressFn | None, d: Dialect = DUCKDB) -> dict:
     """Cleaning counts per column and reason, ranges and domains, and the groups: three scans."""
+    q = d.quote
     if progress:
         progress("scanning rows: cleaning counts")
     counts = dict(con.execute(f"SELECT {case} AS r, COUNT(*) FROM {src} GROUP BY r").fetchall())

@@ -14,18 +14,19 @@ import numpy as np
 
 from ..errors import UsageError
 from ..stats.transforms import Transform
+from .dialect import DUCKDB, Dialect
 
 __all__ = ["q", "lit", "transform_sql", "aggregate_sql", "series_sql", "centre_polynomial"]
 
 
 def q(name: str) -> str:
-    """Quote an SQL identifier."""
-    return '"' + name.replace('"', '""') + '"'
+    """Quote an SQL identifier (DuckDB; other engines ask their :class:`Dialect`)."""
+    return DUCKDB.quote(name)
 
 
 def lit(text: str) -> str:
-    """Quote an SQL string literal."""
-    return "'" + text.replace("'", "''") + "'"
+    """Quote an SQL string literal (DuckDB; other engines ask their :class:`Dialect`)."""
+    return DUCKDB.literal(text)
 
 
 def transform_sql(t: Transform, col: str = "y") -> str:
@@ -36,12 +37,14 @@ def transform_sql(t: Transform, col: str = "y") -> str:
         raise UsageError(str(exc)) from None
 
 
-def aggregate_sql(source: str, keys: Sequence[str], nums: Sequence[str], zs: Sequence[str]) -> str:
+def aggregate_sql(source: str, keys: Sequence[str], nums: Sequence[str], zs: Sequence[str],
+                  d: Dialect = DUCKDB) -> str:
     """The GROUP BY query: per finest group, count, means, co-moments and extremes.
 
     ``source`` is a table or sub-query with a column ``y`` and the key and numeric columns;
     ``zs`` are SQL expressions of the transformed response. Standard aggregates only.
     """
+    q = d.quote
     parts = ["COUNT(*) AS n"]
     for i, b in enumerate(nums):
         parts.append(f"AVG({q(b)}) AS b{i}_m")
@@ -60,7 +63,8 @@ def aggregate_sql(source: str, keys: Sequence[str], nums: Sequence[str], zs: Seq
 
 
 def series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t_ref: Sequence[float], big_m: int,
-               big_k: int, shift_table: str | None, fallback_centre: float, centre_expr: str | None = None) -> str:
+               big_k: int, shift_table: str | None, fallback_centre: float, centre_expr: str | None = None,
+               d: Dialect = DUCKDB) -> str:
     """The one-scan GROUP BY query: per finest group, count, extremes of y, covariate sums and
     cross-products, and power sums Σd^k (k ≤ M), Σd^k·t (k ≤ K) of d = ln y − centre.
 
@@ -70,6 +74,7 @@ def series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t_ref: Seq
     A column ``bw_chk`` is 0 on rows whose y, x and covariates are all finite, NULL or NaN
     otherwise; it is counted and added into Σd, so dirty data are recognised. Standard SQL only.
     """
+    q = d.quote
     on = " AND ".join(f"r.{q(k)} = s.{q(k)}" for k in keys)
     sel = ", ".join([*(f"r.{q(k)}" for k in keys), "r.y", *(f"r.{q(b)}" for b in nums)])
     if centre_expr is not None:

@@ -35,7 +35,7 @@ def load_study_with_runs(args: argparse.Namespace):
 
     from .common import _tell_cleaning, parse_size, split_list
 
-    if choose_engine(args.data, args.engine, parse_size(args.memory_cap)) == "duckdb":
+    if choose_engine(args.data, args.engine, parse_size(args.memory_cap)) in ("duckdb", "spark"):
         raise UsageError("--runs reads the table in memory: give one file and --engine memory")
     delim = "\t" if args.delimiter in {"\\t", "tab", "TAB"} else args.delimiter
     frame = load_table(args.data, sheet=args.sheet, decimal=args.decimal, delimiter=delim)

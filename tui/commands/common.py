@@ -22,9 +22,11 @@ def add_data_args(p: argparse.ArgumentParser, *, need_xy: bool = True, covariate
     p.add_argument("--sheet", metavar="NAME", help="Excel sheet (default: the first)")
     p.add_argument("--decimal", choices=[".", ","], help="decimal mark in text files (default: a point, or a comma when nothing else can be meant)")
     p.add_argument("--delimiter", metavar="CHAR", help="field separator in text files (default: detected)")
-    p.add_argument("--engine", choices=["auto", "memory", "duckdb"], default="auto",
-                   help="where group totals are computed: in memory, or by DuckDB over the files "
+    p.add_argument("--engine", choices=["auto", "memory", "duckdb", "spark"], default="auto",
+                   help="where group totals are computed: in memory, by DuckDB over the files, or by Spark "
                    "(auto: DuckDB for folders, globs and files above --memory-cap)")
+    p.add_argument("--spark-master", metavar="URL", default=None,
+                   help="with --engine spark: the Spark master (default local[*]; SPARK_REMOTE selects Spark Connect)")
     p.add_argument("--memory-cap", metavar="SIZE", default="2G",
                    help="with --engine auto, files larger than this go through DuckDB (default 2G)")
 
@@ -70,11 +72,18 @@ def load_study(args: argparse.Namespace, progress=None):
     if delim in {"\\t", "tab", "TAB"}:
         delim = "\t"
     engine_name = choose_engine(args.data, getattr(args, "engine", "memory"), parse_size(getattr(args, "memory_cap", "2G")))
-    if engine_name == "duckdb":
+    if engine_name in ("duckdb", "spark"):
         if progress is None and sys.stderr.isatty() and not getattr(args, "json", False):
             def progress(text: str) -> None:
                 sys.stderr.write(f"\r  {text[:70]:<70}" if text else "\r" + " " * 72 + "\r")
                 sys.stderr.flush()
+        if engine_name == "spark":
+            from bendwise.engine.backends.spark import make_spark_study
+
+            return _tell_cleaning(make_spark_study(
+                args.data, y=args.y, x=args.x, covariates=split_list(getattr(args, "covariates", "")),
+                weights=args.weights, tolerance=args.tolerance, decimal=args.decimal, delimiter=delim,
+                progress=progress, master=getattr(args, "spark_master", None)), [])
         return _tell_cleaning(make_sql_study(
             args.data,
             y=args.y,

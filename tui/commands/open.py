@@ -109,10 +109,10 @@ def run(args: argparse.Namespace) -> int:
 
     from .common import load_study, parse_size
 
-    if choose_engine(args.data, args.engine, parse_size(args.memory_cap)) == "duckdb":
+    if choose_engine(args.data, args.engine, parse_size(args.memory_cap)) in ("duckdb", "spark"):
         # the rows stay in the files: the study is built from SQL scans, shown here on stderr
         if not req.y:
-            raise UsageError("with the DuckDB engine give -y and -x (the start screen needs the table in memory; "
+            raise UsageError(f"with the {'Spark' if args.engine == 'spark' else 'DuckDB'} engine give -y and -x (the start screen needs the table in memory; "
                              "or add --engine memory)")
         _say(f"scanning {req.source}…")
         study = load_study(args)
