@@ -22,10 +22,10 @@ from __future__ import annotations
 import argparse
 import compileall
 import os
-import subprocess
 import re
 import shutil
 import statistics
+import subprocess
 import sys
 import tempfile
 import time
