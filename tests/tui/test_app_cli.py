@@ -92,3 +92,18 @@ def test_demo_starts_the_app_before_any_heavy_import():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
                          cwd=Path(__file__).resolve().parents[2])
     assert out.stdout.split() == ["True"], out.stdout
+
+
+def test_check_loads_no_app_machinery(tmp_path):
+    """`bendwise check` is a short process: it imports neither Textual nor asyncio (the app's)."""
+    table = tmp_path / "small.csv"
+    table.write_text("x,y\n1,2\n1,2.1\n2,3\n2,3.2\n3,4.1\n3,3.9\n4,5.5\n4,5.3\n")
+    code = (
+        "import sys\n"
+        "from bendwise.tui.cli import main\n"
+        f"code = main(['check', {str(table)!r}, '-y', 'y', '-x', 'x'])\n"
+        "print(code in (0, 1), [m for m in ('asyncio', 'textual', 'rich', 'plotext') if m in sys.modules])\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
+                         cwd=Path(__file__).resolve().parents[2])
+    assert out.stdout.strip().splitlines()[-1] == "True []", out.stdout
