@@ -98,10 +98,17 @@ class Study:
 
     # ----- the row source (a SQL-backed study answers these from its files) ----------------
     def rows(self) -> Rows | NoRows:
-        """Every used row: they are in memory here (``engine.stats.rows``)."""
-        covs = {c.name: (np.asarray(c.levels, dtype=object)[c.values].astype(str) if c.kind == "categorical"
-                         else c.values) for c in self.covariates}
-        return Rows(self.y, self.x, covs, self.n, False)
+        """Every used row: they are in memory here (``engine.stats.rows``).
+
+        Built once and cached: the categorical covariates' labels per row cost a pass over
+        the rows each, and the tree asks for the rows at every node.
+        """
+        hit = self._cache.get("rows")
+        if hit is None:
+            covs = {c.name: (np.asarray(c.levels, dtype=object)[c.values].astype(str) if c.kind == "categorical"
+                             else c.values) for c in self.covariates}
+            hit = self._cache["rows"] = Rows(self.y, self.x, covs, self.n, False)
+        return hit
 
     def row_sample(self, k: int, seed: int = SAMPLE_SEED) -> Rows:
         """A seeded random sample of ``k`` used rows, in row order (every row when n ≤ k)."""

@@ -70,3 +70,40 @@ def test_make_app_defaults_to_the_demo():
     app = make_app()
     assert app.request.path.endswith("sensor_calibration.csv")
     assert (app.request.y, app.request.x, app.request.covariates) == ("signal_mv", "conc_mg_l", ("run_day", "temp_c"))
+
+
+def test_demo_starts_the_app_before_any_heavy_import():
+    """`bendwise demo` hands the app no study: the table is read in the app's worker, so pandas,
+    scipy and statsmodels load after the first frame is painted, not before it."""
+    code = (
+        "import sys\n"
+        "import bendwise.tui.commands.demo as demo\n"
+        "seen = {}\n"
+        "def launch(req, **kw):\n"
+        "    seen['heavy'] = [m for m in ('pandas', 'scipy', 'statsmodels', 'pyarrow') if m in sys.modules]\n"
+        "    seen['study'] = kw.get('study')\n"
+        "    return 0\n"
+        "demo.launch = launch\n"
+        "demo.terminal_problem = lambda *a, **k: None\n"
+        "from bendwise.tui.cli import main\n"
+        "assert main(['demo']) == 0\n"
+        "print(','.join(seen['heavy']), seen['study'] is None)\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
+                         cwd=Path(__file__).resolve().parents[2])
+    assert out.stdout.split() == ["True"], out.stdout
+
+
+def test_check_loads_no_app_machinery(tmp_path):
+    """`bendwise check` is a short process: it imports neither Textual nor asyncio (the app's)."""
+    table = tmp_path / "small.csv"
+    table.write_text("x,y\n1,2\n1,2.1\n2,3\n2,3.2\n3,4.1\n3,3.9\n4,5.5\n4,5.3\n")
+    code = (
+        "import sys\n"
+        "from bendwise.tui.cli import main\n"
+        f"code = main(['check', {str(table)!r}, '-y', 'y', '-x', 'x'])\n"
+        "print(code in (0, 1), [m for m in ('asyncio', 'textual', 'rich', 'plotext') if m in sys.modules])\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
+                         cwd=Path(__file__).resolve().parents[2])
+    assert out.stdout.strip().splitlines()[-1] == "True []", out.stdout

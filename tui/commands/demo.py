@@ -23,10 +23,10 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    """Check the demo data are present, then run the app."""
+    """Check the demo data are present, then run the app (which reads them in a worker)."""
     from bendwise.engine.errors import DataError, UsageError
 
-    from ..reading import build_study, datasets_dir, demo_request, read_frame
+    from ..reading import datasets_dir, demo_request
 
     problem = terminal_problem()
     if problem:
@@ -37,5 +37,6 @@ def run(args: argparse.Namespace) -> int:
     if not folder.is_dir() or not Path(req.path).is_file():
         raise DataError(f"demo data not found in {folder}; the datasets folder ships with the source tree "
                         "(run from a checkout), or open your own table: bendwise DATA -y COL -x COL")
-    study = build_study(req, read_frame(req))
-    return launch(req, study=study, depth=args.depth, alpha=args.alpha, rule=args.rule)
+    # the app paints first and reads the (bundled, small) table in its worker: pandas and the
+    # engine's imports then overlap the first frames instead of coming before them
+    return launch(req, study=None, depth=args.depth, alpha=args.alpha, rule=args.rule)

@@ -13,7 +13,6 @@ terminal (/dev/tty).
 from __future__ import annotations
 
 import argparse
-import asyncio
 import os
 import sys
 
@@ -138,6 +137,8 @@ def _say(text: str) -> None:
 
 def launch(req, **kwargs) -> int:
     """Run the app; if an engine step is still running at quit, leave without waiting for it."""
+    import asyncio  # here, not at the top: every subcommand imports this module to register it
+
     from ..app import make_app
 
     app = make_app(request=req, **kwargs)
