@@ -25,6 +25,7 @@ See docs/METHODS.md "Calibrations over several runs". Sources: Kutner, Nachtshei
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -35,7 +36,7 @@ from ..stats.dist import f_sf
 from .results import LackOfFit
 
 __all__ = ["RunFactor", "RunsResult", "VarianceParts", "check_runs", "run_factor", "validate_runs_column",
-           "reml_loglik", "run_sums", "MAX_RUNS", "INTERVAL_LEVEL"]
+           "reml_loglik", "run_sums", "sd_interval_ends", "MAX_RUNS", "INTERVAL_LEVEL"]
 
 MAX_RUNS = 30
 """More distinct runs than this: the column is refused (an identifier or a measurement?)."""
@@ -365,7 +366,6 @@ def _reml_balanced(rs: RunSums, k: int) -> tuple[float, float]:
 
 def _profile_interval(rs: RunSums, sigma2: float, tau: float, level: float) -> tuple[float, float | None]:
     """Profile REML likelihood interval for σ_b: where twice the drop from the maximum reaches χ²₁."""
-    from scipy.optimize import brentq
     from scipy.stats import chi2
 
     top = reml_loglik(rs, sigma2, tau)
@@ -374,9 +374,17 @@ def _profile_interval(rs: RunSums, sigma2: float, tau: float, level: float) -> t
     def drop(sd_b: float) -> float:
         return top - _profile_sigma2(rs, sd_b * sd_b)[1] - cut
 
-    sd_hat = math.sqrt(tau)
+    return sd_interval_ends(drop, math.sqrt(tau), math.sqrt(sigma2))
+
+
+def sd_interval_ends(drop: Callable[[float], float], sd_hat: float, sd_within: float) -> tuple[float, float | None]:
+    """Ends of a profile-likelihood interval for a between-run SD: where ``drop`` (the loss of
+    log-likelihood past the cut-off) crosses 0 below and above ``sd_hat``; 0 when the lower end
+    reaches the boundary, None when the upper end is not found within 60 doublings."""
+    from scipy.optimize import brentq
+
     low = 0.0 if drop(0.0) <= 0 else brentq(drop, 0.0, sd_hat, xtol=1e-12 * max(sd_hat, 1e-300))
-    step = max(sd_hat, math.sqrt(sigma2))
+    step = max(sd_hat, sd_within)
     hi = sd_hat + step
     for _ in range(60):
         if drop(hi) > 0:

@@ -28,7 +28,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from ..checks.results import LackOfFit
-from ..checks.runs import INTERVAL_LEVEL, RunFactor
+from ..checks.runs import INTERVAL_LEVEL, RunFactor, sd_interval_ends
 from ..errors import UsageError
 from ..stats.dist import f_sf
 from ..stats.results import Criteria, criteria_from
@@ -157,7 +157,6 @@ def _best_s2(ds: RunDesignSums, tau: float, s2_hat: float) -> float:
 
 def between_interval(ds: RunDesignSums, s2: float, tau: float) -> tuple[float, float | None]:
     """Profile REML likelihood interval for σ_b (χ²₁ cut-off at ``INTERVAL_LEVEL``)."""
-    from scipy.optimize import brentq
     from scipy.stats import chi2
 
     top = _loglik_at(ds, s2, tau)
@@ -166,16 +165,7 @@ def between_interval(ds: RunDesignSums, s2: float, tau: float) -> tuple[float, f
     def drop(sd: float) -> float:
         return top - _best_s2(ds, sd * sd, s2) - cut
 
-    sd_hat = math.sqrt(tau)
-    low = 0.0 if drop(0.0) <= 0 else brentq(drop, 0.0, sd_hat, xtol=1e-12 * max(sd_hat, 1e-300))
-    step = max(sd_hat, math.sqrt(s2))
-    hi = sd_hat + step
-    for _ in range(60):
-        if drop(hi) > 0:
-            return low, brentq(drop, sd_hat, hi, xtol=1e-12 * hi)
-        hi += step
-        step *= 2
-    return low, None
+    return sd_interval_ends(drop, math.sqrt(tau), math.sqrt(s2))
 
 
 @dataclass(frozen=True, slots=True)
