@@ -12,7 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["GroupStats", "compute_group_stats", "compute_base_parts", "normalised_boxcox_stats", "drop_rounding"]
+__all__ = ["GroupStats", "compute_group_stats", "compute_base_parts", "normalised_boxcox_stats", "drop_rounding",
+           "pool_group_stats", "narrow_group_stats"]
 
 _EPS = float(np.finfo(float).eps)
 
@@ -177,3 +178,54 @@ def normalised_boxcox_stats(st: GroupStats, lam: float, log_g: float) -> GroupSt
         cross[:, q, q] *= a * a
     return GroupStats(st.n, st.count, st.wsum, a * st.mean + b, a * a * st.ss, st.sum_log_w, st.base_mean, cross,
                       None if st.zmin is None else a * st.zmin + b, None if st.zmax is None else a * st.zmax + b)
+
+
+def pool_group_stats(st: GroupStats, parent: np.ndarray, c: int, *, bases: bool, extremes: bool) -> GroupStats:
+    """Statistics of coarser groups from those of finer ones: fine group g lies in coarse group
+    ``parent[g]`` (0..c-1). Exact algebra (Chan, Golub & LeVeque 1983): counts and weights add;
+    sums of squares and cross-products add, plus each fine group's weight times the outer
+    product of its means' departure from the coarse means. Means are combined about a reference
+    mean of each coarse group, so a large common offset costs no digits. ``bases`` keeps the
+    within-varying bases (the fine statistics must have them); ``extremes`` keeps zmin/zmax.
+    """
+    count = np.bincount(parent, weights=st.count, minlength=c).astype(np.int64)
+    wsum = np.bincount(parent, weights=st.wsum, minlength=c)
+    ref = np.empty(c)
+    ref[parent[::-1]] = st.mean[::-1]  # the first fine group's mean as the reference
+    lo = st.mean_lo if st.mean_lo is not None else np.zeros_like(st.mean)
+    dev_f = (st.mean - ref[parent]) + lo
+    shift = np.bincount(parent, weights=st.wsum * dev_f, minlength=c) / wsum
+    mean = ref + shift
+    mean_lo = shift - (mean - ref)
+    d = dev_f - shift[parent]  # fine mean minus coarse mean, with their low digits
+    ss = np.bincount(parent, weights=st.ss + st.wsum * d * d, minlength=c)
+    ss = drop_rounding(ss, wsum, mean)
+    base_mean = np.zeros((c, 0))
+    cross = None
+    q = st.base_mean.shape[1]
+    if bases and q:
+        assert st.cross is not None
+        base_mean = np.empty((c, q))
+        for k in range(q):
+            base_mean[:, k] = np.bincount(parent, weights=st.wsum * st.base_mean[:, k], minlength=c) / wsum
+        u = np.column_stack([st.base_mean - base_mean[parent], d])  # (fine, q+1) departures
+        extra = st.cross + st.wsum[:, None, None] * u[:, :, None] * u[:, None, :]
+        cross = np.zeros((c, q + 1, q + 1))
+        np.add.at(cross, parent, extra)
+        cross[:, q, q] = ss
+    zmin = zmax = None
+    if extremes:
+        assert st.zmin is not None and st.zmax is not None
+        zmin = np.full(c, np.inf)
+        zmax = np.full(c, -np.inf)
+        np.minimum.at(zmin, parent, st.zmin)
+        np.maximum.at(zmax, parent, st.zmax)
+    return GroupStats(st.n, count, wsum, mean, ss, st.sum_log_w, base_mean, cross, zmin, zmax, mean_lo)
+
+
+def narrow_group_stats(st: GroupStats, *, bases: bool, extremes: bool) -> GroupStats:
+    """The same groups with the bases and/or the extremes left out."""
+    base_mean, cross = (st.base_mean, st.cross) if bases else (np.zeros((st.c, 0)), None)
+    zmin, zmax = (st.zmin, st.zmax) if extremes else (None, None)
+    return GroupStats(st.n, st.count, st.wsum, st.mean, st.ss, st.sum_log_w, base_mean, cross, zmin, zmax,
+                      st.mean_lo)

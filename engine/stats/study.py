@@ -22,7 +22,13 @@ from ..read.usable import (
     require_rows,
     require_spread,
 )
-from .groups import GroupStats, compute_base_parts, compute_group_stats
+from .groups import (
+    GroupStats,
+    compute_base_parts,
+    compute_group_stats,
+    narrow_group_stats,
+    pool_group_stats,
+)
 from .rows import SAMPLE_SEED, NoRows, Rows
 
 if TYPE_CHECKING:
@@ -94,6 +100,7 @@ class Study:
         self.tolerance = tolerance
         self.tolerance_text = tolerance_text
         self._cache: dict[Any, Any] = {}
+        self._stats_made: dict[Any, list] = {}  # (response, weights) → statistics computed from rows
         self.x_codes, self.x_level_values, self.x_level_labels = self._x_groups()
 
     # ----- the row source (a SQL-backed study answers these from its files) ----------------
@@ -332,6 +339,10 @@ class Study:
                              base.zmin, base.zmax, base.mean_lo)
             self._cache[key] = hit
         if hit is None:
+            hit = self._derived_stats(z_key, by, weights_key, bases_key, extremes)
+            if hit is not None:
+                self._cache[key] = hit
+        if hit is None:
             codes, c = self.group_codes(by)
             order = self.group_order(by) if extremes else None
             parts = None
@@ -345,6 +356,41 @@ class Study:
             if z is None:
                 raise ValueError("in-memory group statistics need the response values")
             hit = compute_group_stats(codes, c, z, weights, bases, extremes, order, parts)
+            self._cache[key] = hit
+            self._stats_made.setdefault((z_key, weights_key), []).append((by, bases_key, extremes, hit))
+        return hit
+
+    def _derived_stats(self, z_key: Any, by: tuple[str, ...], weights_key: Any, bases_key: Any,
+                       extremes: bool) -> GroupStats | None:
+        """Statistics asked for, derived without a pass over the rows from statistics of the same
+        response and weights already computed on finer groups (``by`` a subset of theirs), with the
+        same bases or bases to drop, and extremes if asked for; None when there are none."""
+        best = None
+        for f_by, f_bases, f_ext, st in self._stats_made.get((z_key, weights_key), ()):
+            if not set(by) <= set(f_by) or (extremes and not f_ext):
+                continue
+            if bases_key is not None and f_bases != bases_key:
+                continue
+            if best is None or st.c < best[3].c:
+                best = (f_by, f_bases, f_ext, st)
+        if best is None:
+            return None
+        f_by, _, _, st = best
+        keep_bases = bases_key is not None
+        if set(f_by) == set(by) and tuple(f_by) == tuple(by):
+            return narrow_group_stats(st, bases=keep_bases, extremes=extremes)
+        _, c = self.group_codes(by)
+        return pool_group_stats(st, self._group_map(f_by, by), c, bases=keep_bases, extremes=extremes)
+
+    def _group_map(self, fine: tuple[str, ...], coarse: tuple[str, ...]) -> np.ndarray:
+        """For each group formed ``fine``, the group formed ``coarse`` (a subset) that holds it."""
+        key = ("gmap", fine, coarse)
+        hit = self._cache.get(key)
+        if hit is None:
+            f_codes, f_c = self.group_codes(fine)
+            c_codes, _ = self.group_codes(coarse)
+            hit = np.empty(f_c, dtype=np.intp)
+            hit[f_codes] = c_codes
             self._cache[key] = hit
         return hit
 
