@@ -472,7 +472,7 @@ class SqlStudy(Study):
             self._cache[key] = hit
         return hit
 
-    def spread_by_level(self, z: Any, key: Any, w: Any) -> SideTest:
+    def spread_by_level(self, z: Any, key: Any, w: Any, *, transform: Any = None, level_weights: Any = None) -> SideTest:
         """Bartlett's test across x levels, from the level variances of the response scale.
 
         Brown–Forsythe needs each level's median, i.e. two more passes over the rows; Bartlett's

@@ -14,17 +14,22 @@ from .results import SideTest
 __all__ = ["spread_test", "bartlett_from_groups"]
 
 
-def spread_test(z: np.ndarray, codes: np.ndarray, c: int, order: np.ndarray | None = None) -> SideTest:
+def spread_test(z: np.ndarray, codes: np.ndarray, c: int, order: np.ndarray | None = None,
+                medians: np.ndarray | None = None) -> SideTest:
     """Brown–Forsythe test of equal spread: one-way ANOVA of |z − group median| (unweighted).
 
     Levels with one row carry no spread and are left out (as scipy.stats.levene would need).
-    ``order`` (rows sorted by group, e.g. ``Study.group_order()``) saves a sort.
+    ``order`` (rows sorted by group, e.g. ``Study.group_order()``) saves a sort; ``medians``
+    (per group, when the caller knows them) saves the sort and the partial sorts.
     """
     name = "equal spread (Brown–Forsythe)"
     counts = np.bincount(codes, minlength=c)
     ok = counts >= 2
     if ok.sum() < 2:
         return SideTest(name, False, reason="needs at least two levels with two or more replicates")
+    if medians is not None:
+        sums, sq, dsq = _deviation_sums_known(z, codes, c, counts, medians)
+        return _brown_forsythe(name, counts, ok, sums, sq, dsq)
     if order is None:
         order = np.argsort(codes.astype(np.uint16) if c <= 65535 else codes.astype(np.int64), kind="stable")
     zs = z[order]
@@ -51,6 +56,24 @@ def spread_test(z: np.ndarray, codes: np.ndarray, c: int, order: np.ndarray | No
         dev = d - np.repeat(np.divide(sums, counts, out=np.zeros(c), where=nz), counts)
         sq[nz] = np.add.reduceat(dev * dev, starts[nz])
         dsq[nz] = np.add.reduceat(d * d, starts[nz])
+    return _brown_forsythe(name, counts, ok, sums, sq, dsq)
+
+
+def _deviation_sums_known(z: np.ndarray, codes: np.ndarray, c: int, counts: np.ndarray,
+                          medians: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per group: Σ d, Σ (d − d̄)² and Σ d² of d = |z − median| (two passes: accurate)."""
+    d = np.abs(z - medians[codes])
+    sums = np.bincount(codes, weights=d, minlength=c)
+    means = np.divide(sums, counts, out=np.zeros(c), where=counts > 0)
+    dev = d - means[codes]
+    sq = np.bincount(codes, weights=dev * dev, minlength=c)
+    return sums, sq, sq + sums * means
+
+
+def _brown_forsythe(name: str, counts: np.ndarray, ok: np.ndarray, sums: np.ndarray, sq: np.ndarray,
+                    dsq: np.ndarray) -> SideTest:
+    """The one-way ANOVA of the absolute deviations from per-group sums."""
+    c = counts.shape[0]
     means = np.divide(sums, counts, out=np.zeros(c), where=counts > 0)
     nk = counts[ok].astype(float)
     k = int(ok.sum())

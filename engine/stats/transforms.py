@@ -72,6 +72,16 @@ class Transform:
                 return np.where(z > 0, np.power(np.where(z > 0, z, 1.0), 1.0 / a), np.nan)
         raise ValueError(k)
 
+    def monotone_over(self, lo: float, hi: float) -> bool:
+        """True when g is monotone (and defined) on [lo, hi]: then it keeps or reverses the order
+        of values, so medians map through it."""
+        k = self.kind
+        if k == "identity":
+            return True
+        if k == "reciprocal":
+            return lo > 0 or hi < 0
+        return lo > 0  # log, √, Box–Cox and powers: defined and monotone for positive values
+
     def log_abs_derivative(self, v: np.ndarray) -> np.ndarray:
         """log|g′(v)| per value (the Jacobian term of the likelihood)."""
         k = self.kind

@@ -516,7 +516,8 @@ def _row_diagnostics(study, spec, fr, stats, design, fit, big):
                 resid = stats.mean - fitted
                 ss_unw = stats.ss / wg + stats.count * resid**2
                 press, note = float(np.sum(ss_unw / (1 - hg) ** 2)), None
-    sp = study.spread_by_level(fr.z, (spec.response.key(), fr.wkey), fr.w)
+    sp = study.spread_by_level(fr.z, (spec.response.key(), fr.wkey), fr.w, transform=spec.response,
+                               level_weights=fr.w_level)
     reason = (None if not (spec.covariates or study.approximate_groups)
               else "computed on the response, not the residuals (no row pass here)")
     # the study names its test (Brown–Forsythe from rows, Bartlett from level variances in SQL)
