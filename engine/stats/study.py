@@ -179,6 +179,17 @@ class Study:
             self._cache[("bases", key)] = False if hit is None else hit
         return None if hit is False else hit
 
+    def centred_log_y(self) -> tuple[np.ndarray, float]:
+        """(log y − its mean per row, Σ log y), cached; raises UsageError unless every y > 0."""
+        hit = self._cache.get("centred_log_y")
+        if hit is None:
+            if (self.y <= 0).any():
+                raise UsageError("Box–Cox needs y > 0")
+            logy = np.log(self.y)
+            slog = float(logy.sum())
+            hit = self._cache["centred_log_y"] = (logy - slog / self.n, slog)
+        return hit
+
     def sum_log_y(self) -> float:
         """Σ log y (only meaningful when every y > 0)."""
         return float(np.sum(np.log(self.y)))
@@ -264,8 +275,7 @@ class Study:
             from .boxcox_grid import EXACT_PROFILE_LIMIT, grid_group_stats, grid_group_stats_series
 
             codes, c = self.group_codes(by)
-            logy = np.log(self.y)
-            ly = logy - float(logy.mean())
+            ly = self.centred_log_y()[0]
             found: list = [None] * len(lams)
             if self.weights is None and self.n > EXACT_PROFILE_LIMIT:  # power sums: one pass for every λ
                 found = grid_group_stats_series(ly, codes, c, lams, bases, self.group_order(by))

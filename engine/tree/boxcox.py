@@ -58,6 +58,7 @@ def profile_boxcox(
     grid_provider: Callable[[np.ndarray], list[GroupStats]] | None = None,
     n: int | None = None,
     sum_log_y: float | None = None,
+    centred_log: tuple[np.ndarray, float] | None = None,
 ) -> BoxCoxProfile:
     """λ̂ and its 95% interval for (y^λ − 1)/λ regressed on ``design`` (groups ``codes``).
 
@@ -75,7 +76,11 @@ def profile_boxcox(
     Long because the two paths (grid with spline, exact maximisation) share the profile function
     and the choice of a conventional λ; the signature alone takes 16 lines.
     """
-    ly, n, slog = _log_scale(y, n, sum_log_y, grid_provider)
+    if centred_log is not None:  # (log y − its mean, Σ log y) computed once by the caller
+        ly, slog = centred_log
+        n = ly.shape[0]
+    else:
+        ly, n, slog = _log_scale(y, n, sum_log_y, grid_provider)
     if ly is not None:
         reach = float(np.max(np.abs(ly)))
         if reach > 0:

@@ -60,5 +60,6 @@ def _profile(st, sp):
 
     rows = st.rows()
     if isinstance(rows, Rows):
-        return profile_boxcox(rows.y, codes, c, design, weights=st.weights, bases=fr.bases, grid_provider=provider)
+        return profile_boxcox(rows.y, codes, c, design, weights=st.weights, bases=fr.bases, grid_provider=provider,
+                              centred_log=st.centred_log_y())
     return profile_boxcox(None, codes, c, design, grid_provider=provider, n=st.n, sum_log_y=st.sum_log_y())
