@@ -85,17 +85,19 @@ def grid_group_stats_series(
     lams: np.ndarray,
     bases: np.ndarray | None,
     order: np.ndarray,
+    base_parts: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
 ) -> list[GroupStats | None]:
     """The Box–Cox grid's group statistics from one pass of power sums of ln y (unweighted).
 
     Each group is centred on its own mean of ln y; :class:`engine.series.GroupSeries` gives every
     λ from the sums Σd^k and Σd^k·b̃ (b̃: the bases centred within groups). An entry is None
     where the series cannot promise GRID_TOL (the caller computes that λ row by row).
-    ``order`` sorts the rows by group (for each group's extremes).
+    ``order`` sorts the rows by group (for each group's extremes); ``base_parts`` as for
+    :func:`compute_group_stats` (the bases' group means, centred rows and cross-products).
     """
     from .power_sums import GRID_TOL, GroupSeries, choose_orders
 
-    base = compute_group_stats(codes, c, logy, None, bases)
+    base = compute_group_stats(codes, c, logy, None, bases, base_parts=base_parts)
     count = base.count.astype(float)
     centre = base.mean
     d = logy - centre[codes]
@@ -109,7 +111,12 @@ def grid_group_stats_series(
     big_m, big_k = choose_orders(sd, spread, q)
     s = np.empty((c, big_m))
     cross = np.zeros((c, q, big_k))
-    bc = None if not q else bases - base.base_mean[codes]  # type: ignore[operator]
+    if not q:
+        bc = None
+    elif base_parts is not None:
+        bc = base_parts[1]
+    else:
+        bc = bases - base.base_mean[codes]  # type: ignore[operator]
     power = np.ones_like(d)
     for k in range(1, big_m + 1):
         power *= d

@@ -278,7 +278,8 @@ class Study:
             ly = self.centred_log_y()[0]
             found: list = [None] * len(lams)
             if self.weights is None and self.n > EXACT_PROFILE_LIMIT:  # power sums: one pass for every λ
-                found = grid_group_stats_series(ly, codes, c, lams, bases, self.group_order(by))
+                parts = None if bases is None or not bases.shape[1] else self._base_parts(by, None, bases, bases_key)
+                found = grid_group_stats_series(ly, codes, c, lams, bases, self.group_order(by), parts)
             todo = [i for i, st in enumerate(found) if st is None]
             if todo:
                 rest = grid_group_stats(ly, codes, c, lams[todo], self.weights, bases)
@@ -404,18 +405,27 @@ class Study:
             order = self.group_order(by) if extremes else None
             parts = None
             if bases is not None and bases.shape[1]:
-                pkey = ("baseparts", by, weights_key, bases_key)
-                parts = self._cache.get(pkey)
-                if parts is None:
-                    wsum = np.bincount(codes, weights=weights, minlength=c) if weights is not None else \
-                        np.bincount(codes, minlength=c).astype(float)
-                    parts = self._cache[pkey] = compute_base_parts(codes, c, wsum, weights, bases)
+                parts = self._base_parts(by, (weights_key, weights), bases, bases_key)
             if z is None:
                 raise ValueError("in-memory group statistics need the response values")
             hit = compute_group_stats(codes, c, z, weights, bases, extremes, order, parts)
             self._cache[key] = hit
             self._stats_made.setdefault((z_key, weights_key), []).append((by, bases_key, extremes, hit))
         return hit
+
+    def _base_parts(self, by: tuple[str, ...], weighting: tuple[Any, np.ndarray | None] | None, bases: np.ndarray,
+                    bases_key: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The bases' group means, their rows centred within groups and their cross-products
+        (cached per grouping, weights and bases); ``weighting`` = (weights key, row weights)."""
+        weights_key, weights = weighting if weighting is not None else (None, None)
+        pkey = ("baseparts", by, weights_key, bases_key)
+        parts = self._cache.get(pkey)
+        if parts is None:
+            codes, c = self.group_codes(by)
+            wsum = np.bincount(codes, weights=weights, minlength=c) if weights is not None else \
+                np.bincount(codes, minlength=c).astype(float)
+            parts = self._cache[pkey] = compute_base_parts(codes, c, wsum, weights, bases)
+        return parts
 
     def _derived_stats(self, z_key: Any, by: tuple[str, ...], weights_key: Any, bases_key: Any,
                        extremes: bool) -> GroupStats | None:
