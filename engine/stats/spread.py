@@ -11,25 +11,20 @@ import numpy as np
 from .dist import f_sf
 from .results import SideTest
 
-__all__ = ["spread_test", "bartlett_from_groups"]
+__all__ = ["spread_test", "bartlett_from_groups", "brown_forsythe_from_sums", "deviation_sums"]
 
 
-def spread_test(z: np.ndarray, codes: np.ndarray, c: int, order: np.ndarray | None = None,
-                medians: np.ndarray | None = None) -> SideTest:
+def spread_test(z: np.ndarray, codes: np.ndarray, c: int, order: np.ndarray | None = None) -> SideTest:
     """Brown–Forsythe test of equal spread: one-way ANOVA of |z − group median| (unweighted).
 
     Levels with one row carry no spread and are left out (as scipy.stats.levene would need).
-    ``order`` (rows sorted by group, e.g. ``Study.group_order()``) saves a sort; ``medians``
-    (per group, when the caller knows them) saves the sort and the partial sorts.
+    ``order`` (rows sorted by group, e.g. ``Study.group_order()``) saves a sort.
     """
     name = "equal spread (Brown–Forsythe)"
     counts = np.bincount(codes, minlength=c)
     ok = counts >= 2
     if ok.sum() < 2:
         return SideTest(name, False, reason="needs at least two levels with two or more replicates")
-    if medians is not None:
-        sums, sq, dsq = _deviation_sums_known(z, codes, c, counts, medians)
-        return _brown_forsythe(name, counts, ok, sums, sq, dsq)
     if order is None:
         order = np.argsort(codes.astype(np.uint16) if c <= 65535 else codes.astype(np.int64), kind="stable")
     zs = z[order]
@@ -59,7 +54,17 @@ def spread_test(z: np.ndarray, codes: np.ndarray, c: int, order: np.ndarray | No
     return _brown_forsythe(name, counts, ok, sums, sq, dsq)
 
 
-def _deviation_sums_known(z: np.ndarray, codes: np.ndarray, c: int, counts: np.ndarray,
+def brown_forsythe_from_sums(counts: np.ndarray, sums: np.ndarray, sq: np.ndarray, dsq: np.ndarray) -> SideTest:
+    """Brown–Forsythe from per-group Σd, Σ(d − d̄)² and Σd² of the absolute deviations from
+    the group medians (see :func:`deviation_sums`)."""
+    name = "equal spread (Brown–Forsythe)"
+    ok = counts >= 2
+    if ok.sum() < 2:
+        return SideTest(name, False, reason="needs at least two levels with two or more replicates")
+    return _brown_forsythe(name, counts, ok, sums, sq, dsq)
+
+
+def deviation_sums(z: np.ndarray, codes: np.ndarray, c: int, counts: np.ndarray,
                           medians: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Per group: Σ d, Σ (d − d̄)² and Σ d² of d = |z − median| (two passes: accurate)."""
     d = np.abs(z - medians[codes])

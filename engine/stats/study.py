@@ -212,35 +212,46 @@ class Study:
 
         When z = g(y) for a ``transform`` g monotone over the observed y, and the weights are
         constant within levels (``level_weights``, no per-row weights of the user's), each level's
-        median of √w·z is √w times the mean of g at the two middle y values of that level: one
-        partial sort of y serves every response.
+        median of g(y) is the mean of g at the two middle y values of that level (one partial sort
+        of y serves every response), and the weighted test's per-level sums are those of the
+        unweighted one times √w or w (no pass of its own).
         """
-        from .spread import spread_test
+        from .spread import brown_forsythe_from_sums, spread_test
 
         hit = self._cache.get(("spread", key))
         if hit is None:
-            zz = z if w is None else np.sqrt(w) * z
-            assert zz is not None, "the spread test needs the rows"
-            medians = self._transformed_medians(transform, w, level_weights)
-            hit = self._cache[("spread", key)] = spread_test(zz, self.x_codes, self.c, self.group_order(()),
-                                                            medians=medians)
+            assert z is not None, "the spread test needs the rows"
+            sums = self._deviation_sums(z, transform, w, level_weights)
+            if sums is not None:
+                hit = brown_forsythe_from_sums(self.level_counts(), *sums)
+            else:
+                zz = z if w is None else np.sqrt(w) * z
+                hit = spread_test(zz, self.x_codes, self.c, self.group_order(()))
+            self._cache[("spread", key)] = hit
         return hit
 
-    def _transformed_medians(self, transform: Any, w: np.ndarray | None,
-                             level_weights: np.ndarray | None) -> np.ndarray | None:
-        """Per-level medians of √w·g(y) from the middle order statistics of y, or None when that
-        shortcut does not hold (see :meth:`spread_by_level`)."""
+    def _deviation_sums(self, z: np.ndarray, transform: Any, w: np.ndarray | None,
+                        level_weights: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+        """Per level: Σd, Σ(d − d̄)², Σd² of d = |√w·z − median|, through the median shortcut of
+        :meth:`spread_by_level`; None when the shortcut does not hold."""
+        from .spread import deviation_sums
+
         if transform is None or (w is not None and (self.weights is not None or level_weights is None)):
             return None
-        lo_y, hi_y = self._y_middle()
-        if lo_y is None or not transform.monotone_over(*self.y_range()):
-            return None
-        with np.errstate(all="ignore"):
-            pair = np.asarray(transform.forward(np.concatenate([lo_y, hi_y])), dtype=float)
-        med = (pair[: self.c] + pair[self.c:]) / 2
-        if w is not None:
-            med = np.sqrt(level_weights) * med
-        return med
+        key = ("devsums", transform.key())
+        sums = self._cache.get(key)
+        if sums is None:
+            lo_y, hi_y = self._y_middle()
+            if lo_y is None or not transform.monotone_over(*self.y_range()):
+                return None
+            with np.errstate(all="ignore"):
+                pair = np.asarray(transform.forward(np.concatenate([lo_y, hi_y])), dtype=float)
+            medians = (pair[: self.c] + pair[self.c:]) / 2
+            sums = self._cache[key] = deviation_sums(z, self.x_codes, self.c, self.level_counts(), medians)
+        if w is None:
+            return sums
+        root = np.sqrt(level_weights)
+        return sums[0] * root, sums[1] * level_weights, sums[2] * level_weights
 
     def _y_middle(self) -> tuple[np.ndarray | None, np.ndarray | None]:
         """The two middle y values of each x level (equal for an odd count); (None, None) with

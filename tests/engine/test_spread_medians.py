@@ -38,7 +38,7 @@ def test_shortcut_medians_match_scipy(case, t, weighted):
     w = w_level[study.x_codes] if weighted else None
     key = (t.key(), "w" if weighted else None)
     got = study.spread_by_level(z, key, w, transform=t, level_weights=w_level if weighted else None)
-    assert study._transformed_medians(t, w, w_level if weighted else None) is not None  # the shortcut ran
+    assert study._deviation_sums(z, t, w, w_level if weighted else None) is not None  # the shortcut ran
     zz = z if w is None else np.sqrt(w) * z
     groups = [zz[study.x_codes == g] for g in range(study.c)]
     groups = [g for g in groups if g.size >= 2]
@@ -56,7 +56,7 @@ def test_no_shortcut_with_row_weights_or_a_sign_change():
     frame = pd.DataFrame({"x": np.repeat([1.0, 2.0, 3.0], 4), "y": np.arange(12.0) - 5.5,
                           "w": np.linspace(0.5, 2, 12)})
     study = make_study(frame, y="y", x="x")
-    assert study._transformed_medians(RECIPROCAL, None, None) is None
-    assert study._transformed_medians(IDENTITY, None, None) is not None
+    assert study._deviation_sums(1.0 / study.y, RECIPROCAL, None, None) is None
+    assert study._deviation_sums(study.y, IDENTITY, None, None) is not None
     weighted = make_study(frame, y="y", x="x", weights="w")
-    assert weighted._transformed_medians(IDENTITY, weighted.weights, np.ones(3)) is None
+    assert weighted._deviation_sums(weighted.y, IDENTITY, weighted.weights, np.ones(3)) is None
