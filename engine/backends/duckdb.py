@@ -379,7 +379,7 @@ class SqlStudy(Study):
     # --- group statistics pooled from units ---------------------------------------------------
     def group_stats(self, z: Any, z_key: Any, *, by: tuple[str, ...] = (), weights: Any = None,
                     weights_key: Any = None, bases: Any = None, bases_key: Any = None, extremes: bool = False,
-                    level_weights: np.ndarray | None = None) -> GroupStats:
+                    level_weights: np.ndarray | None = None, transform: Any = None) -> GroupStats:
         key = ("stats", z_key, by, weights_key, bases_key, extremes)
         hit = self._cache.get(key)
         if hit is not None:

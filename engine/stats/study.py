@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -390,17 +391,20 @@ class Study:
         bases_key: Any = None,
         extremes: bool = False,
         level_weights: np.ndarray | None = None,
+        transform: Any = None,
     ) -> GroupStats:
         """Group statistics of response ``z`` (identified by ``z_key``), cached per key.
 
         ``level_weights`` repeats rule weights per x level (rows already carry them in
-        ``weights``); a SQL-backed study uses it because it has no rows.
+        ``weights``); a SQL-backed study uses it because it has no rows. ``transform``, when z is
+        that transform of y, lets the per-group extremes come from those of y.
         """
         key = ("stats", z_key, by, weights_key, bases_key, extremes)
         hit = self._cache.get(key)
         if hit is None and level_weights is not None and self.weights is None:
             # weights constant within x levels: scale the unweighted totals, no new pass
-            base = self.group_stats(z, z_key, by=by, bases=bases, bases_key=bases_key, extremes=extremes)
+            base = self.group_stats(z, z_key, by=by, bases=bases, bases_key=bases_key, extremes=extremes,
+                                    transform=transform)
             w_g = level_weights[self.group_parent(by)]
             hit = GroupStats(base.n, base.count, base.wsum * w_g, base.mean, base.ss * w_g,
                              float((base.count * np.log(w_g)).sum()), base.base_mean,
@@ -413,16 +417,37 @@ class Study:
                 self._cache[key] = hit
         if hit is None:
             codes, c = self.group_codes(by)
-            order = self.group_order(by) if extremes else None
+            ends = self._transformed_extremes(transform, by) if extremes else None
+            order = self.group_order(by) if extremes and ends is None else None
             parts = None
             if bases is not None and bases.shape[1]:
                 parts = self._base_parts(by, (weights_key, weights), bases, bases_key)
             if z is None:
                 raise ValueError("in-memory group statistics need the response values")
-            hit = compute_group_stats(codes, c, z, weights, bases, extremes, order, parts)
+            hit = compute_group_stats(codes, c, z, weights, bases, extremes and ends is None, order, parts)
+            if ends is not None:
+                hit = dataclasses.replace(hit, zmin=ends[0], zmax=ends[1])
             self._cache[key] = hit
             self._stats_made.setdefault((z_key, weights_key), []).append((by, bases_key, extremes, hit))
         return hit
+
+    def _transformed_extremes(self, transform: Any, by: tuple[str, ...]) -> tuple[np.ndarray, np.ndarray] | None:
+        """Per-group smallest and largest g(y) from those of y, for a ``transform`` g monotone over
+        the observed y (None otherwise)."""
+        if transform is None or not transform.monotone_over(*self.y_range()):
+            return None
+        key = ("y_extremes", by)
+        hit = self._cache.get(key)
+        if hit is None:
+            codes, c = self.group_codes(by)
+            ys = self.y[self.group_order(by)]
+            counts = np.bincount(codes, minlength=c)
+            starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
+            hit = self._cache[key] = (np.minimum.reduceat(ys, starts), np.maximum.reduceat(ys, starts))
+        with np.errstate(all="ignore"):
+            a = np.asarray(transform.forward(hit[0]), dtype=float)
+            b = np.asarray(transform.forward(hit[1]), dtype=float)
+        return np.minimum(a, b), np.maximum(a, b)
 
     def _base_parts(self, by: tuple[str, ...], weighting: tuple[Any, np.ndarray | None] | None, bases: np.ndarray,
                     bases_key: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -529,8 +554,12 @@ class Study:
         return value
 
     def level_counts(self) -> np.ndarray:
-        """Rows per x level."""
-        return np.bincount(self.x_codes, minlength=self.c)
+        """Rows per x level (cached, read-only)."""
+        hit = self._cache.get("level_counts")
+        if hit is None:
+            hit = self._cache["level_counts"] = np.bincount(self.x_codes, minlength=self.c)
+            hit.setflags(write=False)
+        return hit
 
     def describe_design(self) -> str:
         """'24 rows at 8 levels (3 replicates each)' or a range of replicate counts."""

@@ -191,7 +191,7 @@ def _frame(study: Study, spec: ModelSpec) -> _Frame:
 def _stats(study: Study, spec: ModelSpec, fr: _Frame, extremes: bool = False):
     return study.group_stats(
         fr.z, ("z", spec.response.key()), by=fr.by, weights=fr.w, weights_key=fr.wkey,
-        bases=fr.bases, bases_key=fr.bases_key, extremes=extremes, level_weights=fr.w_level,
+        bases=fr.bases, bases_key=fr.bases_key, extremes=extremes, level_weights=fr.w_level, transform=spec.response,
     )
 
 

@@ -134,3 +134,21 @@ def test_study_derives_instead_of_passing_again(monkeypatch, weights):
     assert len(calls) == 4  # coarse first: nothing finer to derive from, every request is a pass
     for a, b in zip(derived, direct, strict=True):
         _same(a, b, ss_scale=float(len(z)) * 0.04)
+
+
+@pytest.mark.parametrize("t_name", ["identity", "log", "reciprocal", "boxcox"])
+def test_extremes_of_a_transform_from_those_of_y(t_name):
+    """Per-group smallest and largest g(y), taken from those of y for a monotone g (decreasing
+    ones swap them), equal the extremes computed from the transformed rows."""
+    from bendwise.engine.stats.transforms import IDENTITY, LOG, RECIPROCAL, boxcox
+
+    t = {"identity": IDENTITY, "log": LOG, "reciprocal": RECIPROCAL, "boxcox": boxcox(-0.7)}[t_name]
+    frame = _frame()
+    study = make_study(frame, y="y", x="x", covariates=["t1", "batch"])
+    z = np.asarray(t.forward(study.y), dtype=float)
+    got = study.group_stats(z, ("z", t.key()), by=("batch",), extremes=True, transform=t)
+    codes, c = study.group_codes(("batch",))
+    want = compute_group_stats(codes, c, z, extremes=True)
+    np.testing.assert_allclose(got.zmin, want.zmin, rtol=1e-14)
+    np.testing.assert_allclose(got.zmax, want.zmax, rtol=1e-14)
+    assert (got.zmin <= got.zmax).all()
