@@ -71,6 +71,7 @@ def compute_group_stats(
     extremes: bool = False,
     order: np.ndarray | None = None,
     base_parts: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
+    counts: np.ndarray | None = None,
 ) -> GroupStats:
     """Aggregate response ``z`` (and optional bases) by integer group ``codes`` in 0..c-1.
 
@@ -81,10 +82,11 @@ def compute_group_stats(
     response has a large offset, as in the NIST StRD sets. ``order`` (rows sorted by group)
     may be passed in to reuse one sort for the per-group extremes of many responses;
     ``base_parts`` = (base means, rows of bases centred within groups, base-by-base cross
-    products) from :func:`base_parts` lets many responses share the work on the bases.
+    products) from :func:`base_parts` lets many responses share the work on the bases;
+    ``counts`` (rows per group, int64) saves counting them again.
     """
     n = int(z.shape[0])
-    count = np.bincount(codes, minlength=c).astype(np.int64)
+    count = np.bincount(codes, minlength=c).astype(np.int64) if counts is None else counts
     # corrected two-pass sums (Chan, Golub & LeVeque 1983): the deviations from the rounded mean
     # also give what the mean lost, and remove its effect from the sum of squares
     if w is None:
@@ -143,7 +145,7 @@ def compute_base_parts(
     """Group means of the bases, the bases centred within groups, and their cross-products."""
     n, q = bases.shape
     base_mean = np.empty((c, q))
-    centred = np.empty((n, q))
+    centred = np.empty((n, q), order="F")  # columns contiguous: each response pass reads them one by one
     for k in range(q):
         b = bases[:, k]
         bw = b if w is None else w * b

@@ -424,11 +424,21 @@ class Study:
                 parts = self._base_parts(by, (weights_key, weights), bases, bases_key)
             if z is None:
                 raise ValueError("in-memory group statistics need the response values")
-            hit = compute_group_stats(codes, c, z, weights, bases, extremes and ends is None, order, parts)
+            hit = compute_group_stats(codes, c, z, weights, bases, extremes and ends is None, order, parts,
+                                      self._group_counts(by))
             if ends is not None:
                 hit = dataclasses.replace(hit, zmin=ends[0], zmax=ends[1])
             self._cache[key] = hit
             self._stats_made.setdefault((z_key, weights_key), []).append((by, bases_key, extremes, hit))
+        return hit
+
+    def _group_counts(self, by: tuple[str, ...]) -> np.ndarray:
+        """Rows per group formed ``by`` (int64, cached, read-only)."""
+        hit = self._cache.get(("counts", by))
+        if hit is None:
+            codes, c = self.group_codes(by)
+            hit = self._cache[("counts", by)] = np.bincount(codes, minlength=c).astype(np.int64)
+            hit.setflags(write=False)
         return hit
 
     def _transformed_extremes(self, transform: Any, by: tuple[str, ...]) -> tuple[np.ndarray, np.ndarray] | None:
@@ -439,9 +449,8 @@ class Study:
         key = ("y_extremes", by)
         hit = self._cache.get(key)
         if hit is None:
-            codes, c = self.group_codes(by)
             ys = self.y[self.group_order(by)]
-            counts = np.bincount(codes, minlength=c)
+            counts = self._group_counts(by)
             starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
             hit = self._cache[key] = (np.minimum.reduceat(ys, starts), np.maximum.reduceat(ys, starts))
         with np.errstate(all="ignore"):
