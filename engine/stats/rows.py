@@ -10,12 +10,13 @@ later) answers ``rows()`` with ``NoRows`` and ``row_sample(k)`` with a sample it
 
 from __future__ import annotations
 
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
 from typing import Protocol, runtime_checkable
 
 import numpy as np
 
-__all__ = ["NoRows", "RowSource", "Rows", "SAMPLE_SEED"]
+__all__ = ["LazyColumns", "NoRows", "RowSource", "Rows", "SAMPLE_SEED"]
 
 SAMPLE_SEED = 20261202
 """Default seed of row samples (a sample is part of what an export records)."""
@@ -29,7 +30,7 @@ class Rows:
     """Response per row."""
     x: np.ndarray
     """Predictor per row."""
-    covariates: dict[str, np.ndarray] = field(default_factory=dict)
+    covariates: Mapping[str, np.ndarray] = field(default_factory=dict)
     """Each admitted covariate per row (numbers, or category labels as text)."""
     total: int = 0
     """How many rows the study uses in all."""
@@ -40,6 +41,26 @@ class Rows:
     def n(self) -> int:
         """Rows held here."""
         return int(self.y.shape[0])
+
+
+class LazyColumns(Mapping[str, np.ndarray]):
+    """Named columns each built on first use (category labels per row cost a pass over the rows,
+    and most callers only want to know that the rows are there)."""
+
+    def __init__(self, makers: dict[str, Callable[[], np.ndarray]]) -> None:
+        self._makers = makers
+        self._made: dict[str, np.ndarray] = {}
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        if name not in self._made:
+            self._made[name] = self._makers[name]()
+        return self._made[name]
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._makers)
+
+    def __len__(self) -> int:
+        return len(self._makers)
 
 
 @dataclass(frozen=True)

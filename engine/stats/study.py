@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
@@ -30,7 +30,7 @@ from .groups import (
     narrow_group_stats,
     pool_group_stats,
 )
-from .rows import SAMPLE_SEED, NoRows, Rows
+from .rows import SAMPLE_SEED, LazyColumns, NoRows, Rows
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -108,13 +108,18 @@ class Study:
     def rows(self) -> Rows | NoRows:
         """Every used row: they are in memory here (``engine.stats.rows``).
 
-        Built once and cached: the categorical covariates' labels per row cost a pass over
-        the rows each, and the tree asks for the rows at every node.
+        Built once and cached; the categorical covariates' labels per row cost a pass over the
+        rows each, so each is made the first time something reads it (the tree asks for the rows
+        at every node, mostly to learn that they are here).
         """
         hit = self._cache.get("rows")
         if hit is None:
-            covs = {c.name: (np.asarray(c.levels, dtype=object)[c.values].astype(str) if c.kind == "categorical"
-                             else c.values) for c in self.covariates}
+            def column(cov: Covariate) -> Callable[[], np.ndarray]:
+                if cov.kind == "categorical":
+                    return lambda: np.asarray(cov.levels, dtype=object)[cov.values].astype(str)
+                return lambda: cov.values
+
+            covs = LazyColumns({c.name: column(c) for c in self.covariates})
             hit = self._cache["rows"] = Rows(self.y, self.x, covs, self.n, False)
         return hit
 

@@ -68,3 +68,20 @@ def test_row_pictures_work_through_the_sample(studies):
         assert chart.x.size == study.n
         res = residuals_by_level(study, tree.root.score)
         assert res.residual.size == study.n
+
+
+def test_category_labels_are_made_when_first_read():
+    """The rows' category labels cost a pass each: made on first read, then kept; the values
+    are the labels of the rows (numbers pass through)."""
+    import numpy as np
+    import pandas as pd
+    from bendwise.engine import make_study
+
+    frame = pd.DataFrame({"x": [1.0, 1, 2, 2, 3, 3], "y": [1.0, 1.2, 2.1, 2.0, 2.9, 3.1],
+                          "lot": ["b", "a", "b", "a", "b", "a"], "t": [5.0, 6, 5, 6, 5, 6]})
+    rows = make_study(frame, y="y", x="x", covariates=["lot", "t"]).rows()
+    assert rows.covariates._made == {}  # nothing made yet
+    assert list(rows.covariates["lot"]) == ["b", "a", "b", "a", "b", "a"]
+    assert rows.covariates["lot"] is rows.covariates["lot"]
+    np.testing.assert_array_equal(rows.covariates["t"], [5.0, 6, 5, 6, 5, 6])
+    assert set(rows.covariates) == {"lot", "t"} and len(rows.covariates) == 2
