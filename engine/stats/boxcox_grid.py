@@ -111,19 +111,8 @@ def grid_group_stats_series(
     big_m, big_k = choose_orders(sd, spread, q)
     s = np.empty((c, big_m))
     cross = np.zeros((c, q, big_k))
-    if not q:
-        bc = None
-    elif base_parts is not None:
-        bc = base_parts[1]
-    else:
-        bc = bases - base.base_mean[codes]  # type: ignore[operator]
-    power = np.ones_like(d)
-    for k in range(1, big_m + 1):
-        power *= d
-        s[:, k - 1] = np.bincount(codes, weights=power, minlength=c)
-        if k <= big_k:
-            for j in range(q):
-                cross[:, j, k - 1] = np.bincount(codes, weights=power * bc[:, j], minlength=c)  # type: ignore[index]
+    bc = None if not q else base_parts[1] if base_parts is not None else bases - base.base_mean[codes]  # type: ignore[operator]
+    _power_sums(d, codes, bc, s, cross)
     tsum = np.zeros((c, q))
     tt = base.cross[:, :q, :q] if q else np.zeros((c, 0, 0))  # type: ignore[index]
     series = GroupSeries(count, centre, s, cross, tsum, tt, np.exp(lo), np.exp(hi), np.zeros(q))
@@ -142,3 +131,16 @@ def grid_group_stats_series(
         out.append(GroupStats(base.n, base.count, base.wsum, mom["mean"], mom["ss"], base.sum_log_w,
                               base.base_mean, cr))
     return out
+
+
+def _power_sums(d: np.ndarray, codes: np.ndarray, bc: np.ndarray | None, s: np.ndarray, cross: np.ndarray) -> None:
+    """Fill s[:, k−1] = Σ dᵏ and cross[:, j, k−1] = Σ dᵏ·b̃ⱼ per group (k up to their widths)."""
+    c, big_m = s.shape
+    big_k = cross.shape[2]
+    power = np.ones_like(d)
+    for k in range(1, big_m + 1):
+        power *= d
+        s[:, k - 1] = np.bincount(codes, weights=power, minlength=c)
+        if k <= big_k and bc is not None:
+            for j in range(bc.shape[1]):
+                cross[:, j, k - 1] = np.bincount(codes, weights=power * bc[:, j], minlength=c)

@@ -254,7 +254,7 @@ class Study:
                 pair = np.asarray(transform.forward(np.concatenate([lo_y, hi_y])), dtype=float)
             medians = (pair[: self.c] + pair[self.c:]) / 2
             sums = self._cache[key] = deviation_sums(z, self.x_codes, self.c, self.level_counts(), medians)
-        if w is None:
+        if w is None or level_weights is None:
             return sums
         root = np.sqrt(level_weights)
         return sums[0] * root, sums[1] * level_weights, sums[2] * level_weights

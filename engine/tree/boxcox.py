@@ -76,6 +76,7 @@ def profile_boxcox(
     Long because the two paths (grid with spline, exact maximisation) share the profile function
     and the choice of a conventional λ; the signature alone takes 16 lines.
     """
+    ly: np.ndarray | None
     if centred_log is not None:  # (log y − its mean, Σ log y) computed once by the caller
         ly, slog = centred_log
         n = ly.shape[0]

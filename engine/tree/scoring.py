@@ -10,6 +10,7 @@ the largest departure of the fitted curve from the straight line; warnings.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
@@ -283,7 +284,8 @@ def _factor_design(study: Study, spec: ModelSpec, fr: _Frame) -> Design:
     return Design(tuple(cols), tuple(f"c{i}" for i in range(p)), np.eye(p, dtype=np.longdouble), True)
 
 
-def predict_terms(terms: tuple[Term, ...], beta: np.ndarray, t: np.ndarray, covs: dict[str, np.ndarray]) -> np.ndarray:
+def predict_terms(terms: tuple[Term, ...], beta: np.ndarray, t: np.ndarray,
+                  covs: Mapping[str, np.ndarray]) -> np.ndarray:
     """Fitted values on the transformed scale from raw terms (no formulas evaluated).
 
     ``t`` is the transformed predictor; ``covs`` maps each numeric covariate to values and each
