@@ -68,20 +68,19 @@ def spark_session(master: str | None = None) -> Any:
     remote = os.environ.get("SPARK_REMOTE")
     builder = sql.SparkSession.builder.appName("bendwise")
     if remote:
+        # Spark Connect has no newSession(): create() opens a session of its own on the server
+        # (its own temporary views); a "local" remote cannot create(), so it shares one
         builder = builder.remote(remote)
+        session = builder.getOrCreate() if remote.startswith("local") else builder.create()
     else:
         _need_java()
         builder = builder.master(master or "local[*]")
         for key, value in SESSION_CONF.items():
             builder = builder.config(key, value)
-    if remote:
-        spark = builder.getOrCreate()
-    else:
         with _jvm_output_muted():
             spark = builder.getOrCreate()
-    if not remote:
         spark.sparkContext.setLogLevel("ERROR")
-    session = spark.newSession()
+        session = spark.newSession()
     for key in ("spark.sql.ansi.enabled", "spark.sql.caseSensitive", "spark.sql.shuffle.partitions"):
         session.conf.set(key, SESSION_CONF[key])
     return session

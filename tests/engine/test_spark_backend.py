@@ -13,6 +13,7 @@ from __future__ import annotations
 import json
 import os
 import sys
+import types
 
 import bendwise.engine as engine
 import numpy as np
@@ -303,3 +304,55 @@ def test_cli_stderr_carries_no_jvm_start_up_notices(repo):
     assert spark.returncode == 0, spark.stderr[-2000:]
     assert spark.stderr == duck.stderr == ""
     assert spark.stdout == duck.stdout
+
+
+class _FakeBuilder:
+    """Records how a session is made (Spark Connect has no server here)."""
+
+    def __init__(self, log):
+        self.log = log
+
+    def appName(self, name):  # noqa: N802 (pyspark's name)
+        self.log.append(("appName", name))
+        return self
+
+    def remote(self, url):
+        self.log.append(("remote", url))
+        return self
+
+    def create(self):
+        self.log.append(("create",))
+        return _FakeSession(self.log)
+
+    def getOrCreate(self):  # noqa: N802
+        self.log.append(("getOrCreate",))
+        return _FakeSession(self.log)
+
+
+class _FakeSession:
+    def __init__(self, log):
+        self.log = log
+        self.conf = types.SimpleNamespace(set=lambda k, v: log.append(("conf", k, v)))
+
+    def newSession(self):  # noqa: N802
+        raise AssertionError("Spark Connect has no newSession()")
+
+    @property
+    def sparkContext(self):  # noqa: N802
+        raise AssertionError("Spark Connect has no SparkContext in the client")
+
+
+@pytest.mark.parametrize("url, how", [("sc://cluster.example:15002", "create"), ("local", "getOrCreate")])
+def test_spark_connect_session_is_made_without_new_session(monkeypatch, url, how):
+    """Under SPARK_REMOTE the session comes from builder.create() (a session of its own on the
+    server, so its temporary views are its own), or getOrCreate() for a 'local' remote, which
+    cannot create(); never newSession() or the SparkContext, which Spark Connect does not have
+    (pyspark 3.5, pyspark/sql/connect/session.py). No Java is needed on the client."""
+    log: list = []
+    fake = types.SimpleNamespace(SparkSession=types.SimpleNamespace(builder=_FakeBuilder(log)))
+    monkeypatch.setattr(spark_backend, "_need_pyspark", lambda: fake)
+    monkeypatch.setattr(spark_backend, "_need_java", lambda: (_ for _ in ()).throw(AssertionError("java asked")))
+    monkeypatch.setenv("SPARK_REMOTE", url)
+    spark_backend.spark_session("local[1]")
+    assert ("remote", url) in log and (how,) in log
+    assert ("conf", "spark.sql.ansi.enabled", spark_backend.SESSION_CONF["spark.sql.ansi.enabled"]) in log
