@@ -16,7 +16,8 @@ from ..errors import UsageError
 from ..stats.transforms import Transform
 from .dialect import DUCKDB, Dialect
 
-__all__ = ["q", "lit", "transform_sql", "aggregate_sql", "series_sql", "centre_polynomial"]
+__all__ = ["q", "lit", "transform_sql", "aggregate_sql", "series_sql", "centre_polynomial",
+           "weighted_aggregate_sql"]
 
 
 def q(name: str) -> str:
@@ -122,3 +123,45 @@ def centre_polynomial(px: np.ndarray, lm: np.ndarray, w: np.ndarray, ls: np.ndar
     for c in coef[-2::-1]:
         expr = f"({float(c)!r} + {u_sql} * {expr})"
     return expr
+
+
+
+def weighted_aggregate_sql(source: str, keys: Sequence[str], nums: Sequence[str], zs: Sequence[str],
+                           shifts: Sequence[float], weight: str, d: Dialect = DUCKDB) -> str:
+    """The weighted GROUP BY query: per finest group, weighted sums about the group's own
+    (unweighted) means, so no large offset meets a square.
+
+    ``source`` has columns ``y``, the key and numeric columns and the weight column ``weight``
+    (> 0); ``zs`` are SQL expressions of the transformed response (in ``y``) less ``shifts``. A sub-query gives
+    each group's means of every z and numeric column (``bw_cz{k}``, ``bw_cb{i}``) and each z's
+    population variance (``bw_vz{k}``); joined back on the keys, the outer query sums Σw, Σw·dz,
+    Σw·dz², Σw·db, Σw·db·db′, Σw·dz·db with d the deviation from those means, the extremes of z,
+    and the mean and population variance of √w·z (the spread test of a weighted fit). Standard
+    SQL only; ``source`` is read twice.
+    """
+    q = d.quote
+    key_list = ", ".join(q(k) for k in keys)
+    inner = [*(f"AVG({z}) AS bw_cz{k}" for k, z in enumerate(zs)),
+             *(f"VAR_POP({z}) AS bw_vz{k}" for k, z in enumerate(zs)),
+             *(f"AVG({q(b)}) AS bw_cb{i}" for i, b in enumerate(nums))]
+    centres = f"SELECT {key_list}, {', '.join(inner)} FROM {source} GROUP BY {key_list}"
+    on = " AND ".join(f"r.{q(k)} = c.{q(k)}" for k in keys)
+    carried = [*(f"r.{q(k)} AS {q(k)}" for k in keys), "r.y AS y", *(f"r.{q(b)} AS {q(b)}" for b in nums),
+               f"r.{q(weight)} AS bw_w", *(f"c.bw_cz{k}, c.bw_vz{k}" for k in range(len(zs))),
+               *(f"c.bw_cb{i}" for i in range(len(nums)))]
+    joined = f"SELECT {', '.join(carried)} FROM {source} AS r JOIN ({centres}) AS c ON {on}"
+    dz = [f"(({z}) - bw_cz{k})" for k, z in enumerate(zs)]
+    db = [f"({q(b)} - bw_cb{i})" for i, b in enumerate(nums)]
+    parts = ["COUNT(*) AS n", "SUM(bw_w) AS sw"]
+    for i, b in enumerate(db):
+        parts += [f"MAX(bw_cb{i}) AS cb{i}", f"SUM(bw_w * {b}) AS wb{i}"]
+        parts += [f"SUM(bw_w * {b} * {db[j]}) AS wbb{i}_{j}" for j in range(i, len(db))]
+    for k, z in enumerate(dz):
+        parts += [f"MAX(bw_cz{k}) AS cz{k}", f"MAX(bw_vz{k}) AS vz{k}", f"SUM(bw_w * {z}) AS wz{k}",
+                  f"SUM(bw_w * {z} * {z}) AS wzz{k}",
+                  *(f"SUM(bw_w * {z} * {b}) AS wzb{k}_{i}" for i, b in enumerate(db)),
+                  f"MIN({zs[k]}) AS z{k}_lo", f"MAX({zs[k]}) AS z{k}_hi",
+                  f"AVG(SQRT(bw_w) * ({zs[k]} + {shifts[k]!r})) AS rz{k}_m",
+                  f"VAR_POP(SQRT(bw_w) * ({zs[k]} + {shifts[k]!r})) AS rz{k}_v"]
+    return (f"SELECT {key_list}, {', '.join(parts)} FROM ({joined}) AS bw_wj "
+            f"GROUP BY {key_list} ORDER BY {key_list}")
