@@ -303,3 +303,49 @@ def test_cli_stderr_carries_no_jvm_start_up_notices(repo):
     assert spark.returncode == 0, spark.stderr[-2000:]
     assert spark.stderr == duck.stderr == ""
     assert spark.stdout == duck.stdout
+
+
+# ----------------------------------------------------------------------------- the user's weights
+
+
+@on_spark
+@hyp(1)
+@given(data=replicated(dirty=True))
+def test_weighted_example_gives_the_memory_statistics(tmp_path, data):
+    """A weights column varying within levels (bad weights only on rows dropped anyway), both file
+    kinds, and a weights column with a hostile name read as a quoted identifier."""
+    from test_sql_backend import HOSTILE_WEIGHTS, WEIGHTED_SPECS, W, _same_weighted, with_weights
+
+    cells, storage = data
+    cells = with_weights(cells, 5)
+    d = _fresh(tmp_path)
+    for path in (write_csv(cells, d / "t.csv"), write_parquet(cells, storage, d / "t.parquet", text_numbers=False)):
+        mem = engine.make_study(engine.load_table(str(path)), y=Y, x=X, covariates=[CAT, NUM], weights=W,
+                                source=path.name)
+        _same_weighted(mem, _spark(path, covariates=[CAT, NUM], weights=W), WEIGHTED_SPECS[:3] + WEIGHTED_SPECS[7:])
+    frame = _design_frame(4, 6)
+    frame[HOSTILE_WEIGHTS] = np.random.default_rng(2).uniform(0.5, 2.0, len(frame))
+    path = tmp_path / "odd.parquet"
+    frame.to_parquet(path)
+    mem = engine.make_study(frame, y=Y, x=X, covariates=[CAT], weights=HOSTILE_WEIGHTS, source="odd.parquet")
+    _same_weighted(mem, _spark(path, covariates=[CAT], weights=HOSTILE_WEIGHTS), SPECS[:2] + SPECS[7:8])
+
+
+@on_spark
+@pytest.mark.parametrize("bad", [0.0, -1.0, None, "heavy"])
+def test_bad_weight_is_the_same_line_on_every_engine(tmp_path, bad):
+    from bendwise.engine.backends.duckdb import make_sql_study
+
+    frame = _design_frame(3, 4)
+    frame["w"] = pd.Series(np.linspace(0.5, 2.0, len(frame)), dtype=object)
+    frame.loc[[2, 11], "w"] = bad
+    path = tmp_path / "t.csv"
+    frame.to_csv(path, index=False)
+    messages = []
+    for build in (lambda: engine.make_study(engine.load_table(str(path)), y=Y, x=X, weights="w"),
+                  lambda: make_sql_study(str(path), y=Y, x=X, weights="w"),
+                  lambda: make_spark_study(str(path), y=Y, x=X, weights="w", master=MASTER)):
+        with pytest.raises(DataError) as err:
+            build()
+        messages.append(str(err.value))
+    assert messages[0] == messages[1] == messages[2] and "(rows 3, 12)" in messages[0], messages
