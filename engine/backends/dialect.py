@@ -87,9 +87,10 @@ class Dialect:
         return f"{select} USING SAMPLE reservoir({int(k)} ROWS) REPEATABLE ({int(seed)})"
 
     def row_number(self) -> str:
-        """The 1-based number of each row in reading order (only for naming the first bad rows)."""
-        if self.name == "spark":
-            return "row_number() OVER (ORDER BY monotonically_increasing_id())"
+        """The 1-based number of each row, files taken in the order of their names as the in-memory
+        reader concatenates them (only for naming the first bad rows)."""
+        if self.name == "spark":  # ids grow with the partition, and a file's splits keep its order
+            return "row_number() OVER (ORDER BY input_file_name(), monotonically_increasing_id())"
         return "row_number() OVER ()"
 
     def is_number_type(self, type_name: str) -> bool:

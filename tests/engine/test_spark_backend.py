@@ -349,3 +349,12 @@ def test_bad_weight_is_the_same_line_on_every_engine(tmp_path, bad):
             build()
         messages.append(str(err.value))
     assert messages[0] == messages[1] == messages[2] and "(rows 3, 12)" in messages[0], messages
+    if bad == 0.0:  # in a folder the rows are numbered through the files in name order, as memory reads them
+        folder = tmp_path / "parts"
+        folder.mkdir()
+        parts = [frame.iloc[:10], frame.iloc[10:20], frame.iloc[20:]]
+        for i, p in enumerate(parts):
+            p.to_csv(folder / f"part-{i}.csv", index=False)
+        with pytest.raises(DataError) as err:
+            make_spark_study(str(folder), y=Y, x=X, weights="w", master=MASTER)
+        assert str(err.value) == messages[0]

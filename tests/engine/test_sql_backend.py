@@ -725,6 +725,23 @@ def test_cli_bad_weight_gives_the_memory_engines_line(capsys, tmp_path, bad):
     _same_json(json.loads(outs[0][1]), json.loads(outs[1][1]), "check", skip=frozenset({"spread", "cleaning"}))
 
 
+def test_bad_weight_in_a_later_file_of_a_folder_is_numbered_as_memory_numbers_it(tmp_path):
+    frame = _design_frame(3, 5)
+    frame[W] = np.linspace(0.5, 2.0, len(frame))
+    parts = _split(frame, 3)
+    parts[2].loc[parts[2].index[1], W] = 0.0
+    folder = tmp_path / "wparts"
+    folder.mkdir()
+    for i, p in enumerate(parts):
+        p.to_csv(folder / f"part-{i}.csv", index=False)
+    with pytest.raises(BendwiseError) as mem_err:
+        engine.make_study(pd.concat(parts, ignore_index=True), y=Y, x=X, weights=W)
+    with pytest.raises(BendwiseError) as sql_err:
+        make_sql_study(str(folder), y=Y, x=X, weights=W)
+    assert str(sql_err.value) == str(mem_err.value)
+    assert f"(rows {len(parts[0]) + len(parts[1]) + 2})" in str(mem_err.value)
+
+
 def _sensor_with_weights(tmp_path: Path) -> Path:
     rng = np.random.default_rng(4)
     x = np.repeat([1.0, 2.0, 3.0, 4.0, 5.0], 4)
