@@ -62,6 +62,7 @@ from .weighted import (
     check_weights,
     unweighted_request,
     weighted_moments,
+    weighted_series_setup,
     weighted_spread,
     weights_in_range,
 )
@@ -607,15 +608,18 @@ def build_sql_study(con: Any, d: Dialect, src: str, names: list[str], types: dic
     checks = table.row_checks(cols, kinds)
     case = "CASE " + " ".join(f"WHEN {cond} THEN {i}" for i, (_, _, cond) in enumerate(checks)) + " ELSE -1 END"
     select = table.select_list(cols, cat_cols, num_cols, sql_name)
-    if cols.weights is not None:  # the user's weights, under a name of ours; the one-scan series is unweighted
+    weighted_series = False
+    if cols.weights is not None:  # the user's weights, under a name of ours, and their own one-scan series
         select += f", {table.num_expr(cols.weights)[0]} AS {WEIGHT}"
-        exact = True
+        weighted_series, exact = not exact, True
     con.execute(f"CREATE TEMP VIEW bw_clean AS SELECT {select} FROM {src} WHERE {case} = -1")
     con.execute(f"CREATE TEMP VIEW bw_all AS SELECT {select} FROM {src}")
     cat_sql = [sql_name[c] for c in cat_cols]
     num_sql = [sql_name[c] for c in num_cols]
     cat_missing = set(_NA_TEXT) if as_text else {""}
     facts = None if exact else series_setup(con, cat_sql, num_sql, cat_missing, progress, d)
+    if facts is None and weighted_series:
+        facts = weighted_series_setup(con, cat_sql, num_sql, cat_missing, progress, d)
     if facts is None:
         facts = exact_setup(con, src, case, checks, cat_sql, num_sql, progress, d)
     user = {v: k for k, v in sql_name.items()}
@@ -625,7 +629,8 @@ def build_sql_study(con: Any, d: Dialect, src: str, names: list[str], types: dic
     n, n_read, drops = facts["n"], facts["n_read"], facts["drops"]
     if n_read == 0:
         raise DataError(f"{path} has no data rows; check the file")
-    w_facts = None if cols.weights is None else check_weights(con, table, src, case, cols.weights)
+    w_facts = None if cols.weights is None else (facts.get("weights")  # the one scan saw every weight
+                                                 or check_weights(con, table, src, case, cols.weights))
     require_rows(n, drops)
     unit_x = np.asarray(facts["units"]["x"], dtype=float)
     unit_n = np.asarray(facts["units"]["n"], dtype=float)

@@ -20,13 +20,15 @@ import numpy as np
 from ..errors import DataError, UsageError
 from ..read.columns import bad_values_text
 from ..read.usable import check_magnitude
+from ..stats.power_sums import GroupSeries
 from ..stats.results import SideTest
 from ..stats.spread import bartlett_from_groups
 from ..stats.transforms import Transform
 from .scans import floats
-from .sql_text import transform_sql, weighted_aggregate_sql
+from .sql_text import transform_sql, weighted_aggregate_sql, weighted_series_sql
 
-__all__ = ["WEIGHT", "check_weights", "weights_in_range", "weighted_moments", "weighted_spread", "unweighted_request"]
+__all__ = ["WEIGHT", "check_weights", "weights_in_range", "weighted_moments", "weighted_spread", "unweighted_request",
+           "WeightedSeries", "weighted_series_setup"]
 
 WEIGHT = "bw_w"
 """The weights column's name inside the queries (``bw_clean``, ``bw_shifted``)."""
@@ -157,3 +159,88 @@ def weighted_spread(study: Any, tkey: Any, wkey: Any, name: str) -> SideTest:
     dev = mean - level_mean[codes]
     level_ss = np.bincount(codes, weights=ss + un * dev * dev, minlength=study.c)
     return bartlett_from_groups(count, level_ss * level_w, name)
+
+
+class WeightedSeries:
+    """Three sets of per-unit power sums of d = ln y − centre from the one weighted scan: weighted by
+    w (the fit), unweighted (level means for the power-of-mean rule, the check's spread test) and by
+    √w (the spread test of √w·z). ``moments`` answers like :meth:`GroupSeries.moments`, with the
+    extras :func:`weighted_moments` gives, or None when any of the three series is not exact enough."""
+
+    def __init__(self, weighted: GroupSeries, plain: GroupSeries, root: GroupSeries, sw: np.ndarray,
+                 sr: np.ndarray) -> None:
+        self.weighted, self.plain, self.root = weighted, plain, root
+        self.sw, self.sr = sw, sr
+
+    def moments(self, t: Transform, tol: float) -> dict | None:
+        """Weighted unit moments of g(y), or None (the caller then scans g exactly)."""
+        mw = self.weighted.moments(t, tol)
+        mu = None if mw is None else self.plain.moments(t, tol)
+        mr = None if mu is None else self.root.moments(t, tol)
+        if mw is None or mu is None or mr is None:
+            return None
+        n = self.plain.n
+        root_sum = self.sr * mr["mean"]  # Σ√w·z per unit
+        wzz = mw["ss"] + self.sw * mw["mean"] ** 2  # Σw·z²
+        root_ss = np.maximum(wzz - root_sum * root_sum / n, 0.0)
+        return {**mw, "wsum": self.sw,
+                "unweighted": {"mean": mu["mean"], "ss": mu["ss"], "lo": mu["lo"], "hi": mu["hi"]},
+                "root_w": (root_sum / n, root_ss)}
+
+
+def weighted_series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missing: set[str],
+                          progress: Any, d: Any) -> dict | None:
+    """The facts of :func:`engine.backends.scans.series_setup` from one weighted scan, or None when
+    the data need the exact path (a bad cell, y ≤ 0, a weight that is not positive and finite)."""
+    from .scans import _clean_categories, _constant_covariates, _series_plan
+
+    keys = ["x", *cat_cols]
+    plan = _series_plan(con, keys, cat_cols, num_cols, progress, d)
+    if plan is None:
+        return None
+    fallback, y_ref, t_ref, big_m, big_k, centre_expr = plan
+    if progress:
+        progress("scanning rows: weighted group sums (one pass)")
+    res = con.execute(weighted_series_sql("bw_all", keys, num_cols, [float(v) for v in t_ref], big_m, big_k,
+                                          "bw_shift", fallback, centre_expr, WEIGHT, d)).fetchnumpy()
+    if progress:
+        progress("")
+    cat_vals = _clean_categories(res, cat_cols, cat_missing)
+    wlo, whi = floats(res["wlo"]), floats(res["whi"])
+    if cat_vals is None or not (np.isfinite(whi).all() and (wlo > 0).all()):
+        con.execute(f"{d.drop} bw_shift")
+        return None
+    n_unit, sw = floats(res["n"]), floats(res["sw"])
+    series = _three_series(res, len(num_cols), big_m, big_k, t_ref)
+    n = int(n_unit.sum())
+    slog = float((floats(res["s1"]) + n_unit * floats(res["centre"])).sum())
+    num_mean = {b: float(floats(res[f"t{i}"]).sum() / n + t_ref[i]) for i, b in enumerate(num_cols)}
+    return {"n": n, "n_read": n, "drops": (), "y_min": float(floats(res["ylo"]).min()),
+            "y_max": float(floats(res["yhi"]).max()), "y_le0": 0, "y_eq0": 0, "y_lt0": 0, "slog": slog,
+            "slogabs": slog, "num_constant": _constant_covariates(series.weighted, num_cols, t_ref, float(sw.sum())),
+            "num_mean": num_mean, "y_mean": y_ref, "units": {"x": floats(res["x"]), "n": n_unit, **cat_vals},
+            "series": series, "weights": (float(wlo.min()), float(whi.max()), float(floats(res["slw"]).sum()))}
+
+
+def _three_series(res: dict, nb: int, big_m: int, big_k: int, t_ref: np.ndarray) -> WeightedSeries:
+    """The weighted, unweighted and √w-weighted :class:`GroupSeries` of the weighted scan."""
+    n_unit, sw, sr = floats(res["n"]), floats(res["sw"]), floats(res["sr"])
+    centre, ylo, yhi = floats(res["centre"]), floats(res["ylo"]), floats(res["yhi"])
+    u = n_unit.size
+    tsum = np.column_stack([floats(res[f"wt{i}"]) for i in range(nb)]) if nb else np.zeros((u, 0))
+    tt = np.zeros((u, nb, nb))
+    cross = np.zeros((u, nb, big_k))
+    for i in range(nb):
+        for j in range(i, nb):
+            tt[:, i, j] = tt[:, j, i] = floats(res[f"wtt{i}_{j}"])
+        for k in range(1, big_k + 1):
+            cross[:, i, k - 1] = floats(res[f"wc{i}_{k}"])
+
+    def sums(prefix: str) -> np.ndarray:
+        return np.column_stack([floats(res[f"{prefix}{k}"]) for k in range(1, big_m + 1)])
+
+    none = (np.zeros((u, 0, 0)), np.zeros((u, 0)), np.zeros((u, 0, 0)))
+    weighted = GroupSeries(sw, centre, sums("ws"), cross, tsum, tt, ylo, yhi, np.asarray(t_ref, dtype=float))
+    plain = GroupSeries(n_unit, centre, sums("s"), *none, ylo, yhi, np.zeros(0))
+    root = GroupSeries(sr, centre, sums("rs"), *none, ylo, yhi, np.zeros(0))
+    return WeightedSeries(weighted, plain, root, sw, sr)
