@@ -4,9 +4,14 @@ The in-memory study is the reference (``engine.stats.study``): rows the response
 covariates keep must have a positive finite weight, else one line names the column, the kind and
 count of bad values and the first rows; the weights must have a size whose sums stay exact. Here
 one scan counts the same things (and a second, only when some value is bad, finds the first row
-numbers), and the per-transform scans sum Σw, Σw·z, Σw·z², Σw·z·base about each finest group's own
-means (``weighted_aggregate_sql``). Units pool into groups with their weight sums in
-``SqlStudy._pool``; the spread test of a weighted node is Bartlett's on √w·z from the same scan.
+numbers). On clean rows with positive weights one scan (``weighted_series_sql``) collects per finest
+group the power sums of d = ln y − centre three ways — weighted by w, unweighted, weighted by √w —
+which :class:`WeightedSeries` turns into the weighted moments of every transform, the unweighted
+level means (the power-of-mean rule) and the moments of √w·z (the spread test). Otherwise, and for
+a transform the series cannot hold to its tolerance, each batch of transforms is one exact query
+(``weighted_aggregate_sql``: Σw, Σw·z, Σw·z², Σw·z·base about each finest group's own means). Units
+pool into groups with their weight sums in ``SqlStudy._pool``; the spread test of a weighted node is
+Bartlett's on √w·z.
 """
 
 from __future__ import annotations

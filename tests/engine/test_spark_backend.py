@@ -358,3 +358,20 @@ def test_bad_weight_is_the_same_line_on_every_engine(tmp_path, bad):
         with pytest.raises(DataError) as err:
             make_spark_study(str(folder), y=Y, x=X, weights="w", master=MASTER)
         assert str(err.value) == messages[0]
+
+
+@on_spark
+@hyp(1)
+@given(data=replicated(dirty=False))
+def test_weighted_clean_example_takes_the_one_scan_path(tmp_path, data):
+    from bendwise.engine.backends.weighted import WeightedSeries
+    from test_sql_backend import WEIGHTED_SPECS, W, _same_weighted, with_weights
+
+    cells, storage = data
+    path = write_parquet(with_weights(cells, 9, spoil=False), storage, _fresh(tmp_path) / "t.parquet",
+                         text_numbers=False)
+    mem = engine.make_study(engine.load_table(str(path)), y=Y, x=X, covariates=[CAT, NUM], weights=W,
+                            source=path.name)
+    sql = _spark(path, covariates=[CAT, NUM], weights=W)
+    assert isinstance(sql._info["series"], WeightedSeries)  # the weighted power-sum scan ran as Spark SQL
+    _same_weighted(mem, sql, WEIGHTED_SPECS)
