@@ -1280,3 +1280,22 @@ def test_weighted_row_sample_carries_the_weights(tmp_path):
         ra = residuals_by_level(mem, score_spec(mem, spec))
         rb = residuals_by_level(sql, score_spec(sql, spec))
         np.testing.assert_allclose(np.sort(rb.residual), np.sort(ra.residual), rtol=1e-9, atol=1e-12)
+
+
+def test_weighted_row_level_checks_say_why_or_use_the_weighted_sample(tmp_path):
+    # without replicates the replicate-free checks need the rows: the weighted SQL study says so as
+    # the unweighted one does; stability resamples a seeded sample of rows that keeps the weights
+    from bendwise.engine.tree.stability import _rows_study
+
+    rng = np.random.default_rng(12)
+    x = np.linspace(1.0, 20.0, 40)
+    path = tmp_path / "norep.csv"
+    pd.DataFrame({Y: 2 + x + rng.normal(0, 0.3, x.size), X: x, W: rng.uniform(0.5, 2.0, x.size)}).to_csv(path,
+                                                                                                       index=False)
+    mem, sql = _both_weighted(path, covariates=())
+    assert not sql.exact_replicates() and isinstance(sql.rows(), NoRows)
+    got = engine.check(sql).as_json()["replicate_free"]
+    assert [t["testable"] for t in got] == [False] and "rows in memory" in got[0]["reason"]
+    base, note = _rows_study(sql)
+    assert note is not None and base.weights_name == W
+    np.testing.assert_allclose(np.sort(base.weights), np.sort(mem.weights), rtol=0)
