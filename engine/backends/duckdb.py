@@ -544,8 +544,8 @@ def make_sql_study(
         raise DataError("the SQL engine needs duckdb; install it with: pip install 'bendwise[scale]'") from None
     dec = decimal or "."
     sep, encoding = _csv_preflight(path, dec, delimiter)
-    args = dict(y=y, x=x, covariates=covariates, weights=weights, tolerance=tolerance, decimal=dec, source=source, progress=progress,
-                memory_limit=memory_limit, exact=exact)
+    args = dict(y=y, x=x, covariates=covariates, tolerance=tolerance, decimal=dec, source=source, progress=progress,
+                memory_limit=memory_limit, exact=exact, weights=weights)
     try:
         return _make_sql_study(path, delimiter=sep, encoding=encoding, **args)  # type: ignore[arg-type]
     except duckdb.Error as exc:
