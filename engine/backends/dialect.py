@@ -86,6 +86,13 @@ class Dialect:
             return f"{select} ORDER BY rand({int(seed)}) LIMIT {int(k)}"
         return f"{select} USING SAMPLE reservoir({int(k)} ROWS) REPEATABLE ({int(seed)})"
 
+    def row_number(self) -> str:
+        """The 1-based number of each row, files taken in the order of their names as the in-memory
+        reader concatenates them (only for naming the first bad rows)."""
+        if self.name == "spark":  # ids grow with the partition, and a file's splits keep its order
+            return "row_number() OVER (ORDER BY input_file_name(), monotonically_increasing_id())"
+        return "row_number() OVER ()"
+
     def is_number_type(self, type_name: str) -> bool:
         """Whether a column of this declared type holds numbers."""
         t = type_name.upper()

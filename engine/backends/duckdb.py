@@ -57,6 +57,15 @@ from ..stats.transforms import Transform
 from .dialect import DUCKDB, Dialect
 from .scans import exact_setup, floats, one_row, series_setup
 from .sql_text import aggregate_sql, lit, series_sql, transform_sql
+from .weighted import (
+    WEIGHT,
+    check_weights,
+    unweighted_request,
+    weighted_moments,
+    weighted_series_setup,
+    weighted_spread,
+    weights_in_range,
+)
 
 __all__ = ["SqlStudy", "make_sql_study", "build_sql_study", "aggregate_sql", "series_sql", "transform_sql",
            "choose_engine"]
@@ -275,7 +284,8 @@ class SqlStudy(Study):
         """A seeded random sample of ``k`` used rows (all of them when there are at most ``k``),
         in one more scan."""
         got = self.sample_rows(k, seed)
-        return Rows(got["y"], got["x"], {c.name: got[c.name] for c in self.covariates}, self.n, self.n > k)
+        return Rows(got["y"], got["x"], {c.name: got[c.name] for c in self.covariates}, self.n, self.n > k,
+                    got.get(WEIGHT))
 
     def sample_rows(self, k: int, seed: int = SAMPLE_SEED) -> dict[str, np.ndarray]:
         """A seeded random sample of ``k`` used rows (all of them when there are at most ``k``):
@@ -284,6 +294,8 @@ class SqlStudy(Study):
         if hit is not None:
             return hit
         cols = ["y", "x", *(self.dialect.quote(self._info["sql_name"][c.name]) for c in self.covariates)]
+        if self.weights_name is not None:
+            cols.append(WEIGHT)
         select = f"SELECT {', '.join(cols)} FROM bw_clean"
         self._say(f"scanning {self.n:,} rows for a sample of {min(k, self.n):,}")
         res = self.con.execute(select if self.n <= k else self.dialect.sample(select, k, seed)).fetchnumpy()
@@ -292,6 +304,8 @@ class SqlStudy(Study):
         for c in self.covariates:
             col = res[self._info["sql_name"][c.name]]
             out[c.name] = np.asarray(col).astype(str) if c.kind == "categorical" else floats(col)
+        if self.weights_name is not None:
+            out[WEIGHT] = floats(res[WEIGHT])
         self._cache[("sample", k, seed)] = out
         return out
 
@@ -329,6 +343,9 @@ class SqlStudy(Study):
                     self._moments[t.key()] = mom
             todo = rest
         if not todo:
+            return
+        if self.weights_name is not None:  # the user's weights: sums about each unit's own means
+            self._moments.update(weighted_moments(self, todo))
             return
         info = self._info
         keys = ["x", *info["cat_sql"]]
@@ -388,7 +405,10 @@ class SqlStudy(Study):
             raise UsageError("the SQL engine computes group statistics by response transform only")
         t = Transform(*z_key[1])
         self._scan([t])
-        hit = self._pool(self._moments[t.key()], by, bases_key, level_weights, extremes)
+        mom = self._moments[t.key()]
+        if self.weights_name is not None and weights_key is None:  # unweighted, as memory asked so
+            mom = unweighted_request(mom, bases_key)
+        hit = self._pool(mom, by, bases_key, level_weights, extremes)
         self._cache[key] = hit
         return hit
 
@@ -416,6 +436,7 @@ class SqlStudy(Study):
               extremes: bool) -> GroupStats:
         codes, c = self.group_codes(by)
         un = self._info["unit_n"]
+        uw = mom.get("wsum", un)  # with the user's weights each unit weighs Σw, else its row count
         idx, powers = self._base_values(bases_key)
         q_ = len(idx) + len(powers)
         # per-unit means and co-moments of V = [bases..., z]
@@ -431,20 +452,21 @@ class SqlStudy(Study):
         means[:, q_] = mom["mean"]
         com[:, q_, q_] = mom["ss"]
         count = np.bincount(codes, weights=un, minlength=c)
-        gmeans = np.column_stack([np.bincount(codes, weights=un * means[:, k], minlength=c) / count
+        wsum = count if uw is un else np.bincount(codes, weights=uw, minlength=c)
+        gmeans = np.column_stack([np.bincount(codes, weights=uw * means[:, k], minlength=c) / wsum
                                   for k in range(q_ + 1)])
         dev = means - gmeans[codes]
         within = np.zeros((c, q_ + 1, q_ + 1))
         for a in range(q_ + 1):
             for b in range(a, q_ + 1):
-                v = np.bincount(codes, weights=com[:, a, b] + un * dev[:, a] * dev[:, b], minlength=c)
+                v = np.bincount(codes, weights=com[:, a, b] + uw * dev[:, a] * dev[:, b], minlength=c)
                 within[:, a, b] = within[:, b, a] = v
         w_g = np.ones(c)
-        slw = 0.0
+        slw = float(self._info.get("slw", 0.0)) if uw is not un else 0.0
         if level_weights is not None:
             w_g = level_weights[self.group_parent(by)]
-            slw = float((count * np.log(w_g)).sum())
-        ss = drop_rounding(within[:, q_, q_] * w_g, count * w_g, gmeans[:, q_])
+            slw += float((count * np.log(w_g)).sum())
+        ss = drop_rounding(within[:, q_, q_] * w_g, wsum * w_g, gmeans[:, q_])
         cross = within * w_g[:, None, None] if q_ else None
         zmin = zmax = None
         if extremes:
@@ -452,7 +474,7 @@ class SqlStudy(Study):
             zmax = np.full(c, -np.inf)
             np.minimum.at(zmin, codes, mom["lo"])
             np.maximum.at(zmax, codes, mom["hi"])
-        return GroupStats(self.n, count.astype(np.int64), count * w_g, gmeans[:, q_], ss, slw,
+        return GroupStats(self.n, count.astype(np.int64), wsum * w_g, gmeans[:, q_], ss, slw,
                           gmeans[:, :q_], cross, zmin, zmax)
 
     def boxcox_stats(self, lams: np.ndarray, by: tuple[str, ...], bases: Any, bases_key: Any) -> list[GroupStats]:
@@ -484,7 +506,9 @@ class SqlStudy(Study):
         if hit is not None:
             return hit
         tkey, wkey = key
-        if wkey is not None:
+        if self.weights_name is not None:
+            hit = weighted_spread(self, tkey, wkey, name)
+        elif wkey is not None:
             hit = SideTest(name, False, reason="not computed for weighted nodes with the SQL engine")
         else:
             st = self.group_stats(None, ("z", tkey), by=())
@@ -518,12 +542,10 @@ def make_sql_study(
         import duckdb
     except ImportError:
         raise DataError("the SQL engine needs duckdb; install it with: pip install 'bendwise[scale]'") from None
-    if weights:
-        raise UsageError("--weights is not available with the SQL engine yet; use --engine memory")
     dec = decimal or "."
     sep, encoding = _csv_preflight(path, dec, delimiter)
     args = dict(y=y, x=x, covariates=covariates, tolerance=tolerance, decimal=dec, source=source, progress=progress,
-                memory_limit=memory_limit, exact=exact)
+                memory_limit=memory_limit, exact=exact, weights=weights)
     try:
         return _make_sql_study(path, delimiter=sep, encoding=encoding, **args)  # type: ignore[arg-type]
     except duckdb.Error as exc:
@@ -548,19 +570,22 @@ def make_sql_study(
 
 def _make_sql_study(path: str, *, y: str, x: str, covariates: Sequence[str], tolerance: str | float | None,
                     decimal: str, delimiter: str | None, encoding: str | None, source: str,
-                    progress: ProgressFn | None, memory_limit: str | None, exact: bool) -> SqlStudy:
+                    progress: ProgressFn | None, memory_limit: str | None, exact: bool,
+                    weights: str | None = None) -> SqlStudy:
     """The DuckDB study over ``path`` (see :func:`make_sql_study`)."""
     parse_tolerance(tolerance)  # a bad tolerance is refused before any reading
     src, as_text = _source_sql(path, decimal, delimiter, encoding)
     con = _connect(memory_limit)
     names, types = _describe(con, src, path, as_text)
     return build_sql_study(con, DUCKDB, src, names, types, as_text, path=path, y=y, x=x, covariates=covariates,
-                           tolerance=tolerance, decimal=decimal, source=source, progress=progress, exact=exact)
+                           tolerance=tolerance, decimal=decimal, source=source, progress=progress, exact=exact,
+                           weights=weights)
 
 
 def build_sql_study(con: Any, d: Dialect, src: str, names: list[str], types: dict[str, str], as_text: bool, *,
                     path: str, y: str, x: str, covariates: Sequence[str], tolerance: str | float | None,
-                    decimal: str, source: str, progress: ProgressFn | None, exact: bool) -> SqlStudy:
+                    decimal: str, source: str, progress: ProgressFn | None, exact: bool,
+                    weights: str | None = None) -> SqlStudy:
     """The study over the table ``src`` of an open connection, whatever the engine (``d`` says how
     it spells things): the columns resolved and typed, the cleaning and group scans, the study.
 
@@ -572,7 +597,7 @@ def build_sql_study(con: Any, d: Dialect, src: str, names: list[str], types: dic
     facts the study keeps; splitting the dictionary would only scatter it."""
     tol, rel = parse_tolerance(tolerance)
     table = _SqlTable(con, d, src, names, types, as_text, decimal)
-    cols = choose_columns(SimpleNamespace(columns=table.names), y=y, x=x, covariates=covariates)
+    cols = choose_columns(SimpleNamespace(columns=table.names), y=y, x=x, covariates=covariates, weights=weights)
     cov_cols = list(cols.covariates)
     kinds = {c: table.kind(c) for c in cov_cols}
     cat_cols = [c for c in cov_cols if kinds[c] == "categorical"]
@@ -583,12 +608,18 @@ def build_sql_study(con: Any, d: Dialect, src: str, names: list[str], types: dic
     checks = table.row_checks(cols, kinds)
     case = "CASE " + " ".join(f"WHEN {cond} THEN {i}" for i, (_, _, cond) in enumerate(checks)) + " ELSE -1 END"
     select = table.select_list(cols, cat_cols, num_cols, sql_name)
+    weighted_series = False
+    if cols.weights is not None:  # the user's weights, under a name of ours, and their own one-scan series
+        select += f", {table.num_expr(cols.weights)[0]} AS {WEIGHT}"
+        weighted_series, exact = not exact, True
     con.execute(f"CREATE TEMP VIEW bw_clean AS SELECT {select} FROM {src} WHERE {case} = -1")
     con.execute(f"CREATE TEMP VIEW bw_all AS SELECT {select} FROM {src}")
     cat_sql = [sql_name[c] for c in cat_cols]
     num_sql = [sql_name[c] for c in num_cols]
     cat_missing = set(_NA_TEXT) if as_text else {""}
     facts = None if exact else series_setup(con, cat_sql, num_sql, cat_missing, progress, d)
+    if facts is None and weighted_series:
+        facts = weighted_series_setup(con, cat_sql, num_sql, cat_missing, progress, d)
     if facts is None:
         facts = exact_setup(con, src, case, checks, cat_sql, num_sql, progress, d)
     user = {v: k for k, v in sql_name.items()}
@@ -598,12 +629,16 @@ def build_sql_study(con: Any, d: Dialect, src: str, names: list[str], types: dic
     n, n_read, drops = facts["n"], facts["n_read"], facts["drops"]
     if n_read == 0:
         raise DataError(f"{path} has no data rows; check the file")
+    w_facts = None if cols.weights is None else (facts.get("weights")  # the one scan saw every weight
+                                                 or check_weights(con, table, src, case, cols.weights))
     require_rows(n, drops)
     unit_x = np.asarray(facts["units"]["x"], dtype=float)
     unit_n = np.asarray(facts["units"]["n"], dtype=float)
     x_values = np.unique(unit_x)
     xmin, xmax = float(x_values[0]), float(x_values[-1])
     require_spread(cols, (xmin, xmax), (facts["y_min"], facts["y_max"]))
+    if w_facts is not None:
+        weights_in_range(w_facts[0], w_facts[1], cols.weights)  # type: ignore[arg-type]
     for c in num_cols:
         require_covariate_varies(c, facts["num_constant"][c])
     covs = _sql_covariates(facts, cov_cols, cat_cols, num_cols, sql_name)
@@ -622,6 +657,8 @@ def build_sql_study(con: Any, d: Dialect, src: str, names: list[str], types: dic
         "series": facts.get("series"),
         "y_min": facts["y_min"], "y_max": facts["y_max"],
     }
+    if w_facts is not None:
+        info["slw"] = w_facts[2]
     study = SqlStudy(
         con,
         progress=progress,
@@ -634,8 +671,8 @@ def build_sql_study(con: Any, d: Dialect, src: str, names: list[str], types: dic
         y=np.empty(0),
         x=np.empty(0),
         covariates=covs,
-        weights=None,
-        weights_name=None,
+        weights=None if cols.weights is None else np.empty(0),  # shape only, as y and x: rows stay in the files
+        weights_name=cols.weights,
         tolerance=tol,
         tolerance_text=None if tolerance is None else str(tolerance),
     )
@@ -762,6 +799,8 @@ def _level_views(con: Any, study: SqlStudy, info: dict) -> None:
     sql_name = info["sql_name"]
     shifted = ["x", "y", *[q(sql_name[c]) for c in info["cat_cols"]]]
     shifted += [f"({q(sql_name[c])} - {info['num_mean'][c]!r}) AS {q(sql_name[c])}" for c in info["num_cols"]]
+    if study.weights_name is not None:
+        shifted.append(WEIGHT)
     con.execute(f"CREATE TEMP VIEW bw_shifted AS SELECT {', '.join(shifted)} FROM bw_clean")
 
 

@@ -252,12 +252,9 @@ def make_spark_study(
     exact: bool = False,
 ) -> Any:
     """Build the SQL study over ``path`` with Spark SQL doing the scans (see the module notes)."""
-    from ..errors import UsageError
     from ..stats.study import parse_tolerance
     from .duckdb import build_sql_study
 
-    if weights:
-        raise UsageError("--weights is not available with the SQL engine yet; use --engine memory")
     parse_tolerance(tolerance)  # a bad tolerance is refused before Spark starts
     dec = decimal or "."
     if "://" not in path:
@@ -277,7 +274,8 @@ def make_spark_study(
         frame.createOrReplaceTempView("bw_src")
         study = build_sql_study(con, SPARK, "bw_src", names, types, as_text, path=path, y=y, x=x,
                                 covariates=covariates, tolerance=tolerance, decimal=dec,
-                                source=source or Path(path.rstrip("/")).name, progress=progress, exact=exact)
+                                source=source or Path(path.rstrip("/")).name, progress=progress, exact=exact,
+                                weights=weights)
     except _spark_errors() as exc:  # Spark's own errors (analysis, a malformed file, a lost executor)
         raise DataError(_spark_message(path, exc, dec, delimiter)) from None
 

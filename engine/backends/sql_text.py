@@ -16,7 +16,8 @@ from ..errors import UsageError
 from ..stats.transforms import Transform
 from .dialect import DUCKDB, Dialect
 
-__all__ = ["q", "lit", "transform_sql", "aggregate_sql", "series_sql", "centre_polynomial"]
+__all__ = ["q", "lit", "transform_sql", "aggregate_sql", "series_sql", "centre_polynomial",
+           "weighted_aggregate_sql", "weighted_series_sql"]
 
 
 def q(name: str) -> str:
@@ -122,3 +123,86 @@ def centre_polynomial(px: np.ndarray, lm: np.ndarray, w: np.ndarray, ls: np.ndar
     for c in coef[-2::-1]:
         expr = f"({float(c)!r} + {u_sql} * {expr})"
     return expr
+
+
+
+def weighted_aggregate_sql(source: str, keys: Sequence[str], nums: Sequence[str], zs: Sequence[str],
+                           shifts: Sequence[float], weight: str, d: Dialect = DUCKDB) -> str:
+    """The weighted GROUP BY query: per finest group, weighted sums about the group's own
+    (unweighted) means, so no large offset meets a square.
+
+    ``source`` has columns ``y``, the key and numeric columns and the weight column ``weight``
+    (> 0); ``zs`` are SQL expressions of the transformed response (in ``y``) less ``shifts``. A sub-query gives
+    each group's means of every z and numeric column (``bw_cz{k}``, ``bw_cb{i}``) and each z's
+    population variance (``bw_vz{k}``); joined back on the keys, the outer query sums Σw, Σw·dz,
+    Σw·dz², Σw·db, Σw·db·db′, Σw·dz·db with d the deviation from those means, the extremes of z,
+    and the mean and population variance of √w·z (the spread test of a weighted fit). Standard
+    SQL only; ``source`` is read twice.
+    """
+    q = d.quote
+    key_list = ", ".join(q(k) for k in keys)
+    inner = [*(f"AVG({z}) AS bw_cz{k}" for k, z in enumerate(zs)),
+             *(f"VAR_POP({z}) AS bw_vz{k}" for k, z in enumerate(zs)),
+             *(f"AVG({q(b)}) AS bw_cb{i}" for i, b in enumerate(nums))]
+    centres = f"SELECT {key_list}, {', '.join(inner)} FROM {source} GROUP BY {key_list}"
+    on = " AND ".join(f"r.{q(k)} = c.{q(k)}" for k in keys)
+    carried = [*(f"r.{q(k)} AS {q(k)}" for k in keys), "r.y AS y", *(f"r.{q(b)} AS {q(b)}" for b in nums),
+               f"r.{q(weight)} AS bw_w", *(f"c.bw_cz{k}, c.bw_vz{k}" for k in range(len(zs))),
+               *(f"c.bw_cb{i}" for i in range(len(nums)))]
+    joined = f"SELECT {', '.join(carried)} FROM {source} AS r JOIN ({centres}) AS c ON {on}"
+    dz = [f"(({z}) - bw_cz{k})" for k, z in enumerate(zs)]
+    db = [f"({q(b)} - bw_cb{i})" for i, b in enumerate(nums)]
+    parts = ["COUNT(*) AS n", "SUM(bw_w) AS sw"]
+    for i, b in enumerate(db):
+        parts += [f"MAX(bw_cb{i}) AS cb{i}", f"SUM(bw_w * {b}) AS wb{i}"]
+        parts += [f"SUM(bw_w * {b} * {db[j]}) AS wbb{i}_{j}" for j in range(i, len(db))]
+    for k, z in enumerate(dz):
+        parts += [f"MAX(bw_cz{k}) AS cz{k}", f"MAX(bw_vz{k}) AS vz{k}", f"SUM(bw_w * {z}) AS wz{k}",
+                  f"SUM(bw_w * {z} * {z}) AS wzz{k}",
+                  *(f"SUM(bw_w * {z} * {b}) AS wzb{k}_{i}" for i, b in enumerate(db)),
+                  f"MIN({zs[k]}) AS z{k}_lo", f"MAX({zs[k]}) AS z{k}_hi",
+                  f"AVG(SQRT(bw_w) * ({zs[k]} + {shifts[k]!r})) AS rz{k}_m",
+                  f"VAR_POP(SQRT(bw_w) * ({zs[k]} + {shifts[k]!r})) AS rz{k}_v"]
+    return (f"SELECT {key_list}, {', '.join(parts)} FROM ({joined}) AS bw_wj "
+            f"GROUP BY {key_list} ORDER BY {key_list}")
+
+
+def weighted_series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t_ref: Sequence[float], big_m: int,
+                        big_k: int, shift_table: str | None, fallback_centre: float, centre_expr: str | None,
+                        weight: str, d: Dialect = DUCKDB) -> str:
+    """The one-scan query of :func:`series_sql` for a table with a weights column ``weight``: per
+    finest group the same count, extremes, centre and unweighted Σd^k (k ≤ M), and besides them
+    Σw, Σ√w, Σ log w, the extremes of w, Σw·d^k and Σ√w·d^k (k ≤ M), the unweighted covariate sums
+    and the weighted covariate sums, cross-products and Σw·d^k·t (k ≤ K). A weight that is missing
+    or not finite makes ``bw_chk`` NULL or NaN, as a bad cell does; one ≤ 0 shows in the smallest w.
+    """
+    q = d.quote
+    on = " AND ".join(f"r.{q(k)} = s.{q(k)}" for k in keys)
+    sel = ", ".join([*(f"r.{q(k)}" for k in keys), "r.y", *(f"r.{q(b)}" for b in nums), f"r.{q(weight)} AS bw_w"])
+    if centre_expr is not None:
+        joined = f"SELECT {sel}, {centre_expr} AS bw_c FROM {source} AS r"
+    else:
+        joined = (f"SELECT {sel}, COALESCE(s.bw_c, {fallback_centre!r}) AS bw_c "
+                  f"FROM {source} AS r LEFT JOIN {shift_table} AS s ON {on}")
+    chk = " + ".join(["y * 0", "x * 0", "bw_w * 0", *(f"{q(b)} * 0" for b in nums)])
+    cols = [*(q(k) for k in keys), "y", "bw_c", "bw_w",
+            *(f"({q(b)} - {ref!r}) AS {q(b)}" for b, ref in zip(nums, t_ref, strict=True)),
+            "CASE WHEN bw_w > 0 THEN SQRT(bw_w) END AS bw_r", "CASE WHEN bw_w > 0 THEN LN(bw_w) END AS bw_lw",
+            "CASE WHEN y > 0 THEN LN(y) - bw_c END AS bw_d1", f"({chk}) AS bw_chk"]
+    query = f"SELECT {', '.join(cols)} FROM ({joined}) AS bw_j"
+    have = 1
+    while have < big_m:  # powers by repeated squaring, as in series_sql
+        new = [f"bw_d{have} * bw_d{k - have} AS bw_d{k}" for k in range(have + 1, min(2 * have, big_m) + 1)]
+        query = f"SELECT *, {', '.join(new)} FROM ({query}) AS bw_p{have}"
+        have = min(2 * have, big_m)
+    aggs = ["COUNT(*) AS n", "COUNT(bw_chk) AS nchk", "MIN(y) AS ylo", "MAX(y) AS yhi", "MIN(bw_c) AS centre",
+            "MIN(bw_w) AS wlo", "MAX(bw_w) AS whi", "SUM(bw_w) AS sw", "SUM(bw_r) AS sr", "SUM(bw_lw) AS slw"]
+    aggs += ["SUM(bw_d1 + bw_chk) AS s1", *(f"SUM(bw_d{k}) AS s{k}" for k in range(2, big_m + 1))]
+    aggs += [f"SUM(bw_w * bw_d{k}) AS ws{k}" for k in range(1, big_m + 1)]
+    aggs += [f"SUM(bw_r * bw_d{k}) AS rs{k}" for k in range(1, big_m + 1)]
+    for i, b in enumerate(nums):
+        aggs += [f"SUM({q(b)}) AS t{i}", f"SUM(bw_w * {q(b)}) AS wt{i}"]
+        aggs += [f"SUM(bw_w * {q(b)} * {q(nums[j])}) AS wtt{i}_{j}" for j in range(i, len(nums))]
+        aggs += [f"SUM(bw_w * bw_d{k} * {q(b)}) AS wc{i}_{k}" for k in range(1, big_k + 1)]
+    key_list = ", ".join(q(k) for k in keys)
+    return f"SELECT {key_list}, {', '.join(aggs)} FROM ({query}) AS bw_q GROUP BY {key_list} ORDER BY {key_list}"

@@ -36,6 +36,8 @@ class Rows:
     """How many rows the study uses in all."""
     sampled: bool = False
     """True when these are a sample of the ``total`` rows."""
+    weights: np.ndarray | None = None
+    """The user's weight per row, when the study has a weights column (a SQL study's sample)."""
 
     @property
     def n(self) -> int:

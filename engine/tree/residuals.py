@@ -81,6 +81,8 @@ def _sampled_residuals(study: Study, score: NodeScore, k: int) -> LevelResiduals
     fr = _frame(study, spec)
     if fr.w_level is not None:
         w = np.asarray(fr.w_level, dtype=float)[xc]
+    if rows.weights is not None:  # the user's weights, read with the sample
+        w = w * rows.weights
     e = np.sqrt(w) * (z - zhat)
     cnt = np.bincount(xc, minlength=study.c).astype(float)
     with np.errstate(all="ignore"):

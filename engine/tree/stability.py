@@ -279,7 +279,10 @@ def _rows_study(study: Study) -> tuple[Study, str | None]:
 
     sample = study.row_sample(MAX_ROWS)
     frame = pd.DataFrame({study.y_name: sample.y, study.x_name: sample.x, **sample.covariates})
+    if sample.weights is not None and study.weights_name is not None:  # the user's weights go along
+        frame[study.weights_name] = sample.weights
     base = make_study(frame, y=study.y_name, x=study.x_name, covariates=[c.name for c in study.covariates],
+                      weights=study.weights_name if sample.weights is not None else None,
                       tolerance=study.tolerance_text, source=study.source)
     note = (f"the rows are read through the SQL engine: resamples are drawn from a seeded random sample of "
             f"{base.n:,} of its {study.n:,} rows")

@@ -356,3 +356,75 @@ def test_spark_connect_session_is_made_without_new_session(monkeypatch, url, how
     spark_backend.spark_session("local[1]")
     assert ("remote", url) in log and (how,) in log
     assert ("conf", "spark.sql.ansi.enabled", spark_backend.SESSION_CONF["spark.sql.ansi.enabled"]) in log
+
+
+# ----------------------------------------------------------------------------- the user's weights
+
+
+@on_spark
+@hyp(1)
+@given(data=replicated(dirty=True))
+def test_weighted_example_gives_the_memory_statistics(tmp_path, data):
+    """A weights column varying within levels (bad weights only on rows dropped anyway), both file
+    kinds, and a weights column with a hostile name read as a quoted identifier."""
+    from test_sql_backend import HOSTILE_WEIGHTS, WEIGHTED_SPECS, W, _same_weighted, with_weights
+
+    cells, storage = data
+    cells = with_weights(cells, 5)
+    d = _fresh(tmp_path)
+    for path in (write_csv(cells, d / "t.csv"), write_parquet(cells, storage, d / "t.parquet", text_numbers=False)):
+        mem = engine.make_study(engine.load_table(str(path)), y=Y, x=X, covariates=[CAT, NUM], weights=W,
+                                source=path.name)
+        _same_weighted(mem, _spark(path, covariates=[CAT, NUM], weights=W), WEIGHTED_SPECS[:3] + WEIGHTED_SPECS[7:])
+    frame = _design_frame(4, 6)
+    frame[HOSTILE_WEIGHTS] = np.random.default_rng(2).uniform(0.5, 2.0, len(frame))
+    path = tmp_path / "odd.parquet"
+    frame.to_parquet(path)
+    mem = engine.make_study(frame, y=Y, x=X, covariates=[CAT], weights=HOSTILE_WEIGHTS, source="odd.parquet")
+    _same_weighted(mem, _spark(path, covariates=[CAT], weights=HOSTILE_WEIGHTS), SPECS[:2] + SPECS[7:8])
+
+
+@on_spark
+@pytest.mark.parametrize("bad", [0.0, -1.0, None, "heavy"])
+def test_bad_weight_is_the_same_line_on_every_engine(tmp_path, bad):
+    from bendwise.engine.backends.duckdb import make_sql_study
+
+    frame = _design_frame(3, 4)
+    frame["w"] = pd.Series(np.linspace(0.5, 2.0, len(frame)), dtype=object)
+    frame.loc[[2, 11], "w"] = bad
+    path = tmp_path / "t.csv"
+    frame.to_csv(path, index=False)
+    messages = []
+    for build in (lambda: engine.make_study(engine.load_table(str(path)), y=Y, x=X, weights="w"),
+                  lambda: make_sql_study(str(path), y=Y, x=X, weights="w"),
+                  lambda: make_spark_study(str(path), y=Y, x=X, weights="w", master=MASTER)):
+        with pytest.raises(DataError) as err:
+            build()
+        messages.append(str(err.value))
+    assert messages[0] == messages[1] == messages[2] and "(rows 3, 12)" in messages[0], messages
+    if bad == 0.0:  # in a folder the rows are numbered through the files in name order, as memory reads them
+        folder = tmp_path / "parts"
+        folder.mkdir()
+        parts = [frame.iloc[:10], frame.iloc[10:20], frame.iloc[20:]]
+        for i, p in enumerate(parts):
+            p.to_csv(folder / f"part-{i}.csv", index=False)
+        with pytest.raises(DataError) as err:
+            make_spark_study(str(folder), y=Y, x=X, weights="w", master=MASTER)
+        assert str(err.value) == messages[0]
+
+
+@on_spark
+@hyp(1)
+@given(data=replicated(dirty=False))
+def test_weighted_clean_example_takes_the_one_scan_path(tmp_path, data):
+    from bendwise.engine.backends.weighted import WeightedSeries
+    from test_sql_backend import WEIGHTED_SPECS, W, _same_weighted, with_weights
+
+    cells, storage = data
+    path = write_parquet(with_weights(cells, 9, spoil=False), storage, _fresh(tmp_path) / "t.parquet",
+                         text_numbers=False)
+    mem = engine.make_study(engine.load_table(str(path)), y=Y, x=X, covariates=[CAT, NUM], weights=W,
+                            source=path.name)
+    sql = _spark(path, covariates=[CAT, NUM], weights=W)
+    assert isinstance(sql._info["series"], WeightedSeries)  # the weighted power-sum scan ran as Spark SQL
+    _same_weighted(mem, sql, WEIGHTED_SPECS)

@@ -159,14 +159,17 @@ def _same_check(mem, sql, alpha: float = 0.05, rel: float = REL) -> None:
     _same_spread(mem, IDENTITY, b["spread"], "check.spread")
 
 
-def _same_spread(mem, t: Transform, b: dict, what: str) -> None:
+def _same_spread(mem, t: Transform, b: dict, what: str, w: np.ndarray | None = None) -> None:
     """The SQL engine tests equal spread with Bartlett's statistic from level variances (one
     pass; Brown–Forsythe needs level medians). Reference: scipy.stats.bartlett on the rows of
-    the in-memory study, transformed and grouped by x level, levels with two or more rows."""
+    the in-memory study, transformed (times √w with weights ``w``, as the memory engine tests a
+    weighted node) and grouped by x level, levels with two or more rows."""
     from scipy import stats
 
     assert "Bartlett" in b["name"], b
     z = np.asarray(t.forward(mem.y), dtype=float)
+    if w is not None:
+        z = np.sqrt(w) * z
     groups = [z[mem.x_codes == g] for g in range(mem.c)]
     groups = [g for g in groups if g.size >= 2]
     if len(groups) < 2 or any(np.ptp(g) == 0 for g in groups):
@@ -174,8 +177,13 @@ def _same_spread(mem, t: Transform, b: dict, what: str) -> None:
         return
     ref = stats.bartlett(*groups)
     assert b["testable"], (what, b)
-    _close(b["statistic"], ref.statistic, f"{what}.statistic")
-    _close(b["p"], ref.pvalue, f"{what}.p", floor=1e-300)
+    # with weights 1/level variance every level of √w·z has variance 1 and the statistic is 0 up to
+    # rounding: compared on the scale of a χ² with a few degrees of freedom
+    _close(b["statistic"], ref.statistic, f"{what}.statistic", floor=1e-300 if w is None else 1.0)
+    if w is not None and abs(ref.statistic) < 1e-9:  # scipy's p is NaN below 0; the χ² tail at 0 is 1
+        _close(b["p"], 1.0, f"{what}.p")
+    else:
+        _close(b["p"], ref.pvalue, f"{what}.p", floor=1e-300)
     assert b["df"] == [len(groups) - 1]
 
 
@@ -236,7 +244,7 @@ def _same_score(mem, sql, spec: ModelSpec, root_mem=None, root_sql=None) -> None
     # spread of residuals = spread of the response when the fit is constant within x levels
     # (under a tolerance it is not: see test_spread_under_a_tolerance_says_what_it_tested)
     if not spec.covariates and spec.weights is None and not mem.approximate_groups:
-        _same_spread(mem, spec.response, b.spread.as_json(), f"spread[{spec.label()}]")
+        _same_spread(mem, spec.response, b.spread.as_json(), f"spread[{spec.label()}]", mem.weights)
 
 
 # ----------------------------------------------------------------------------- data
@@ -698,10 +706,49 @@ def test_cli_missing_column_suggests(capsys, sensor_file):
     assert "'signl' not found" in err and "did you mean 'signal'" in err
 
 
-def test_cli_weights_not_supported_yet(capsys, sensor_file):
-    err = _one_line_error(capsys, ["check", str(sensor_file), "-y", "signal", "-x", "conc", "--weights", "w",
-                                   "--engine", "duckdb"])
-    assert "--weights" in err and "--engine memory" in err
+@pytest.mark.parametrize("bad", ["0", "-2.5", "", "heavy", "inf"])
+def test_cli_bad_weight_gives_the_memory_engines_line(capsys, tmp_path, bad):
+    # a zero, negative, missing, text or infinite weight in a kept row: one line, the same on both
+    # engines (rows counted in file order); the same cell in a row dropped for its response is fine
+    frame = pd.read_csv(_sensor_with_weights(tmp_path)).astype({"w": object, "signal": object})
+    frame.loc[[4, 7], "w"] = bad
+    path = tmp_path / "badw.csv"
+    frame.to_csv(path, index=False)
+    argv = ["check", str(path), "-y", "signal", "-x", "conc", "--weights", "w"]
+    errs = [_one_line_error(capsys, [*argv, "--engine", e]) for e in ("memory", "duckdb")]
+    assert errs[0] == errs[1] and "'w'" in errs[0] and "rows 5, 8" in errs[0], errs
+    frame.loc[[4, 7], "signal"] = "NA"
+    frame.to_csv(path, index=False)
+    outs = [_run(capsys, [*argv, "--json", "--engine", e]) for e in ("memory", "duckdb")]
+    assert outs[0][0] == outs[1][0] == 0, outs
+    # cleaning lines name rows in memory only (see _same_check)
+    _same_json(json.loads(outs[0][1]), json.loads(outs[1][1]), "check", skip=frozenset({"spread", "cleaning"}))
+
+
+def test_bad_weight_in_a_later_file_of_a_folder_is_numbered_as_memory_numbers_it(tmp_path):
+    frame = _design_frame(3, 5)
+    frame[W] = np.linspace(0.5, 2.0, len(frame))
+    parts = _split(frame, 3)
+    parts[2].loc[parts[2].index[1], W] = 0.0
+    folder = tmp_path / "wparts"
+    folder.mkdir()
+    for i, p in enumerate(parts):
+        p.to_csv(folder / f"part-{i}.csv", index=False)
+    with pytest.raises(BendwiseError) as mem_err:
+        engine.make_study(pd.concat(parts, ignore_index=True), y=Y, x=X, weights=W)
+    with pytest.raises(BendwiseError) as sql_err:
+        make_sql_study(str(folder), y=Y, x=X, weights=W)
+    assert str(sql_err.value) == str(mem_err.value)
+    assert f"(rows {len(parts[0]) + len(parts[1]) + 2})" in str(mem_err.value)
+
+
+def _sensor_with_weights(tmp_path: Path) -> Path:
+    rng = np.random.default_rng(4)
+    x = np.repeat([1.0, 2.0, 3.0, 4.0, 5.0], 4)
+    y = 3 + 1.5 * x + 0.2 * x**2 + rng.normal(0, 0.3, x.size) * x
+    path = tmp_path / "wsensor.csv"
+    pd.DataFrame({"signal": y, "conc": x, "w": rng.uniform(0.3, 3.0, x.size)}).to_csv(path, index=False)
+    return path
 
 
 def test_cli_empty_folder(capsys, tmp_path):
@@ -1008,3 +1055,247 @@ def test_bartlett_from_groups_matches_scipy():
     assert got.df == (3,)
     single = bartlett_from_groups(np.array([1.0, 4.0, 1.0]), np.array([0.0, 2.0, 0.0]))
     assert not single.testable and "two levels" in (single.reason or "")
+
+
+# ----------------------------------------------------------------------------- the user's weights
+
+W = "wt"
+WEIGHTED_SPECS = (*SPECS[:8], SPECS[8], SPECS[9], SPECS[11], SPECS[12])
+
+
+def with_weights(cells: dict, seed: int, *, spoil: bool = True) -> dict:
+    """The cells with a positive weights column that varies within x levels. Where a row is
+    dropped anyway (a bad response or predictor), its weight may be bad too (zero, negative,
+    missing, text): the memory engine looks only at the rows it keeps, and so must SQL."""
+    rng = np.random.default_rng(seed)
+    n = len(cells[Y])
+    w: list = [float(v) for v in rng.uniform(0.2, 5.0, n)]
+    if spoil:
+        for i in range(n):
+            if isinstance(cells[Y][i], str) or isinstance(cells[X][i], str):
+                w[i] = [0.0, -1.5, "", "NA", "oops"][i % 5]
+    return {**cells, W: w}
+
+
+def _both_weighted(path: Path, covariates=(CAT, NUM), tolerance=None, weights: str = W):
+    mem, e1 = _outcome(lambda: engine.make_study(engine.load_table(str(path)), y=Y, x=X, covariates=list(covariates),
+                                                 weights=weights, tolerance=tolerance, source=path.name))
+    sql, e2 = _outcome(lambda: make_sql_study(str(path), y=Y, x=X, covariates=list(covariates), weights=weights,
+                                              tolerance=tolerance))
+    assert (e1 is None) == (e2 is None), f"memory {e1!r} vs SQL {e2!r}"
+    if e1 is not None:
+        assert type(e1) is type(e2) and str(e1) == str(e2), f"memory {e1!r} vs SQL {e2!r}"
+    return mem, sql
+
+
+def _same_weighted(mem, sql, specs=WEIGHTED_SPECS) -> None:
+    assert mem.weights is not None and sql.weights_name == mem.weights_name
+    _same_everything(mem, sql, specs)
+    # the study's Σ log w enters every weighted likelihood
+    st = sql.group_stats(None, ("z", IDENTITY.key()), weights_key=sql.weights_name)
+    _close(st.sum_log_w, float(np.log(mem.weights).sum()), "sum_log_w")
+
+
+@hyp(4)
+@given(data=replicated(dirty=True), wseed=st.integers(0, 1000))
+def test_weighted_csv_and_parquet_give_the_memory_statistics(tmp_path, data, wseed):
+    cells, storage = data
+    cells = with_weights(cells, wseed)
+    d = _fresh(tmp_path)
+    for path in (write_csv(cells, d / "t.csv"), write_parquet(cells, storage, d / "t.parquet", text_numbers=False)):
+        mem, sql = _both_weighted(path)
+        if mem is not None:
+            _same_weighted(mem, sql)
+
+
+@hyp(3)
+@given(data=replicated(dirty=False), wseed=st.integers(0, 1000))
+def test_weighted_clean_data_take_the_one_scan_path(tmp_path, data, wseed):
+    # clean rows and positive weights: one scan of weighted, unweighted and √w-weighted power sums
+    # serves every transform it can hold to SERIES_TOL, the rest are scanned exactly; both paths
+    # give the memory engine's statistics
+    from bendwise.engine.backends.weighted import WeightedSeries
+
+    cells, storage = data
+    path = write_parquet(with_weights(cells, wseed, spoil=False), storage, _fresh(tmp_path) / "t.parquet",
+                         text_numbers=False)
+    mem, sql = _both_weighted(path)
+    assert isinstance(sql._info["series"], WeightedSeries)
+    _same_weighted(mem, sql)
+    exact = make_sql_study(str(path), y=Y, x=X, covariates=[CAT, NUM], weights=W, exact=True)
+    assert exact._info["series"] is None
+    _same_weighted(mem, exact, SPECS[:3] + SPECS[11:])
+
+
+@hyp(3)
+@given(data=replicated(near=True, dirty=False), tol=st.sampled_from(["0.3", "2%"]))
+def test_weighted_tolerance_groups_agree(tmp_path, data, tol):
+    cells, _ = data
+    path = write_csv(with_weights(cells, 7, spoil=False), _fresh(tmp_path) / "t.csv")
+    mem, sql = _both_weighted(path, covariates=(NUM,), tolerance=tol)
+    _same_study(mem, sql)
+    _same_check(mem, sql)
+    for spec in (ModelSpec(), ModelSpec(degree=2), ModelSpec(covariates=(NUM,)), SPECS[11]):
+        _same_score(mem, sql, spec)
+
+
+def test_weighted_large_offset_pure_error(tmp_path):
+    # y near 10⁶ with a spread of 0.05, weights varying inside each level. Reference: the weighted
+    # pure-error sum of squares Σw(y − ȳ_w)² in exact rational arithmetic (fractions) on the very
+    # doubles in the file; then the rest of the check against memory (the SQL group means carry
+    # ε·offset, as the unweighted one-scan path's do: see test_large_offset_pure_error)
+    from fractions import Fraction
+
+    rng = np.random.default_rng(8)
+    x = np.repeat(np.arange(1.0, 9.0), 6)
+    y = 1e6 + 0.5 * x + 0.01 * x**2 + rng.normal(0, 0.05, x.size)
+    w = rng.uniform(0.5, 4.0, x.size)
+    temp = rng.normal(20.0, 2.0, x.size)
+    path = tmp_path / "offset.parquet"
+    pd.DataFrame({Y: y, X: x, NUM: temp, W: w}).to_parquet(path)
+    exact = Fraction(0)
+    for level in np.unique(x):
+        ws = [Fraction(float(v)) for v in w[x == level]]
+        ys = [Fraction(float(v)) for v in y[x == level]]
+        mean = sum(a * b for a, b in zip(ws, ys, strict=True)) / sum(ws)
+        exact += sum(a * (b - mean) ** 2 for a, b in zip(ws, ys, strict=True))
+    mem, sql = _both_weighted(path, covariates=(NUM,))
+    for name, study in (("memory", mem), ("SQL", sql)):
+        ss = engine.check(study).lack_of_fit.ss_pure
+        assert abs(ss - float(exact)) <= 1e-11 * float(exact), f"{name}: {ss!r} vs exact {float(exact)!r}"
+    _same_check(mem, sql, rel=2e-8)
+    for spec in (ModelSpec(covariates=(NUM,)), SPECS[11]):
+        a, b = score_spec(mem, spec), score_spec(sql, spec)
+        _same_json(_score_json(a)["coef"], _score_json(b)["coef"], f"coef[{spec.label()}]", rel=2e-8)
+        _close(b.fit.sse, a.fit.sse, f"sse[{spec.label()}]", rel=2e-8)
+
+
+def test_weighted_node_against_statsmodels_wls(tmp_path):
+    # Reference: statsmodels WLS on the rows (weights = the column), for the straight line and for
+    # the line with a numeric covariate: coefficients, standard errors and the weighted residual
+    # sum of squares Σw·e² of the SQL study's nodes
+    import statsmodels.api as sm
+
+    rng = np.random.default_rng(21)
+    x = np.repeat(np.arange(1.0, 8.0), 5)
+    temp = rng.normal(20.0, 2.0, x.size)
+    y = 2 + 0.8 * x + 0.3 * temp + rng.normal(0, 0.2, x.size) * x
+    w = 1.0 / x**2 * rng.uniform(0.5, 2.0, x.size)
+    path = tmp_path / "wls.csv"
+    pd.DataFrame({Y: y, X: x, NUM: temp, W: w}).to_csv(path, index=False)
+    sql = make_sql_study(str(path), y=Y, x=X, covariates=[NUM], weights=W)
+    for spec, exog in ((ModelSpec(), np.column_stack([np.ones_like(x), x])),
+                       (ModelSpec(covariates=(NUM,)), np.column_stack([np.ones_like(x), x, temp]))):
+        ref = sm.WLS(y, exog, weights=w).fit()
+        fit = score_spec(sql, spec).fit
+        est = np.array([c.estimate for c in fit.coefficients])
+        se = np.array([c.se for c in fit.coefficients])
+        np.testing.assert_allclose(est, ref.params, rtol=1e-9)
+        np.testing.assert_allclose(se, ref.bse, rtol=1e-9)
+        _close(fit.sse, float(ref.ssr), f"sse[{spec.label()}]")
+        assert fit.df_resid == int(ref.df_resid)
+
+
+def _demo_with_level_weights(tmp_path: Path) -> tuple[Path, str, str]:
+    """The demo calibration with a weights column derived here: 1 / the level's variance."""
+    from conftest import SENSOR, SENSOR_X, SENSOR_Y
+
+    frame = pd.read_csv(SENSOR)
+    var = frame.groupby(SENSOR_X)[SENSOR_Y].transform("var")
+    frame["inv_var"] = 1.0 / var
+    path = tmp_path / "sensor_w.csv"
+    frame.to_csv(path, index=False)
+    return path, SENSOR_Y, SENSOR_X
+
+
+def test_weighted_demo_gives_the_memory_statistics(tmp_path):
+    from conftest import SENSOR_COVARIATES
+
+    path, y, x = _demo_with_level_weights(tmp_path)
+    covs = list(SENSOR_COVARIATES)
+    mem = engine.make_study(engine.load_table(str(path)), y=y, x=x, covariates=covs, weights="inv_var",
+                            source=path.name)
+    sql = make_sql_study(str(path), y=y, x=x, covariates=covs, weights="inv_var")
+    _same_study(mem, sql)
+    _same_check(mem, sql)
+    root_mem = np.asarray(score_spec(mem, ModelSpec()).level_fitted_y)
+    root_sql = np.asarray(score_spec(sql, ModelSpec()).level_fitted_y)
+    for spec in (ModelSpec(), ModelSpec(degree=2), ModelSpec(response=LOG), ModelSpec(covariates=("run_day",)),
+                 ModelSpec(weights=WeightRule("power-of-mean", 1.0))):
+        _same_score(mem, sql, spec, root_mem, root_sql)
+
+
+def test_cli_weighted_check_and_grow_json_match_memory(tmp_path, capsys):
+    path, y, x = _demo_with_level_weights(tmp_path)
+    for cmd in (["check"], ["grow", "--covariates", "temp_c", "--depth", "1"]):
+        argv = [cmd[0], str(path), "-y", y, "-x", x, "--weights", "inv_var", *cmd[1:], "--json"]
+        rc, out_mem, err = _run(capsys, [*argv, "--engine", "memory"])
+        assert rc == 0, err
+        rc, out_sql, err = _run(capsys, [*argv, "--engine", "duckdb"])
+        assert rc == 0, err
+        a, b = json.loads(out_mem), json.loads(out_sql)
+        if cmd[0] == "check":
+            assert a["weights"] == b["weights"] == "inv_var"
+            _same_json(a, b, "check", skip=frozenset({"spread", "replicate_free"}))
+            continue
+        nodes_a = {n["label"]: n for n in a["nodes"]}
+        nodes_b = {n["label"]: n for n in b["nodes"]}
+        plain = lambda nodes: {k for k in nodes if not k.startswith("bc(")}  # noqa: E731
+        assert plain(nodes_a) == plain(nodes_b) and len(plain(nodes_a)) > 5
+        for label in plain(nodes_a):
+            for key in ("coefficients", "sigma", "lack_of_fit", "criteria", "nested", "k"):
+                _same_json(nodes_a[label][key], nodes_b[label][key], f"grow[{label}].{key}")
+
+
+HOSTILE_WEIGHTS = 'w"; DROP TABLE t; -- `x` ü'
+
+
+def test_hostile_weights_column_name_stays_a_quoted_identifier(tmp_path):
+    frame = _design_frame(4, 6)
+    frame[HOSTILE_WEIGHTS] = np.random.default_rng(2).uniform(0.5, 2.0, len(frame))
+    path = tmp_path / "odd.parquet"
+    frame.to_parquet(path)
+    mem, sql = _both_weighted(path, weights=HOSTILE_WEIGHTS)
+    _same_weighted(mem, sql, SPECS[:2] + SPECS[7:9])
+    frame.loc[3, HOSTILE_WEIGHTS] = -1.0
+    frame.to_parquet(path)
+    mem, sql = _both_weighted(path, weights=HOSTILE_WEIGHTS)  # the same one line from both engines
+    assert mem is None
+
+
+def test_weighted_row_sample_carries_the_weights(tmp_path):
+    # residuals of a weighted SQL study come from a sample of rows, weighted by the sampled weights:
+    # with every row in the sample they are the memory engine's residuals (in some order)
+    from bendwise.engine.tree.residuals import residuals_by_level
+
+    frame = _design_frame(4, 9)
+    frame[W] = np.random.default_rng(3).uniform(0.2, 5.0, len(frame))
+    path = tmp_path / "s.parquet"
+    frame.to_parquet(path)
+    mem, sql = _both_weighted(path, covariates=(NUM,))
+    sample = sql.row_sample(1000)
+    assert sample.weights is not None
+    np.testing.assert_allclose(np.sort(sample.weights), np.sort(mem.weights), rtol=0)
+    for spec in (ModelSpec(covariates=(NUM,)), SPECS[11]):
+        ra = residuals_by_level(mem, score_spec(mem, spec))
+        rb = residuals_by_level(sql, score_spec(sql, spec))
+        np.testing.assert_allclose(np.sort(rb.residual), np.sort(ra.residual), rtol=1e-9, atol=1e-12)
+
+
+def test_weighted_row_level_checks_say_why_or_use_the_weighted_sample(tmp_path):
+    # without replicates the replicate-free checks need the rows: the weighted SQL study says so as
+    # the unweighted one does; stability resamples a seeded sample of rows that keeps the weights
+    from bendwise.engine.tree.stability import _rows_study
+
+    rng = np.random.default_rng(12)
+    x = np.linspace(1.0, 20.0, 40)
+    path = tmp_path / "norep.csv"
+    pd.DataFrame({Y: 2 + x + rng.normal(0, 0.3, x.size), X: x, W: rng.uniform(0.5, 2.0, x.size)}).to_csv(path,
+                                                                                                       index=False)
+    mem, sql = _both_weighted(path, covariates=())
+    assert not sql.exact_replicates() and isinstance(sql.rows(), NoRows)
+    got = engine.check(sql).as_json()["replicate_free"]
+    assert [t["testable"] for t in got] == [False] and "rows in memory" in got[0]["reason"]
+    base, note = _rows_study(sql)
+    assert note is not None and base.weights_name == W
+    np.testing.assert_allclose(np.sort(base.weights), np.sort(mem.weights), rtol=0)
