@@ -167,6 +167,16 @@ class _Frame:
 
 
 def _frame(study: Study, spec: ModelSpec) -> _Frame:
+    """The node's response rows, weights, grouping and bases (cached on the study per spec: the
+    scoring, the moves and the searches ask for it several times per node)."""
+    key = ("frame", spec)
+    hit = study.cache_get(key)
+    if hit is None:
+        hit = study.cache_put(key, _make_frame(study, spec))
+    return hit
+
+
+def _make_frame(study: Study, spec: ModelSpec) -> _Frame:
     z, jac = _response(study, spec.response)
     w, wkey, w_level = _weights(study, spec)
     by = _cat_names(study)
