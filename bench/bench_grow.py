@@ -257,7 +257,15 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--format", choices=["csv", "parquet"], default="parquet")
     ap.add_argument("--profile", action="store_true", help="cProfile the in-process tree (top 15)")
     ap.add_argument("--md", metavar="PATH", help="also write the table as Markdown to PATH")
+    ap.add_argument("--before", metavar="CHECKOUT",
+                    help="only compare: time the tree of an older checkout (a git worktree) and of this one in "
+                         "alternating processes, 3 rounds, each against both groupby floors")
+    ap.add_argument("--tree-only", action="store_true", help=argparse.SUPPRESS)  # one round, JSON (for --before)
     args = ap.parse_args(argv)
+    if args.tree_only:
+        return _tree_round(int(args.rows), args.levels)
+    if args.before:
+        return _before_after(Path(args.before), int(args.rows), args.levels, args.md)
     n = int(1e5 if args.quick else args.rows)
     budget = 20.0 if args.quick else args.naive_budget
     minimum = 4 if args.quick else 8
@@ -348,6 +356,62 @@ def main(argv: list[str] | None = None) -> int:
     if args.md:
         Path(args.md).write_text(text + ("\n\n```\n" + prof_text + "```\n" if prof_text else "\n"), encoding="utf-8")
     return 0 if ok else 1
+
+
+def _tree_round(n: int, levels: int) -> int:
+    """One round in this process: warm-up, then the tree (best of 2) and both floors (best of 5), as JSON."""
+    import json
+
+    RemedyTree(engine.make_study(make_frame(2000, levels, 1), y="y", x="x", covariates=list(COVARIATES))).grow(2)
+    frame = make_frame(n, levels)
+    grow = min(grow_tree(frame)[2] for _ in range(2))
+    floor = min(_timed(lambda: frame.groupby("x")["y"].agg(["count", "mean", "var"])) for _ in range(5))
+    floor_all = min(_timed(lambda: frame.groupby(["x", "batch"])[["y", "t1", "t2"]].agg(["count", "mean", "var"]))
+                    for _ in range(5))
+    print(json.dumps({"engine": engine.__file__, "grow": grow, "floor": floor, "floor_all": floor_all}))
+    return 0
+
+
+def _before_after(checkout: Path, n: int, levels: int, md: str | None) -> int:
+    """The tree of ``checkout`` (imported through a shim folder put first on the path) against this
+    one, in alternating processes, so both meet the same machine load; ratios within each process."""
+    import json
+
+    if not (checkout / "engine" / "__init__.py").exists():
+        print(f"bench_grow: {checkout} is not a bendwise checkout (no engine/__init__.py)", file=sys.stderr)
+        return 2
+    rows: dict[str, list[dict]] = {"before": [], "after": []}
+    with tempfile.TemporaryDirectory() as shim:
+        pkg = Path(shim, "bendwise")
+        pkg.mkdir()
+        for sub in ("engine", "tui", "datasets"):
+            if (checkout / sub).exists():
+                (pkg / sub).symlink_to((checkout / sub).resolve())
+        for _ in range(3):
+            for label, extra in (("before", {"PYTHONPATH": shim}), ("after", {})):
+                env = {**os.environ, **extra}
+                if not extra:
+                    env.pop("PYTHONPATH", None)
+                res = subprocess.run([sys.executable, __file__, "--tree-only", "--rows", str(n), "--levels", str(levels)],
+                                     capture_output=True, text=True, env=env, check=True)
+                rows[label].append(json.loads(res.stdout.strip().splitlines()[-1]))
+    lines = [f"`python bench/bench_grow.py --before {checkout} --rows {n:g}` — depth-2 tree, {n:,} rows; 3 alternating "
+             "rounds, each process: tree best of 2, floors best of 5.", "",
+             "| checkout | tree (range) | ÷ same-columns floor | ÷ y-only floor |", "|---|---:|---:|---:|"]
+    for label in ("before", "after"):
+        r = rows[label]
+        ratio_all = sorted(x["grow"] / x["floor_all"] for x in r)
+        ratio_y = sorted(x["grow"] / x["floor"] for x in r)
+        times = sorted(x["grow"] for x in r)
+        lines.append(f"| {label} ({Path(r[0]['engine']).parent.parent.name if label == 'after' else checkout.name}) | "
+                     f"{fmt_s(times[1])} ({fmt_s(times[0])}–{fmt_s(times[-1])}) | {ratio_all[1]:.1f}× "
+                     f"({ratio_all[0]:.1f}–{ratio_all[-1]:.1f}) | {ratio_y[1]:.0f}× ({ratio_y[0]:.0f}–{ratio_y[-1]:.0f}) |")
+    lines += ["", f"Load average {os.getloadavg()[0]:.1f} at the end; medians with ranges over the rounds."]
+    text = "\n".join(lines)
+    print(text)
+    if md:
+        Path(md).write_text(text + "\n", encoding="utf-8")
+    return 0
 
 
 def _timed(fn) -> float:

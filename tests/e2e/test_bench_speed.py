@@ -36,3 +36,21 @@ def test_quick_check_part_writes_its_table(tmp_path):
     text = out.read_text()
     assert text.startswith("# bendwise speed report (quick)")
     assert "## check" in text and "| rows |" in text and "groupby" in text
+
+
+def test_grow_before_after_refuses_a_folder_that_is_not_a_checkout(tmp_path):
+    done = subprocess.run([sys.executable, str(ROOT / "bench" / "bench_grow.py"), "--before", str(tmp_path)],
+                          capture_output=True, text=True, check=False, cwd=ROOT, timeout=300)
+    assert done.returncode == 2 and "is not a bendwise checkout" in done.stderr
+
+
+@pytest.mark.slow
+def test_grow_before_after_times_both_checkouts(tmp_path):
+    """--before with this checkout as the older one: both rows of the table, ratios to both floors."""
+    md = tmp_path / "ba.md"
+    done = subprocess.run([sys.executable, str(ROOT / "bench" / "bench_grow.py"), "--before", str(ROOT),
+                           "--rows", "3000", "--md", str(md)], capture_output=True, text=True, check=False, cwd=ROOT,
+                          timeout=600)
+    assert done.returncode == 0, done.stderr[-2000:]
+    text = md.read_text()
+    assert "| before (" in text and "| after (" in text and "÷ same-columns floor" in text
