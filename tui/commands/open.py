@@ -137,14 +137,12 @@ def _launch_spark(req, args: argparse.Namespace) -> int:
     pyspark, Java), so those stay one line on stderr; later failures show in the app's message line."""
     from dataclasses import replace
 
-    from bendwise.engine.backends.spark import _need_java, _need_pyspark
+    from bendwise.engine.backends.spark import require_spark
     from bendwise.engine.read.files import data_files
 
     if "://" not in req.path:
         data_files(req.path)
-    _need_pyspark()
-    if not os.environ.get("SPARK_REMOTE"):
-        _need_java()
+    require_spark()
     req = replace(req, engine="spark", spark_master=args.spark_master)
     return launch(req, study=None, frame=None, depth=args.depth, alpha=args.alpha, rule=args.rule)
 
