@@ -42,7 +42,8 @@ if TYPE_CHECKING:
     from ..stats.study import Study
     from .specfile import HandedModel
 
-__all__ = ["FormTest", "TransferTest", "Confirmation", "confirm", "model_spec_from_doc", "study_columns", "VERDICTS"]
+__all__ = ["FormTest", "TransferTest", "Confirmation", "confirm", "model_spec_from_doc", "study_columns",
+           "group_route_problem", "VERDICTS"]
 
 VERDICTS = ("confirmed", "form holds, curve moved", "form rejected", "untestable")
 
@@ -236,13 +237,24 @@ def study_columns(model: HandedModel) -> dict[str, Any]:
             "weights": model.user_weights}
 
 
-def _need_group_route(model: HandedModel) -> None:
-    """A run read through DuckDB or Spark is tested from per-setting totals; that is exact while the
-    curve is one value per setting (x and categories), not when a numeric covariate moves it row by row."""
+def group_route_problem(model: HandedModel) -> str | None:
+    """Why a run read through DuckDB or Spark cannot test ``model`` (None: it can). Such a run is
+    tested from per-setting totals; that is exact while the curve and its weight are one value per
+    setting (x and categories), not when a numeric covariate or a weights column varies row by row."""
     nums = [c.name for c in model.covariates if c.kind == "numeric"]
     if nums:
-        raise UsageError(f"the model uses the numeric covariate {nums[0]!r}, which moves the curve within a setting: "
-                         "testing it against the curve needs every row; use --engine memory")
+        return (f"the model uses the numeric covariate {nums[0]!r}, which moves the curve within a setting: "
+                "testing it against the curve needs every row; use --engine memory")
+    if model.user_weights is not None:
+        return (f"the model was fitted with the weights column {model.user_weights!r}, which weighs each row: "
+                "testing it needs every row; use --engine memory")
+    return None
+
+
+def _need_group_route(model: HandedModel) -> None:
+    problem = group_route_problem(model)
+    if problem:
+        raise UsageError(problem)
 
 
 def _check_categories(study, model: HandedModel) -> None:
@@ -265,9 +277,9 @@ def _form(lof: LackOfFit) -> FormTest:
 
 
 def _transfer(study, model: HandedModel, allowable: float | None) -> TransferTest:
-    from ..stats.dist import f_sf
+    """The transfer test from the rows of an in-memory study."""
     from ..tree.scoring import predict_terms
-    from .predict import predict_forward, weight_at
+    from .predict import predict_forward, term_matrix, weight_at
 
     covs: dict[str, np.ndarray] = {}
     for cov in model.covariates:
@@ -288,7 +300,6 @@ def _transfer(study, model: HandedModel, allowable: float | None) -> TransferTes
         return TransferTest(False, reason="the exported curve or its weights are undefined at some new rows")
     cats = tuple(c.name for c in model.covariates if c.kind == "categorical")
     codes, c = study.group_codes(cats)
-    n = study.n
     cnt = np.bincount(codes, minlength=c).astype(float)
     mean = np.bincount(codes, weights=d, minlength=c) / cnt
     ss_pure = float(np.bincount(codes, weights=(d - mean[codes]) ** 2, minlength=c).sum())
@@ -296,28 +307,52 @@ def _transfer(study, model: HandedModel, allowable: float | None) -> TransferTes
     pred = predict_forward(model, x, covs, user_w=study.weights)
     with np.errstate(all="ignore"):
         gap = np.bincount(codes, weights=y - np.nan_to_num(pred.fit, nan=np.inf), minlength=c) / cnt
+    # the curve's own uncertainty at each setting: mean design row of the setting, times √w
+    xr = term_matrix(model.terms, t, covs) * np.sqrt(w)[:, None]
+    xbar = np.column_stack([np.bincount(codes, weights=xr[:, k], minlength=c) / cnt for k in range(xr.shape[1])])
+    return _judge(model, _Departures(mean, ss_pure, cnt, gap, xbar, _setting_labels(study, cats)), study.n,
+                  allowable)
+
+
+@dataclass(frozen=True, slots=True)
+class _Departures:
+    """Per setting of the new run: what the transfer test judges."""
+
+    mean: np.ndarray
+    """Mean departure √w·(g(y) − ĝ)."""
+    ss_pure: float
+    """Sum over settings of the squared departures about their setting's mean."""
+    count: np.ndarray
+    """Rows per setting."""
+    gap: np.ndarray
+    """Mean y − the curve (smearing mean), in y units."""
+    xbar: np.ndarray
+    """Mean design row times √w (C × p)."""
+    labels: list[str]
+    """The settings in words."""
+
+
+def _judge(model: HandedModel, dep: _Departures, n: int, allowable: float | None) -> TransferTest:
+    """The Wald F of the settings' mean departures, the largest gap and the allowable deviation."""
+    from ..stats.dist import f_sf
+
+    c, gap, labels = dep.count.size, dep.gap, dep.labels
     where = int(np.argmax(np.where(np.isfinite(gap), np.abs(gap), -1.0)))
-    labels = _setting_labels(study, cats)
     max_dev = float(abs(gap[where])) if np.isfinite(gap).any() else None
     within = None if allowable is None or max_dev is None else bool(np.all(np.abs(gap) <= allowable))
-    if n - c <= 0 or not ss_pure > 0:
+    if n - c <= 0 or not dep.ss_pure > 0:
         why = ("no setting was measured more than once in the new run: the pure error that judges the "
                "departures needs replicates" if n - c <= 0 else "the new run's replicates agree exactly (pure error 0)")
         return TransferTest(False, max_deviation=max_dev, max_deviation_at=labels[where], within_allowable=within,
                             reason=why)
-    s2 = ss_pure / (n - c)
-    # the curve's own uncertainty at each setting: mean design row of the setting, times √w
-    from .predict import term_matrix
-
-    xr = term_matrix(model.terms, t, covs) * np.sqrt(w)[:, None]
-    xbar = np.column_stack([np.bincount(codes, weights=xr[:, k], minlength=c) / cnt for k in range(xr.shape[1])])
-    cov = np.diag(s2 / cnt) + xbar @ model.cov @ xbar.T
+    s2 = dep.ss_pure / (n - c)
+    cov = np.diag(s2 / dep.count) + dep.xbar @ model.cov @ dep.xbar.T
     try:
-        sol = np.linalg.solve(cov, mean)
+        sol = np.linalg.solve(cov, dep.mean)
     except np.linalg.LinAlgError:
         return TransferTest(False, max_deviation=max_dev, max_deviation_at=labels[where], within_allowable=within,
                             reason="the departures' covariance is singular")
-    f = float(mean @ sol) / c
+    f = float(dep.mean @ sol) / c
     return TransferTest(True, f, c, n - c, f_sf(f, c, n - c), max_dev, labels[where], within)
 
 
@@ -328,7 +363,6 @@ def _transfer_groups(study: Study, model: HandedModel, allowable: float | None) 
     smearing mean are single numbers, so the mean departure is √w·(mean g(y) − ĝ), its pure
     sum of squares w·Σ(g(y) − mean g(y))², and the mean gap in y units mean y − curve: the
     group means and sums of squares of g(y) and y that the engine's scans give."""
-    from ..stats.dist import f_sf
     from ..tree.scoring import predict_terms
     from .predict import predict_forward, term_matrix, weight_at
 
@@ -339,8 +373,6 @@ def _transfer_groups(study: Study, model: HandedModel, allowable: float | None) 
     x, covs, labels = _setting_points(study, cats)
     zst = study.group_stats(None, ("z", model.response.canonical().key()), by=cats)
     yst = study.group_stats(None, ("z", Transform("identity").key()), by=cats)
-    cnt = np.asarray(zst.count, dtype=float)
-    c, n = cnt.size, study.n
     with np.errstate(all="ignore"):
         t = np.asarray(model.predictor.forward(x), dtype=float)
         zhat = predict_terms(model.terms, model.beta, t, covs)
@@ -352,23 +384,9 @@ def _transfer_groups(study: Study, model: HandedModel, allowable: float | None) 
     pred = predict_forward(model, x, covs)
     with np.errstate(all="ignore"):
         gap = _group_mean(yst) - np.nan_to_num(pred.fit, nan=np.inf)
-    where = int(np.argmax(np.where(np.isfinite(gap), np.abs(gap), -1.0)))
-    max_dev = float(abs(gap[where])) if np.isfinite(gap).any() else None
-    within = None if allowable is None or max_dev is None else bool(np.all(np.abs(gap) <= allowable))
-    if n - c <= 0 or not ss_pure > 0:
-        why = ("no setting was measured more than once in the new run: the pure error that judges the "
-               "departures needs replicates" if n - c <= 0 else "the new run's replicates agree exactly (pure error 0)")
-        return TransferTest(False, max_deviation=max_dev, max_deviation_at=labels[where], within_allowable=within,
-                            reason=why)
     xbar = term_matrix(model.terms, t, covs) * np.sqrt(w)[:, None]
-    cov = np.diag((ss_pure / (n - c)) / cnt) + xbar @ model.cov @ xbar.T
-    try:
-        sol = np.linalg.solve(cov, mean)
-    except np.linalg.LinAlgError:
-        return TransferTest(False, max_deviation=max_dev, max_deviation_at=labels[where], within_allowable=within,
-                            reason="the departures' covariance is singular")
-    f = float(mean @ sol) / c
-    return TransferTest(True, f, c, n - c, f_sf(f, c, n - c), max_dev, labels[where], within)
+    dep = _Departures(mean, ss_pure, np.asarray(zst.count, dtype=float), gap, xbar, labels)
+    return _judge(model, dep, study.n, allowable)
 
 
 def _group_mean(st) -> np.ndarray:

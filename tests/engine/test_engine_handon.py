@@ -264,3 +264,16 @@ def test_confirm_drops_a_text_x_on_both_engines(sensor_spec, tmp_path, capsys):
     assert outs[0]["dropped"] == ["2 row(s) with non-numeric 'conc_mg_l' (rows 18, 23)"]
     assert outs[1]["dropped"] == ["2 row(s) with non-numeric 'conc_mg_l'"]
     same_numbers({**outs[0], "dropped": []}, {**outs[1], "dropped": []})
+
+
+def test_confirm_refuses_a_weights_column_before_reading(tmp_path, capsys):
+    rng = np.random.default_rng(9)
+    x = np.repeat(np.linspace(1.0, 10.0, 6), 4)
+    frame = pd.DataFrame({"x": x, "y": 3 + 2 * x + rng.normal(0, 0.2, x.size), "w": rng.uniform(0.5, 2.0, x.size)})
+    frame.to_csv(tmp_path / "a.csv", index=False)
+    assert main(["export", str(tmp_path / "a.csv"), "-y", "y", "-x", "x", "--weights", "w", "--node", "root",
+                 "-o", str(tmp_path / "ex")]) == 0
+    capsys.readouterr()
+    code, out, err = _cli(["confirm", str(tmp_path / "ex"), str(tmp_path / "a.csv"), "--engine", "duckdb"], capsys)
+    assert code == 2 and out == "" and len(err.strip().splitlines()) == 1
+    assert "weights column 'w'" in err and "--engine memory" in err

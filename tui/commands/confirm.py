@@ -56,13 +56,17 @@ def register(sub: argparse._SubParsersAction) -> None:
 def run(args: argparse.Namespace) -> int:
     """Load the spec and the new run, test, print."""
     from bendwise.engine import load_table
-    from bendwise.engine.handon.confirm import confirm, study_columns
+    from bendwise.engine.errors import UsageError
+    from bendwise.engine.handon.confirm import confirm, group_route_problem, study_columns
     from bendwise.engine.handon.specfile import load_spec
 
     doc, model = load_spec(args.spec)
     source = "<stdin>" if args.data == "-" else str(args.data).rstrip("/").rsplit("/", 1)[-1]
     engine_name = engine_for(args, args.data)
     if engine_name in ("duckdb", "spark"):
+        problem = group_route_problem(model)
+        if problem:  # before DuckDB or Spark reads anything
+            raise UsageError(problem)
         study = sql_study(args, engine_name, args.data, study_columns(model), source=source)
         result = confirm(doc, model, study=study, alpha=args.alpha, allowable_deviation=args.allowable_deviation)
     else:
