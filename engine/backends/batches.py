@@ -38,6 +38,8 @@ def table_batches(path: str, engine: str, *, decimal: str | None = None, delimit
         seen = True
         frame.columns = [str(c).strip() for c in frame.columns]
         yield frame
+    if progress is not None:
+        progress("")  # the progress line is cleared before the rows' report
     if not seen:
         raise DataError(f"{path} has no data rows; check the file")
 
@@ -55,9 +57,9 @@ def _duckdb_batches(path: str, decimal: str, delimiter: str | None, batch_rows: 
     try:
         src, as_text = _source_sql(path, decimal, sep, encoding)
         _describe(con, src, path, as_text)  # a typed file naming a column twice is refused here
-        res = con.execute(f"SELECT * FROM {src}")
-        # DuckDB 1.x names the streaming reader fetch_record_batch, 2.x to_arrow_reader
-        open_reader = getattr(res, "to_arrow_reader", None) or res.fetch_record_batch
+        rel = con.sql(f"SELECT * FROM {src}")
+        # a relation streams without an extra copy; DuckDB 2.x names its reader to_arrow_reader
+        open_reader = getattr(rel, "to_arrow_reader", None) or rel.fetch_arrow_reader
         reader = open_reader(batch_rows)
         for batch in reader:
             yield batch.to_pandas()

@@ -277,3 +277,14 @@ def test_confirm_refuses_a_weights_column_before_reading(tmp_path, capsys):
     code, out, err = _cli(["confirm", str(tmp_path / "ex"), str(tmp_path / "a.csv"), "--engine", "duckdb"], capsys)
     assert code == 2 and out == "" and len(err.strip().splitlines()) == 1
     assert "weights column 'w'" in err and "--engine memory" in err
+
+
+def test_batches_clear_the_progress_line_and_strip_names(tmp_path):
+    from bendwise.engine.backends.batches import table_batches
+
+    path = tmp_path / "t.csv"
+    path.write_text(" x , y\n1,2\n3,4\n5,6\n")
+    said: list[str] = []
+    frames = list(table_batches(str(path), "duckdb", batch_rows=2, progress=said.append))
+    assert [f.shape[0] for f in frames] == [2, 1] and list(frames[0].columns) == ["x", "y"]
+    assert said == [""]  # the last word clears the line before the report is printed
