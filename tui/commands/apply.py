@@ -61,8 +61,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--sheet", metavar="NAME", help="Excel sheet of NEWDATA (default: the first)")
     p.add_argument("--decimal", choices=[".", ","], help="decimal mark of NEWDATA (default .)")
     p.add_argument("--delimiter", metavar="CHAR", help="field separator of NEWDATA (default: detected)")
-    add_engine_args(p, "how NEWDATA is read: whole into memory, or in batches of rows by DuckDB or Spark "
-                    "(NEWDATA may then be a folder or glob of Parquet/CSV files)")
+    add_engine_args(p, "how NEWDATA is read: whole into memory, or in batches of rows by DuckDB or Spark, "
+                    "which also read a folder or glob of Parquet/CSV files")
     p.set_defaults(func=run)
 
 
