@@ -94,21 +94,26 @@ def _spark_batches(path: str, decimal: str, delimiter: str | None, batch_rows: i
     from ..read.files import data_files
     from .spark import _read, _spark_errors, _spark_message, spark_session
 
-    if "://" not in path:
-        data_files(path)  # a missing file is named before Spark starts
+    targets = [path] if "://" in path else [str(f) for f in data_files(path)]  # a missing file: before Spark
     spark = spark_session(master)
+    # small input partitions: toLocalIterator hands over one partition at a time, so this bounds
+    # what the JVM driver and this process hold at once (a 100 MB CSV is otherwise one partition)
+    spark.conf.set("spark.sql.files.maxPartitionBytes", str(16 << 20))
     if progress:
         progress("Spark session started; reading the table")
+    # local files one at a time, in the order DuckDB reads them (Spark packs several files into a
+    # partition largest first, which would reorder the rows); a URI goes to Spark whole
     try:
-        frame, _, _, _ = _read(spark, path, decimal, delimiter)
-        names = list(frame.columns)
-        rows: list[tuple] = []
-        for row in frame.toLocalIterator():
-            rows.append(tuple(row))
-            if len(rows) == batch_rows:
+        for target in targets:
+            frame, _, _, _ = _read(spark, target, decimal, delimiter)
+            names = list(frame.columns)
+            rows: list[tuple] = []
+            for row in frame.toLocalIterator():
+                rows.append(tuple(row))
+                if len(rows) == batch_rows:
+                    yield pd.DataFrame.from_records(rows, columns=names)
+                    rows = []
+            if rows:
                 yield pd.DataFrame.from_records(rows, columns=names)
-                rows = []
-        if rows:
-            yield pd.DataFrame.from_records(rows, columns=names)
     except _spark_errors() as exc:
         raise DataError(_spark_message(path, exc, decimal, delimiter)) from None

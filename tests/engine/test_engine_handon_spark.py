@@ -84,3 +84,17 @@ def test_confirm_cli_on_spark_has_an_empty_stderr(sensor_spec, tmp_path):  # noq
                          text=True, timeout=300)
     assert got.returncode == 0 and got.stderr == ""
     same_numbers(json.loads(mem.stdout), json.loads(got.stdout))
+
+
+def test_apply_on_spark_keeps_the_file_order_of_a_folder(sensor_spec, tmp_path, capsys):  # noqa: F811
+    # Spark packs small files into one partition largest first; apply reads them one by one, in
+    # the order DuckDB reads them, so the rows (and their numbers) come out the same
+    frame = pd.read_csv(RUN2)
+    folder = tmp_path / "parts"
+    folder.mkdir()
+    frame.iloc[:4].to_parquet(folder / "a.parquet")  # the smaller file first by name
+    frame.iloc[4:].to_parquet(folder / "b.parquet")
+    duck = _cli(["apply", str(sensor_spec), str(folder), "--json", "--engine", "duckdb"], capsys)
+    got = _cli(["apply", str(sensor_spec), str(folder), "--json", *SPARK], capsys)
+    assert got[0] == 0 and got[2] == "" and got[1] == duck[1]
+    assert duck[1] == _cli(["apply", str(sensor_spec), str(RUN2), "--json"], capsys)[1]
