@@ -6,6 +6,7 @@ CLI before the app starts, so that data errors are one line and exit 2).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -40,6 +41,10 @@ class DataRequest:
     """Field separator of text files."""
     runs: str | None = None
     """Column naming the run (day, batch): a random intercept in every node, never a fixed covariate."""
+    engine: str = "memory"
+    """Who builds the study in the app's worker: 'memory', or 'spark' (the rows stay where Spark reads them)."""
+    spark_master: str | None = None
+    """With engine 'spark': the master URL (None: local[*], or Spark Connect from SPARK_REMOTE)."""
 
     @property
     def source(self) -> str:
@@ -74,13 +79,21 @@ def read_frame(req: DataRequest) -> Any:
     return load_table(req.path, sheet=req.sheet, decimal=req.decimal, delimiter=delim)
 
 
-def build_study(req: DataRequest, frame: Any = None) -> Study:
-    """Clean the chosen columns into a Study (raises BendwiseError with one line)."""
+def build_study(req: DataRequest, frame: Any = None, progress: Callable[[str], None] | None = None) -> Study:
+    """Clean the chosen columns into a Study (raises BendwiseError with one line). With
+    ``req.engine`` 'spark' the study is built by Spark SQL, and Spark's task counts reach ``progress``."""
     from bendwise.engine import make_study
     from bendwise.engine.errors import UsageError
 
     if not req.y or not req.x:
         raise UsageError("choose a response and a predictor column")
+    if req.engine == "spark":
+        from bendwise.engine.backends.spark import make_spark_study
+
+        delim = "\t" if req.delimiter in {"\\t", "tab", "TAB"} else req.delimiter
+        return make_spark_study(req.path, y=req.y, x=req.x, covariates=list(req.covariates), weights=req.weights,
+                                tolerance=req.tolerance, decimal=req.decimal, delimiter=delim, progress=progress,
+                                master=req.spark_master)
     if frame is None:
         frame = read_frame(req)
     covariates = list(req.covariates)

@@ -25,7 +25,7 @@ from ..errors import DataError
 from ..read.files import data_files
 from .dialect import SPARK
 
-__all__ = ["make_spark_study", "spark_session", "SparkConnection"]
+__all__ = ["make_spark_study", "spark_session", "SparkConnection", "require_spark"]
 
 ProgressFn = Callable[[str], None]
 
@@ -59,6 +59,14 @@ def _need_java() -> None:
         return
     raise DataError("the Spark engine needs Java 17 or newer and found none (no JAVA_HOME, no java on PATH); "
                     "install a JRE (e.g. apt-get install openjdk-17-jre-headless) or set JAVA_HOME")
+
+
+def require_spark() -> None:
+    """Refuse in one line, before anything starts, when pyspark is missing, or Java is (without
+    ``SPARK_REMOTE``: Spark Connect needs no local JVM)."""
+    _need_pyspark()
+    if not os.environ.get("SPARK_REMOTE"):
+        _need_java()
 
 
 def spark_session(master: str | None = None) -> Any:

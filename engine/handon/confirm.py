@@ -39,9 +39,11 @@ from ..tree.model_spec import ModelSpec, WeightRule
 if TYPE_CHECKING:
     import pandas as pd
 
+    from ..stats.study import Study
     from .specfile import HandedModel
 
-__all__ = ["FormTest", "TransferTest", "Confirmation", "confirm", "model_spec_from_doc", "VERDICTS"]
+__all__ = ["FormTest", "TransferTest", "Confirmation", "confirm", "model_spec_from_doc", "study_columns",
+           "group_route_problem", "VERDICTS"]
 
 VERDICTS = ("confirmed", "form holds, curve moved", "form rejected", "untestable")
 
@@ -193,28 +195,66 @@ def _predictor(t: Transform) -> Transform:
     return t.canonical()
 
 
-def confirm(doc: dict[str, Any], model: HandedModel, frame: pd.DataFrame, *, alpha: float = 0.05,
-            allowable_deviation: float | None = None, source: str = "") -> Confirmation:
-    """Test an exported model on a new run (module text)."""
+def confirm(doc: dict[str, Any], model: HandedModel, frame: pd.DataFrame | None = None, *, alpha: float = 0.05,
+            allowable_deviation: float | None = None, source: str = "", study: Study | None = None) -> Confirmation:
+    """Test an exported model on a new run (module text).
+
+    The new run is ``frame`` (read in memory), or ``study``: one already built over the run by any
+    engine (:func:`study_columns` names the columns it needs). A study whose rows stay in the
+    files (DuckDB, Spark) is tested from its group totals, see :func:`_transfer_groups`."""
     if not 0 < alpha < 1:
         raise UsageError(f"alpha {alpha!r} must lie strictly between 0 and 1, e.g. 0.05")
     if allowable_deviation is not None and not allowable_deviation > 0:
         raise UsageError(f"allowable deviation {allowable_deviation!r} must be > 0 (in y units)")
-    from ..stats.study import make_study
+    from ..stats.rows import NoRows
     from ..tree.scoring import score_spec
 
     spec = model_spec_from_doc(doc, model)
-    study = make_study(frame, y=model.response_name, x=model.predictor_name,
-                       covariates=[c.name for c in model.covariates], weights=model.user_weights, source=source)
+    if study is None:
+        if frame is None:
+            raise UsageError("confirm needs the new run: a table or a study built over it")
+        from ..stats.study import make_study
+
+        study = make_study(frame, source=source, **study_columns(model))
+    grouped = isinstance(study.rows(), NoRows)
+    if grouped:
+        _need_group_route(model)
     _check_categories(study, model)
     score = score_spec(study, spec)
     form = _form(score.lack_of_fit)
-    transfer = _transfer(study, model, allowable_deviation)
+    transfer = (_transfer_groups if grouped else _transfer)(study, model, allowable_deviation)
     verdict, reason = _verdict(form, transfer, alpha, allowable_deviation)
     node = doc.get("node") or {}
     label = f"{node.get('id', '?')} {node.get('label', '')}".strip()
     return Confirmation(study.source, label, study.n, study.c, alpha, allowable_deviation, form, transfer,
                         verdict, reason, tuple(study.report.lines()))
+
+
+def study_columns(model: HandedModel) -> dict[str, Any]:
+    """The columns a study of the new run needs: y, x, covariates and weights as the model names them
+    (keyword arguments of ``make_study`` and of the SQL engines' study builders)."""
+    return {"y": model.response_name, "x": model.predictor_name, "covariates": [c.name for c in model.covariates],
+            "weights": model.user_weights}
+
+
+def group_route_problem(model: HandedModel) -> str | None:
+    """Why a run read through DuckDB or Spark cannot test ``model`` (None: it can). Such a run is
+    tested from per-setting totals; that is exact while the curve and its weight are one value per
+    setting (x and categories), not when a numeric covariate or a weights column varies row by row."""
+    nums = [c.name for c in model.covariates if c.kind == "numeric"]
+    if nums:
+        return (f"the model uses the numeric covariate {nums[0]!r}, which moves the curve within a setting: "
+                "testing it against the curve needs every row; use --engine memory")
+    if model.user_weights is not None:
+        return (f"the model was fitted with the weights column {model.user_weights!r}, which weighs each row: "
+                "testing it needs every row; use --engine memory")
+    return None
+
+
+def _need_group_route(model: HandedModel) -> None:
+    problem = group_route_problem(model)
+    if problem:
+        raise UsageError(problem)
 
 
 def _check_categories(study, model: HandedModel) -> None:
@@ -237,9 +277,9 @@ def _form(lof: LackOfFit) -> FormTest:
 
 
 def _transfer(study, model: HandedModel, allowable: float | None) -> TransferTest:
-    from ..stats.dist import f_sf
+    """The transfer test from the rows of an in-memory study."""
     from ..tree.scoring import predict_terms
-    from .predict import predict_forward, weight_at
+    from .predict import predict_forward, term_matrix, weight_at
 
     covs: dict[str, np.ndarray] = {}
     for cov in model.covariates:
@@ -260,7 +300,6 @@ def _transfer(study, model: HandedModel, allowable: float | None) -> TransferTes
         return TransferTest(False, reason="the exported curve or its weights are undefined at some new rows")
     cats = tuple(c.name for c in model.covariates if c.kind == "categorical")
     codes, c = study.group_codes(cats)
-    n = study.n
     cnt = np.bincount(codes, minlength=c).astype(float)
     mean = np.bincount(codes, weights=d, minlength=c) / cnt
     ss_pure = float(np.bincount(codes, weights=(d - mean[codes]) ** 2, minlength=c).sum())
@@ -268,29 +307,107 @@ def _transfer(study, model: HandedModel, allowable: float | None) -> TransferTes
     pred = predict_forward(model, x, covs, user_w=study.weights)
     with np.errstate(all="ignore"):
         gap = np.bincount(codes, weights=y - np.nan_to_num(pred.fit, nan=np.inf), minlength=c) / cnt
+    # the curve's own uncertainty at each setting: mean design row of the setting, times √w
+    xr = term_matrix(model.terms, t, covs) * np.sqrt(w)[:, None]
+    xbar = np.column_stack([np.bincount(codes, weights=xr[:, k], minlength=c) / cnt for k in range(xr.shape[1])])
+    return _judge(model, _Departures(mean, ss_pure, cnt, gap, xbar, _setting_labels(study, cats)), study.n,
+                  allowable)
+
+
+@dataclass(frozen=True, slots=True)
+class _Departures:
+    """Per setting of the new run: what the transfer test judges."""
+
+    mean: np.ndarray
+    """Mean departure √w·(g(y) − ĝ)."""
+    ss_pure: float
+    """Sum over settings of the squared departures about their setting's mean."""
+    count: np.ndarray
+    """Rows per setting."""
+    gap: np.ndarray
+    """Mean y − the curve (smearing mean), in y units."""
+    xbar: np.ndarray
+    """Mean design row times √w (C × p)."""
+    labels: list[str]
+    """The settings in words."""
+
+
+def _judge(model: HandedModel, dep: _Departures, n: int, allowable: float | None) -> TransferTest:
+    """The Wald F of the settings' mean departures, the largest gap and the allowable deviation."""
+    from ..stats.dist import f_sf
+
+    c, gap, labels = dep.count.size, dep.gap, dep.labels
     where = int(np.argmax(np.where(np.isfinite(gap), np.abs(gap), -1.0)))
-    labels = _setting_labels(study, cats)
     max_dev = float(abs(gap[where])) if np.isfinite(gap).any() else None
     within = None if allowable is None or max_dev is None else bool(np.all(np.abs(gap) <= allowable))
-    if n - c <= 0 or not ss_pure > 0:
+    if n - c <= 0 or not dep.ss_pure > 0:
         why = ("no setting was measured more than once in the new run: the pure error that judges the "
                "departures needs replicates" if n - c <= 0 else "the new run's replicates agree exactly (pure error 0)")
         return TransferTest(False, max_deviation=max_dev, max_deviation_at=labels[where], within_allowable=within,
                             reason=why)
-    s2 = ss_pure / (n - c)
-    # the curve's own uncertainty at each setting: mean design row of the setting, times √w
-    from .predict import term_matrix
-
-    xr = term_matrix(model.terms, t, covs) * np.sqrt(w)[:, None]
-    xbar = np.column_stack([np.bincount(codes, weights=xr[:, k], minlength=c) / cnt for k in range(xr.shape[1])])
-    cov = np.diag(s2 / cnt) + xbar @ model.cov @ xbar.T
+    s2 = dep.ss_pure / (n - c)
+    cov = np.diag(s2 / dep.count) + dep.xbar @ model.cov @ dep.xbar.T
     try:
-        sol = np.linalg.solve(cov, mean)
+        sol = np.linalg.solve(cov, dep.mean)
     except np.linalg.LinAlgError:
         return TransferTest(False, max_deviation=max_dev, max_deviation_at=labels[where], within_allowable=within,
                             reason="the departures' covariance is singular")
-    f = float(mean @ sol) / c
+    f = float(dep.mean @ sol) / c
     return TransferTest(True, f, c, n - c, f_sf(f, c, n - c), max_dev, labels[where], within)
+
+
+def _transfer_groups(study: Study, model: HandedModel, allowable: float | None) -> TransferTest:
+    """:func:`_transfer` from per-setting totals (a study whose rows stay in the files).
+
+    Within a setting (x value × the model's categories) the curve ĝ, its weight w and its
+    smearing mean are single numbers, so the mean departure is √w·(mean g(y) − ĝ), its pure
+    sum of squares w·Σ(g(y) − mean g(y))², and the mean gap in y units mean y − curve: the
+    group means and sums of squares of g(y) and y that the engine's scans give."""
+    from ..tree.scoring import predict_terms
+    from .predict import predict_forward, term_matrix, weight_at
+
+    problem = study.domain_problem(model.predictor, "x") or study.domain_problem(model.response, "y")
+    if problem:
+        return TransferTest(False, reason=problem)
+    cats = tuple(c.name for c in model.covariates if c.kind == "categorical")
+    x, covs, labels = _setting_points(study, cats)
+    zst = study.group_stats(None, ("z", model.response.canonical().key()), by=cats)
+    yst = study.group_stats(None, ("z", Transform("identity").key()), by=cats)
+    with np.errstate(all="ignore"):
+        t = np.asarray(model.predictor.forward(x), dtype=float)
+        zhat = predict_terms(model.terms, model.beta, t, covs)
+        w = weight_at(model, zhat, None)
+        mean = np.sqrt(w) * (_group_mean(zst) - zhat)
+        ss_pure = float((w * np.asarray(zst.ss, dtype=float)).sum())
+    if not (np.isfinite(mean).all() and np.isfinite(ss_pure)):
+        return TransferTest(False, reason="the exported curve or its weights are undefined at some new rows")
+    pred = predict_forward(model, x, covs)
+    with np.errstate(all="ignore"):
+        gap = _group_mean(yst) - np.nan_to_num(pred.fit, nan=np.inf)
+    xbar = term_matrix(model.terms, t, covs) * np.sqrt(w)[:, None]
+    dep = _Departures(mean, ss_pure, np.asarray(zst.count, dtype=float), gap, xbar, labels)
+    return _judge(model, dep, study.n, allowable)
+
+
+def _group_mean(st) -> np.ndarray:
+    """A group mean to the precision the scans keep (``mean_lo`` holds what rounding took off)."""
+    mean = np.asarray(st.mean, dtype=float)
+    return mean if st.mean_lo is None else mean + np.asarray(st.mean_lo, dtype=float)
+
+
+def _setting_points(study: Study, cats: tuple[str, ...]) -> tuple[np.ndarray, dict[str, np.ndarray], list[str]]:
+    """Per setting of a grouped study (in the order of ``group_codes``): its x, its category labels
+    and its label text. Units are the study's finest groups (x value × categories)."""
+    codes, c = study.group_codes(cats)
+    first = np.unique(codes, return_index=True)[1][:c]  # the first unit of every setting
+    x = np.asarray(study.x_level_values, dtype=float)[study.x_codes[first]]
+    covs: dict[str, np.ndarray] = {}
+    for name in cats:
+        cov = study.covariate(name)
+        covs[name] = np.asarray(cov.levels, dtype=object)[cov.values[first]].astype(str)
+    labels = [", ".join([f"{study.x_name} = {x[g]:g}", *(f"{name} = {covs[name][g]}" for name in cats)])
+              for g in range(c)]
+    return x, covs, labels
 
 
 def _setting_labels(study, cats: tuple[str, ...]) -> list[str]:

@@ -10,6 +10,7 @@ an interrupt included.
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import io
 import math
@@ -17,9 +18,10 @@ import os
 import shutil
 import tempfile
 import uuid
+from collections.abc import Iterator
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, TextIO
 
 import numpy as np
 
@@ -328,6 +330,16 @@ def _refuse_existing(path: Path, force: bool, what: str) -> None:
 
 def write_text_atomic(path: str | Path, text: str, *, force: bool = False) -> Path:
     """Write ``text`` to ``path`` through a temporary file in the same folder and ``os.replace``."""
+    with atomic_text_file(path, force=force) as fh:
+        fh.write(text)
+    return Path(path)
+
+
+@contextlib.contextmanager
+def atomic_text_file(path: str | Path, *, force: bool = False) -> Iterator[TextIO]:
+    """A text file to write in pieces: a temporary file in the same folder that replaces ``path``
+    when the block ends without an error (and is removed otherwise). An existing ``path`` is
+    refused without ``force``; the check comes before anything is written."""
     p = Path(path)
     _refuse_existing(p, force, "file name")
     if p.exists() and p.is_dir():
@@ -338,15 +350,14 @@ def write_text_atomic(path: str | Path, text: str, *, force: bool = False) -> Pa
     try:
         fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=p.parent)
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
-            fh.write(text)
+            yield fh
         os.replace(tmp, p)
         tmp = None
     except OSError as exc:
         raise DataError(f"cannot write {p}: {exc.strerror or exc}; check the folder's permissions") from None
-    finally:  # also on an interrupt: no temporary file is left behind
+    finally:  # also on an interrupt or a failed batch: no temporary file is left behind
         if tmp is not None:
             Path(tmp).unlink(missing_ok=True)
-    return p
 
 
 def write_rows_csv(rows: list[dict[str, Any]], path: str | Path, *, force: bool = False) -> Path:
@@ -360,6 +371,27 @@ def write_rows_csv(rows: list[dict[str, Any]], path: str | Path, *, force: bool 
     for r in rows:
         writer.writerow({k: ("" if r.get(k) is None else _cell(r.get(k))) for k in keys})
     return write_text_atomic(path, buf.getvalue(), force=force)
+
+
+class RowsCsv:
+    """The CSV of :func:`write_rows_csv` written batch by batch into an open file: the header from
+    the first row's keys (every row of one ``apply`` has the same keys), then each row."""
+
+    def __init__(self, fh: TextIO) -> None:
+        self.fh = fh
+        self.writer: csv.DictWriter | None = None
+        self.keys: list[str] = []
+        self.count = 0
+
+    def write(self, rows: list[dict[str, Any]]) -> None:
+        """Append ``rows``."""
+        for r in rows:
+            if self.writer is None:
+                self.keys = list(r)
+                self.writer = csv.DictWriter(self.fh, fieldnames=self.keys, lineterminator="\n")
+                self.writer.writeheader()
+            self.writer.writerow({k: ("" if r.get(k) is None else _cell(r.get(k))) for k in self.keys})
+            self.count += 1
 
 
 def _cell(v: Any) -> Any:

@@ -17,6 +17,7 @@ outside the data) likewise — never a 0 or an infinity passed off as a result.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
@@ -192,13 +193,20 @@ class NewInputs:
     """Covariate values per row for output (numbers, or category labels)."""
 
 
-def _numeric(frame: pd.DataFrame, col: str, role: str) -> np.ndarray:
-    arr, missing, non_num, non_fin = numeric_column(frame[col], col)
-    bad = missing | non_num | non_fin
+def unusable_numbers(values: Any, col: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(values as floats, unusable mask, missing mask) of a numeric column of a new table."""
+    arr, missing, non_num, non_fin = numeric_column(values, col)
+    return arr, missing | non_num | non_fin, missing
+
+
+def _numeric(frame: pd.DataFrame, col: str, role: str, first_row: int = 1,
+             more_bad: Callable[[str], int] | None = None) -> np.ndarray:
+    arr, bad, missing = unusable_numbers(frame[col], col)
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
         what = "is empty" if missing[i] else f"has {str(frame[col].iloc[i])!r}, not a finite number"
-        raise DataError(f"{role} column {col!r} row {i + 1} {what} ({int(bad.sum())} such row(s)); "
+        total = int(bad.sum()) + (more_bad(col) if more_bad is not None else 0)
+        raise DataError(f"{role} column {col!r} row {i + first_row} {what} ({total} such row(s)); "
                         "fix or remove those rows")
     return arr
 
@@ -242,35 +250,40 @@ def held_covariates(model: HandedModel, set_values: dict[str, str], n: int) -> t
 
 
 def new_inputs(model: HandedModel, frame: pd.DataFrame, role: str,
-               set_values: dict[str, str] | None = None) -> NewInputs:
+               set_values: dict[str, str] | None = None, *, first_row: int = 1,
+               more_bad: Callable[[str], int] | None = None) -> NewInputs:
     """Pick and check the columns a new table needs: the predictor (role 'x') or the response
     (role 'y'), and every covariate the model uses that ``set_values`` does not hold (see
     :func:`held_covariates`). Missing columns and bad values raise :class:`DataError` naming the
-    column and row."""
+    column and row.
+
+    For one batch of a larger table, ``first_row`` is the table's row number of the frame's first
+    row, and ``more_bad(col)`` counts the unusable numbers of ``col`` in the batches still unread,
+    so the message names the same row and count as for the whole table."""
     name = model.predictor_name if role == "x" else model.response_name
     label = "predictor" if role == "x" else "response"
     col = resolve_column(frame, name, f"{label} column")
-    values = _numeric(frame, col, label)
+    values = _numeric(frame, col, label, first_row, more_bad)
     covs, text = held_covariates(model, set_values or {}, values.shape[0])
     for cov in model.covariates:
         if cov.name in covs:
             continue
         c = resolve_column(frame, cov.name, "covariate column")
         if cov.kind == "numeric":
-            covs[cov.name] = _numeric(frame, c, "covariate")
+            covs[cov.name] = _numeric(frame, c, "covariate", first_row, more_bad)
             text[cov.name] = [float(v) for v in covs[cov.name]]
         else:
             labels = frame[c].astype("string").str.strip()
             missing = (labels.isna() | (labels == "")).to_numpy(dtype=bool)
             if missing.any():
                 i = int(np.flatnonzero(missing)[0])
-                raise DataError(f"covariate column {c!r} row {i + 1} is empty; give one of "
+                raise DataError(f"covariate column {c!r} row {i + first_row} is empty; give one of "
                                 f"{', '.join(cov.levels)}")
             arr = labels.to_numpy(dtype=object).astype(str)
             unknown = ~np.isin(arr, np.array(cov.levels, dtype=object))
             if unknown.any():
                 i = int(np.flatnonzero(unknown)[0])
-                raise DataError(f"covariate column {c!r} row {i + 1} has category {str(arr[i])!r}, which the model "
+                raise DataError(f"covariate column {c!r} row {i + first_row} has category {str(arr[i])!r}, which the model "
                                 f"never saw; use one of {', '.join(cov.levels)}, or hold it for every row with "
                                 f"--hold {cov.name}=CATEGORY or --hold {cov.name}=average (the average over them)")
             covs[cov.name] = arr
@@ -280,10 +293,10 @@ def new_inputs(model: HandedModel, frame: pd.DataFrame, role: str,
         cols = {str(k).casefold(): str(k) for k in frame.columns}
         hit = cols.get(model.user_weights.casefold())
         if hit is not None:
-            user_w = _numeric(frame, hit, "weights")
+            user_w = _numeric(frame, hit, "weights", first_row, more_bad)
             if (user_w <= 0).any():
                 i = int(np.flatnonzero(user_w <= 0)[0])
-                raise DataError(f"weights column {hit!r} row {i + 1} is {user_w[i]:g}; weights must be > 0")
+                raise DataError(f"weights column {hit!r} row {i + first_row} is {user_w[i]:g}; weights must be > 0")
     return NewInputs(values, covs, user_w, text)
 
 

@@ -4,10 +4,11 @@ from __future__ import annotations
 
 import argparse
 import math
+from pathlib import Path
 from typing import Any
 
-from ..output import emit_json, fmt_num
-from .common import CAUTION, table
+from ..output import fmt_num
+from .common import CAUTION, add_engine_args, delimiter_arg, engine_for, progress_line, table
 
 
 def _level(text: str) -> float:
@@ -60,6 +61,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--sheet", metavar="NAME", help="Excel sheet of NEWDATA (default: the first)")
     p.add_argument("--decimal", choices=[".", ","], help="decimal mark of NEWDATA (default .)")
     p.add_argument("--delimiter", metavar="CHAR", help="field separator of NEWDATA (default: detected)")
+    add_engine_args(p, "how NEWDATA is read: whole into memory, or in batches of rows by DuckDB or Spark, "
+                    "which also read a folder or glob of Parquet/CSV files")
     p.set_defaults(func=run)
 
 
@@ -78,34 +81,128 @@ def _held(items: list[str]) -> dict[str, str]:
     return out
 
 
-def _compute(args: argparse.Namespace, model: Any, frame: Any, held: dict[str, str],
-             label: str) -> tuple[list[dict[str, Any]], list[str]]:
-    """Rows of results and the text report: x̂ from responses (``--inverse``) or y from x."""
+def _compute(args: argparse.Namespace, model: Any, frame: Any, held: dict[str, str], first_row: int = 1,
+             more_bad: Any = None) -> tuple[list[dict[str, Any]], str]:
+    """Rows of results for one table (or one batch of it, its first row numbered ``first_row``):
+    x̂ from responses (``--inverse``) or y from x; and what the confidence interval covers."""
     from bendwise.engine.handon.inverse import inverse_predict
     from bendwise.engine.handon.predict import new_inputs, predict_forward
 
     if args.inverse:
-        inp = new_inputs(model, frame, "y", held)
+        inp = new_inputs(model, frame, "y", held, first_row=first_row, more_bad=more_bad)
         results = inverse_predict(model, inp.values, replicates=args.replicates, covs=inp.covs,
                                   level=args.level, user_w=inp.user_w)
         rows = []
         for i, r in enumerate(results):
-            row = {"row": i + 1, **r.as_json()}
+            row = {"row": i + first_row, **r.as_json()}
             for name, vals in inp.cov_text.items():
                 row[name] = vals[i]
             rows.append(row)
-        return rows, _render_inverse(model, rows, args.level, label)
-    inp = new_inputs(model, frame, "x", held)
+        return rows, ""
+    inp = new_inputs(model, frame, "x", held, first_row=first_row, more_bad=more_bad)
     pred = predict_forward(model, inp.values, inp.covs, level=args.level, user_w=inp.user_w)
     rows = pred.rows(inp.cov_text)
-    return rows, _render_forward(model, rows, args.level, label, pred.ci_of)
+    if first_row != 1:
+        for row in rows:
+            row["row"] += first_row - 1
+    return rows, pred.ci_of
+
+
+class _Digest:
+    """What the text report needs of every row, kept while the rows stream past: the first
+    :data:`SHOWN` rows, the count, the notes and whether any row is outside the range or has an
+    interval that is not finite."""
+
+    def __init__(self) -> None:
+        self.head: list[dict[str, Any]] = []
+        self.total = 0
+        self.notes: set[str] = set()
+        self.outside = False
+        self.unbounded = False
+        self.ci_of = ""
+
+    def add(self, rows: list[dict[str, Any]]) -> None:
+        """Take in one batch of rows."""
+        self.head += rows[:max(0, SHOWN - len(self.head))]
+        self.total += len(rows)
+        self.notes |= {r["note"] for r in rows if r.get("note")}
+        self.outside = self.outside or any(r["outside_range"] for r in rows)
+        self.unbounded = self.unbounded or any(r["interval"] not in ("finite", "overflow") for r in rows if "interval" in r)
+
+
+SHOWN = 200
+"""Rows the text report lists (the rest go to -o or --json)."""
+
+
+class _JsonRows:
+    """The JSON object of ``apply --json`` written row by row into ``fh``, byte for byte what
+    :func:`emit_json` prints for the whole object (the rows as its "rows" list)."""
+
+    MARK = "\x00rows\x00"
+
+    def __init__(self, fh: Any, head: dict[str, Any]) -> None:
+        import json
+
+        from ..output import _clean
+
+        self.fh = fh
+        text = json.dumps(_clean({**head, "rows": [self.MARK], "caution": CAUTION}), indent=2, allow_nan=False)
+        mark = "    " + json.dumps(self.MARK)
+        self.before, self.after = text.split(mark)
+        self.count = 0
+
+    def write(self, rows: list[dict[str, Any]]) -> None:
+        """Append ``rows`` to the list."""
+        import json
+
+        from ..output import _clean
+
+        for r in rows:
+            body = json.dumps(_clean(r), indent=2, allow_nan=False).replace("\n", "\n    ")
+            self.fh.write((self.before if self.count == 0 else ",\n") + "    " + body)
+            self.count += 1
+
+    def close(self) -> None:
+        """End the list and the object."""
+        self.fh.write((self.before if self.count == 0 else "") + self.after + "\n")
+
+
+def _batches(args: argparse.Namespace) -> Any:
+    """(first row number, frame, counter of unusable numbers further on) for NEWDATA: the whole
+    table in memory, or batches of rows read by DuckDB or Spark (``--engine``)."""
+    from bendwise.engine import load_table
+    from bendwise.engine.errors import UsageError
+
+    engine_name = engine_for(args, args.newdata)
+    delim = delimiter_arg(args.delimiter)
+    if engine_name == "memory":
+        yield 1, load_table(args.newdata, sheet=args.sheet, decimal=args.decimal, delimiter=delim), None
+        return
+    from bendwise.engine.backends.batches import table_batches
+    from bendwise.engine.handon.predict import unusable_numbers
+
+    if args.sheet is not None:
+        raise UsageError("--sheet applies to Excel workbooks, which are read in memory: use --engine memory")
+    frames = table_batches(args.newdata, engine_name, decimal=args.decimal, delimiter=delim,
+                           master=getattr(args, "spark_master", None), progress=progress_line(args))
+    first = 1
+    for frame in frames:
+        def more_bad(col: str, rest: Any = frames) -> int:
+            return sum(int(unusable_numbers(f[col], col)[1].sum()) for f in rest)
+
+        yield first, frame, more_bad
+        first += frame.shape[0]
 
 
 def run(args: argparse.Namespace) -> int:
-    """Load, check, compute, print."""
-    from bendwise.engine import load_table
+    """Load, check, compute, print: the rows pass batch by batch to the outputs (-o, --json) and
+    to the text report's digest, so a large NEWDATA read by DuckDB or Spark is never held whole."""
+    import contextlib
+    import sys
+    import tempfile
+
     from bendwise.engine.errors import UsageError
-    from bendwise.engine.handon.export import write_rows_csv
+    from bendwise.engine.handon.export import RowsCsv, atomic_text_file
     from bendwise.engine.handon.specfile import load_spec
 
     if args.replicates != 1 and not args.inverse:
@@ -119,11 +216,29 @@ def run(args: argparse.Namespace) -> int:
         model, runs_note = model_for_run(model, runs, args.run, args.replicates)
     elif args.run is not None:
         raise UsageError("--run needs a spec exported with --runs; this one has no runs")
-    delim = "\t" if args.delimiter in {"\\t", "tab", "TAB"} else args.delimiter
-    frame = load_table(args.newdata, sheet=args.sheet, decimal=args.decimal, delimiter=delim)
     label = doc.get("node", {}).get("label", "") if isinstance(doc.get("node"), dict) else ""
     held = _held(args.hold)
-    rows, text = _compute(args, model, frame, held, label)
+    head = {"mode": "inverse" if args.inverse else "forward", "model": label, "level": args.level,
+            "replicates": args.replicates if args.inverse else None, **({"held": held} if held else {}),
+            **({"runs": {"run": args.run, "note": runs_note, "df": model.df_resid}} if runs_note else {})}
+    digest = _Digest()
+    with contextlib.ExitStack() as stack:
+        out = RowsCsv(stack.enter_context(atomic_text_file(args.out, force=args.force))) if args.out else None
+        js = _JsonRows(stack.enter_context(tempfile.TemporaryFile("w+", encoding="utf-8")), head) if args.json else None
+        for first_row, frame, more_bad in _batches(args):
+            rows, digest.ci_of = _compute(args, model, frame, held, first_row, more_bad)
+            digest.add(rows)
+            for sink in (out, js):
+                if sink is not None:
+                    sink.write(rows)
+        if js is not None:
+            js.close()
+            js.fh.seek(0)
+            while chunk := js.fh.read(1 << 20):
+                sys.stdout.write(chunk)
+            return 0
+    text = _render_inverse(model, digest, args.level, label) if args.inverse else \
+        _render_forward(model, digest, args.level, label, digest.ci_of)
     if runs_note:
         text.insert(1, "  " + runs_note)
     if held:
@@ -131,22 +246,8 @@ def run(args: argparse.Namespace) -> int:
                     + ("; 'average' is the average curve over the categories, without a new category's own shift"
                        if any(v.casefold() == "average" for v in held.values()) else ""))
     if args.out:
-        path = write_rows_csv(rows, args.out, force=args.force)
-        if not args.json:
-            text.append(f"wrote {len(rows)} row(s) to {path}")
-    if args.json:
-        emit_json({
-            "mode": "inverse" if args.inverse else "forward",
-            "model": label,
-            "level": args.level,
-            "replicates": args.replicates if args.inverse else None,
-            **({"held": held} if held else {}),
-            **({"runs": {"run": args.run, "note": runs_note, "df": model.df_resid}} if runs_note else {}),
-            "rows": rows,
-            "caution": CAUTION,
-        })
-    else:
-        print("\n".join(text))
+        text.append(f"wrote {digest.total} row(s) to {Path(args.out)}")
+    print("\n".join(text))
     return 0
 
 
@@ -156,9 +257,9 @@ def _iv(lo, hi) -> str:
     return f"{a} … {b}"
 
 
-def _render_forward(model, rows: list[dict], level: float, label: str, ci_of: str) -> list[str]:
+def _render_forward(model, digest: _Digest, level: float, label: str, ci_of: str) -> list[str]:
     pct = f"{level * 100:g}%"
-    out = [f"bendwise apply · {label}", f"  {len(rows)} row(s); {pct} intervals; calibrated {model.predictor_name} "
+    out = [f"bendwise apply · {label}", f"  {digest.total} row(s); {pct} intervals; calibrated {model.predictor_name} "
            f"{fmt_num(model.x_min, 6)} … {fmt_num(model.x_max, 6)}"]
     transformed = not model.response.is_identity
     names = [c.name for c in model.covariates]
@@ -167,7 +268,7 @@ def _render_forward(model, rows: list[dict], level: float, label: str, ci_of: st
         header.append("median")
     header += [f"CI ({ci_of})", "prediction interval", "range"]
     body = []
-    for r in rows[:200]:
+    for r in digest.head:
         line = [fmt_num(r["x"], 6), *[str(r[n]) for n in names], fmt_num(r["fit"], 6)]
         if transformed:
             line.append(fmt_num(r["median"], 6))
@@ -176,20 +277,20 @@ def _render_forward(model, rows: list[dict], level: float, label: str, ci_of: st
                  "OUTSIDE" if r["outside_range"] else "inside"]
         body.append(line)
     out += table(body, header, right=set(range(len(header))) - {len(header) - 1})
-    if len(rows) > 200:
-        out.append(f"  … {len(rows) - 200} more row(s): use -o or --json")
-    notes = sorted({r["note"] for r in rows if r.get("note")})
-    out += [f"  note: {n}" for n in notes]
-    if any(r["outside_range"] for r in rows):
+    if digest.total > SHOWN:
+        out.append(f"  … {digest.total - SHOWN} more row(s): use -o or --json")
+    out += [f"  note: {n}" for n in sorted(digest.notes)]
+    if digest.outside:
         out.append("  OUTSIDE: x beyond the calibrated range — an extrapolation the data do not support")
     out += ["", CAUTION]
     return out
 
 
-def _render_inverse(model, rows: list[dict], level: float, label: str) -> list[str]:
+def _render_inverse(model, digest: _Digest, level: float, label: str) -> list[str]:
     pct = f"{level * 100:g}%"
+    rows = digest.head
     out = [f"bendwise apply --inverse · {label}",
-           f"  {len(rows)} response value(s), each a mean of {rows[0]['replicates'] if rows else 1} reading(s); "
+           f"  {digest.total} response value(s), each a mean of {rows[0]['replicates'] if rows else 1} reading(s); "
            f"{pct} Fieller-type sets for {model.predictor_name}"]
     names = [c.name for c in model.covariates]
     line_model = model.is_line
@@ -198,7 +299,7 @@ def _render_inverse(model, rows: list[dict], level: float, label: str) -> list[s
         header.append("s_x0")
     header += ["set", "kind", "range"]
     body = []
-    for r in rows[:200]:
+    for r in rows:
         pieces = r["pieces"]
         shown = " ∪ ".join(_iv(a, b) for a, b in pieces) if pieces else ("—" if r.get("flag") else "empty")
         rng = "—" if r["outside_range"] is None else ("OUTSIDE" if r["outside_range"] else "inside")
@@ -208,11 +309,10 @@ def _render_inverse(model, rows: list[dict], level: float, label: str) -> list[s
         line += [shown, r["interval"], rng]
         body.append(line)
     out += table(body, header, right={0, *range(1 + len(names), 2 + len(names) + int(line_model))})
-    if len(rows) > 200:
-        out.append(f"  … {len(rows) - 200} more row(s): use -o or --json")
-    notes = sorted({r["note"] for r in rows if r.get("note")})
-    out += [f"  note: {n}" for n in notes]
-    if any(r["interval"] not in ("finite", "overflow") for r in rows):
+    if digest.total > SHOWN:
+        out.append(f"  … {digest.total - SHOWN} more row(s): use -o or --json")
+    out += [f"  note: {n}" for n in sorted(digest.notes)]
+    if digest.unbounded:
         out.append("  a set that is not a finite interval means the calibration cannot pin x down there")
     g = rows[0].get("g") if rows else None
     if g is not None and math.isfinite(g):

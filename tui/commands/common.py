@@ -22,9 +22,14 @@ def add_data_args(p: argparse.ArgumentParser, *, need_xy: bool = True, covariate
     p.add_argument("--sheet", metavar="NAME", help="Excel sheet (default: the first)")
     p.add_argument("--decimal", choices=[".", ","], help="decimal mark in text files (default: a point, or a comma when nothing else can be meant)")
     p.add_argument("--delimiter", metavar="CHAR", help="field separator in text files (default: detected)")
+    add_engine_args(p)
+
+
+def add_engine_args(p: argparse.ArgumentParser,
+                    what: str = "where group totals are computed: in memory, by DuckDB over the files, or by Spark") -> None:
+    """--engine, --spark-master and --memory-cap (``what`` says what the engine does for the command)."""
     p.add_argument("--engine", choices=["auto", "memory", "duckdb", "spark"], default="auto",
-                   help="where group totals are computed: in memory, by DuckDB over the files, or by Spark "
-                   "(auto: DuckDB for folders, globs and files above --memory-cap)")
+                   help=f"{what} (auto: DuckDB for folders, globs and files above --memory-cap)")
     p.add_argument("--spark-master", metavar="URL", default=None,
                    help="with --engine spark: the Spark master (default local[*]; SPARK_REMOTE selects Spark Connect)")
     p.add_argument("--memory-cap", metavar="SIZE", default="2G",
@@ -63,49 +68,56 @@ def parse_size(text: str) -> int:
 
 def load_study(args: argparse.Namespace, progress=None):
     """Read the table and build the Study from the common options."""
-    import sys
-
     from bendwise.engine import load_table, make_study
-    from bendwise.engine.backends.duckdb import choose_engine, make_sql_study
 
-    delim = args.delimiter
-    if delim in {"\\t", "tab", "TAB"}:
-        delim = "\t"
-    engine_name = choose_engine(args.data, getattr(args, "engine", "memory"), parse_size(getattr(args, "memory_cap", "2G")))
+    delim = delimiter_arg(args.delimiter)
+    engine_name = engine_for(args, args.data)
+    columns = dict(y=args.y, x=args.x, covariates=split_list(getattr(args, "covariates", "")), weights=args.weights)
     if engine_name in ("duckdb", "spark"):
-        if progress is None and sys.stderr.isatty() and not getattr(args, "json", False):
-            def progress(text: str) -> None:
-                sys.stderr.write(f"\r  {text[:70]:<70}" if text else "\r" + " " * 72 + "\r")
-                sys.stderr.flush()
-        if engine_name == "spark":
-            from bendwise.engine.backends.spark import make_spark_study
-
-            return _tell_cleaning(make_spark_study(
-                args.data, y=args.y, x=args.x, covariates=split_list(getattr(args, "covariates", "")),
-                weights=args.weights, tolerance=args.tolerance, decimal=args.decimal, delimiter=delim,
-                progress=progress, master=getattr(args, "spark_master", None)), [])
-        return _tell_cleaning(make_sql_study(
-            args.data,
-            y=args.y,
-            x=args.x,
-            covariates=split_list(getattr(args, "covariates", "")),
-            weights=args.weights,
-            tolerance=args.tolerance,
-            decimal=args.decimal,
-            delimiter=delim,
-            progress=progress,
-        ), [])
+        return _tell_cleaning(sql_study(args, engine_name, args.data, columns, progress=progress), [])
     frame = load_table(args.data, sheet=args.sheet, decimal=args.decimal, delimiter=delim)
     source = "<stdin>" if args.data == "-" else Path(args.data).name
-    return _tell_cleaning(make_study(
-        frame,
-        y=args.y,
-        x=args.x,
-        covariates=split_list(getattr(args, "covariates", "")),
-        weights=args.weights,
-        tolerance=args.tolerance,
-        source=source,
-    ), list(frame.attrs.get("read_notes", [])))
+    return _tell_cleaning(make_study(frame, tolerance=args.tolerance, source=source, **columns),
+                          list(frame.attrs.get("read_notes", [])))
+
+
+def delimiter_arg(text: str | None) -> str | None:
+    """--delimiter as given, with \\t, tab and TAB meaning a tab."""
+    return "\t" if text in {"\\t", "tab", "TAB"} else text
+
+
+def engine_for(args: argparse.Namespace, path: str) -> str:
+    """'memory', 'duckdb' or 'spark' for the command's --engine and --memory-cap and the table at ``path``."""
+    from bendwise.engine.backends.duckdb import choose_engine
+
+    return choose_engine(path, getattr(args, "engine", "memory"), parse_size(getattr(args, "memory_cap", "2G")))
+
+
+def progress_line(args: argparse.Namespace, progress=None):
+    """The progress callback for an SQL engine: ``progress`` when given, else one rewritten line on
+    standard error when it is a terminal (and no --json), else None."""
+    import sys
+
+    if progress is None and sys.stderr.isatty() and not getattr(args, "json", False):
+        def progress(text: str) -> None:
+            sys.stderr.write(f"\r  {text[:70]:<70}" if text else "\r" + " " * 72 + "\r")
+            sys.stderr.flush()
+    return progress
+
+
+def sql_study(args: argparse.Namespace, engine_name: str, path: str, columns: dict, *, source: str = "",
+              progress=None):
+    """The study over ``path`` built by DuckDB or Spark (``columns``: y, x, covariates, weights)."""
+    progress = progress_line(args, progress)
+    common = dict(tolerance=getattr(args, "tolerance", None), decimal=args.decimal,
+                  delimiter=delimiter_arg(args.delimiter), progress=progress, source=source, **columns)
+    if engine_name == "spark":
+        from bendwise.engine.backends.spark import make_spark_study
+
+        return make_spark_study(path, master=getattr(args, "spark_master", None), **common)
+    from bendwise.engine.backends.duckdb import make_sql_study
+
+    return make_sql_study(path, **common)
 
 
 def _tell_cleaning(study, notes: list[str]):

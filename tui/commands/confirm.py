@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 
 from ..output import emit_json
+from .common import add_engine_args, delimiter_arg, engine_for, sql_study
 
 
 def _alpha(text: str) -> float:
@@ -47,21 +48,31 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--sheet", metavar="NAME", help="Excel sheet of DATA (default: the first)")
     p.add_argument("--decimal", choices=[".", ","], help="decimal mark of DATA (default .)")
     p.add_argument("--delimiter", metavar="CHAR", help="field separator of DATA (default: detected)")
+    add_engine_args(p, "where the new run's group totals are computed: in memory, by DuckDB over the files, "
+                    "or by Spark; DATA may then be a folder or glob of Parquet/CSV files")
     p.set_defaults(func=run)
 
 
 def run(args: argparse.Namespace) -> int:
     """Load the spec and the new run, test, print."""
     from bendwise.engine import load_table
-    from bendwise.engine.handon.confirm import confirm
+    from bendwise.engine.errors import UsageError
+    from bendwise.engine.handon.confirm import confirm, group_route_problem, study_columns
     from bendwise.engine.handon.specfile import load_spec
 
     doc, model = load_spec(args.spec)
-    delim = "\t" if args.delimiter in {"\\t", "tab", "TAB"} else args.delimiter
-    frame = load_table(args.data, sheet=args.sheet, decimal=args.decimal, delimiter=delim)
-    source = "<stdin>" if args.data == "-" else str(args.data).rsplit("/", 1)[-1]
-    result = confirm(doc, model, frame, alpha=args.alpha, allowable_deviation=args.allowable_deviation,
-                     source=source)
+    source = "<stdin>" if args.data == "-" else str(args.data).rstrip("/").rsplit("/", 1)[-1]
+    engine_name = engine_for(args, args.data)
+    if engine_name in ("duckdb", "spark"):
+        problem = group_route_problem(model)
+        if problem:  # before DuckDB or Spark reads anything
+            raise UsageError(problem)
+        study = sql_study(args, engine_name, args.data, study_columns(model), source=source)
+        result = confirm(doc, model, study=study, alpha=args.alpha, allowable_deviation=args.allowable_deviation)
+    else:
+        frame = load_table(args.data, sheet=args.sheet, decimal=args.decimal, delimiter=delimiter_arg(args.delimiter))
+        result = confirm(doc, model, frame, alpha=args.alpha, allowable_deviation=args.allowable_deviation,
+                         source=source)
     if args.json:
         emit_json(result.to_dict())
     else:

@@ -113,6 +113,8 @@ def run(args: argparse.Namespace) -> int:
         if not req.y:
             raise UsageError(f"with the {'Spark' if args.engine == 'spark' else 'DuckDB'} engine give -y and -x (the start screen needs the table in memory; "
                              "or add --engine memory)")
+        if args.engine == "spark":
+            return _launch_spark(req, args)
         _say(f"scanning {req.source}…")
         study = load_study(args)
         study.progress = None  # inside the app the workers report scans in the status row
@@ -127,6 +129,22 @@ def run(args: argparse.Namespace) -> int:
         _say("\r" + " " * 60 + "\r")
     return launch(req, study=study, frame=None if study is not None else frame, depth=args.depth, alpha=args.alpha,
                   rule=args.rule)
+
+
+def _launch_spark(req, args: argparse.Namespace) -> int:
+    """Open the app at once and let its worker build the study with Spark, whose task counts show
+    in the status row. What can be checked without starting Spark is checked here first (the file,
+    pyspark, Java), so those stay one line on stderr; later failures show in the app's message line."""
+    from dataclasses import replace
+
+    from bendwise.engine.backends.spark import require_spark
+    from bendwise.engine.read.files import data_files
+
+    if "://" not in req.path:
+        data_files(req.path)
+    require_spark()
+    req = replace(req, engine="spark", spark_master=args.spark_master)
+    return launch(req, study=None, frame=None, depth=args.depth, alpha=args.alpha, rule=args.rule)
 
 
 def _say(text: str) -> None:

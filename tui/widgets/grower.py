@@ -180,6 +180,12 @@ class TreeGrower(Widget):
         finally:
             study.progress = before
 
+    def _progress_text(self, text: str) -> None:
+        """An engine's progress line (Spark's task counts while it builds the study), from any
+        thread, to the status row: ``post_message`` is thread-safe; empty texts are skipped."""
+        if text:
+            self.post_message(self.Progressed(None, None, text, 0))
+
     # ---- workers ----------------------------------------------------------------------------
     @work(thread=True, exclusive=True, exit_on_error=False, group="tree")
     def _grow(self, alpha: float, rule: str) -> Growth:
@@ -193,7 +199,7 @@ class TreeGrower(Widget):
                 study = self.study
                 if study is None:
                     say(self.Progressed(None, None, f"reading {self.request.source}", 0))
-                    study = self.study = build_study(self.request)
+                    study = self.study = build_study(self.request, progress=self._progress_text)
                     say(self.StudyBuilt(study))
                 say(self.Progressed(None, None, "scoring the straight line", 0))
                 tree = RemedyTree(study, alpha=alpha, runs=self.request.runs)
