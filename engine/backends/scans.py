@@ -130,7 +130,7 @@ def _group_series(res: dict, nb: int, big_m: int, big_k: int, t_ref: np.ndarray)
                        floats(res["yhi"]), t_ref)
 
 
-def _constant_covariates(series: GroupSeries, num_cols: list[str], t_ref: np.ndarray, n: int) -> dict[str, float | None]:
+def _constant_covariates(series: GroupSeries, num_cols: list[str], t_ref: np.ndarray, n: float) -> dict[str, float | None]:
     """A covariate is constant when its group means agree and it has no spread within groups
     (to 1e-12 of its size: t′ = t − t_ref is then rounding noise around 0): its value, else None."""
     num_constant: dict[str, float | None] = {}
