@@ -42,7 +42,7 @@ def series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missing
                                  fallback, centre_expr, d)).fetchnumpy()
     if progress:
         progress("")
-    cat_vals = _clean_categories(res, cat_cols, cat_missing)
+    cat_vals = _clean_categories(res, cat_cols, cat_missing, len(num_cols))
     if cat_vals is None:
         con.execute(f"{d.drop} bw_shift")
         return None
@@ -95,14 +95,17 @@ def _series_plan(con: Any, keys: list[str], cat_cols: list[str], num_cols: list[
     return fallback, y_ref, t_ref, big_m, big_k, centre_expr
 
 
-def _clean_categories(res: dict, cat_cols: list[str], cat_missing: set[str]) -> dict[str, np.ndarray] | None:
+def _clean_categories(res: dict, cat_cols: list[str], cat_missing: set[str], nb: int) -> dict[str, np.ndarray] | None:
     """Each category column's labels per group, or None when the scan met a cell the one-scan path
     cannot take (missing, non-finite, a response ≤ 0)."""
     n_unit = floats(res["n"])
-    s1 = floats(res["s1"])  # Σ(d + chk): NaN when any cell of the group is NaN or ±inf
+    s1 = floats(res["s1"])  # Σd: non-finite when a y of the group is NaN or +inf
     ylo, yhi = floats(res["ylo"]), floats(res["yhi"])
-    clean = bool((floats(res["nchk"]) == n_unit).all() and np.isfinite(floats(res["x"])).all()
-                 and np.isfinite(s1).all() and (ylo > 0).all() and np.isfinite(yhi).all())
+    # every y present and > 0 (d not NULL), every covariate cell present and finite, x finite
+    present = [floats(res["nchk"]), *(floats(res[f"nt{i}"]) for i in range(nb))]
+    finite = [floats(res["x"]), s1, yhi, *(floats(res[f"t{i}"]) for i in range(nb))]
+    clean = bool(all((v == n_unit).all() for v in present) and all(np.isfinite(v).all() for v in finite)
+                 and (ylo > 0).all())
     cat_vals: dict[str, np.ndarray] = {}
     for c in cat_cols:
         col = res[c]

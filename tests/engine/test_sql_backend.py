@@ -1008,3 +1008,42 @@ def test_bartlett_from_groups_matches_scipy():
     assert got.df == (3,)
     single = bartlett_from_groups(np.array([1.0, 4.0, 1.0]), np.array([0.0, 2.0, 0.0]))
     assert not single.testable and "two levels" in (single.reason or "")
+
+
+@pytest.mark.parametrize("column", [Y, X, NUM])
+@pytest.mark.parametrize("value", ["null", "nan", "inf", "-inf"])
+def test_one_dirty_cell_anywhere_leaves_the_one_scan_path(tmp_path, column, value):
+    # The one scan has no per-row check column: a missing y or covariate shows in a count, a NaN
+    # or infinite one in a non-finite sum, a bad x in a group key. Each kind of cell, in each
+    # column, must send the study to the exact path with the memory engine's counts (reference:
+    # engine.make_study on the same rows).
+    frame = _tree_frame(3000, seed=23)
+    cols = {c: pa.array(frame[c].to_numpy()) for c in frame.columns}
+    vals = frame[column].to_numpy(dtype=float).copy()
+    mask = np.zeros(vals.size, dtype=bool)
+    if value == "null":
+        mask[1234] = True
+    else:
+        vals[1234] = float(value)
+    cols[column] = pa.array(vals, mask=mask)
+    path = tmp_path / "dirty.parquet"
+    pq.write_table(pa.table(cols), path)
+    sql = make_sql_study(str(path), y=Y, x=X, covariates=[CAT, NUM])
+    assert sql._info["series"] is None
+    read_back = pq.read_table(path).to_pandas()
+    mem = engine.make_study(read_back, y=Y, x=X, covariates=[CAT, NUM])
+    assert sql.n == mem.n == 2999
+    assert ([(d.column, d.reason, d.count) for d in sql.report.drops]
+            == [(d.column, d.reason, d.count) for d in mem.report.drops])
+
+
+@pytest.mark.parametrize("y_value", [0.0, -1.0])
+def test_a_response_at_or_below_zero_leaves_the_one_scan_path(tmp_path, y_value):
+    # d = ln y − c is NULL there, so the count of d falls short of the group's rows
+    frame = _tree_frame(3000, seed=24)
+    frame.loc[77, Y] = y_value
+    path = tmp_path / "nonpos.parquet"
+    frame.to_parquet(path)
+    sql = make_sql_study(str(path), y=Y, x=X, covariates=[CAT, NUM])
+    assert sql._info["series"] is None and sql.n == 3000
+    assert sql.domain_problem(LOG, "y") is not None
