@@ -7,6 +7,7 @@ the ranges and domains, and the groups. Both return the same dictionary of facts
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from typing import Any
 
@@ -14,7 +15,17 @@ import numpy as np
 
 from ..errors import DataError
 from ..read.cleaning import DropCount
-from ..stats.power_sums import GroupSeries, choose_orders, series_helps
+from ..stats.power_sums import (
+    GRID_END,
+    GRID_TOL,
+    SERIES_K_MAX,
+    SERIES_ORDERS,
+    SERIES_TOL,
+    GroupSeries,
+    choose_orders,
+    series_helps,
+)
+from ..stats.transforms import IDENTITY, RECIPROCAL, SQRT, Transform
 from .dialect import DUCKDB, Dialect
 from .sql_text import centre_polynomial, series_sql
 
@@ -86,13 +97,49 @@ def _series_plan(con: Any, keys: list[str], cat_cols: list[str], num_cols: list[
     # the whole file reaches further into the tails than its first rows: twice their extremes
     if not series_helps(sd, 2.0 * spread, len(num_cols)):
         return None  # too wide a response for the series: scan each transform exactly
-    big_m, big_k = choose_orders(sd, 2.0 * spread, len(num_cols))
+    ls_g, lm_g = floats(pre["ls"]), floats(pre["lm"])
+    reach = np.maximum(floats(pre["lhi"]) - lm_g, lm_g - floats(pre["llo"]))
+    big_m, big_k = fitted_orders(ls_g, 2.0 * reach, len(num_cols)) or choose_orders(sd, 2.0 * spread, len(num_cols))
     big_k = big_k if num_cols else 0
     centre_expr = None if cat_cols else centre_polynomial(floats(pre["x"]), lm, w, floats(pre["ls"]))
     if centre_expr is None:  # a table of centres, joined on the group keys
         shift = {k: (floats(pre[k]) if k == "x" else np.asarray(pre[k], dtype=object)) for k in keys}
         d.put(con, "bw_shift", shift | {"bw_c": lm})
     return fallback, y_ref, t_ref, big_m, big_k, centre_expr
+
+
+def fitted_orders(sd: np.ndarray, reach: np.ndarray, nb: int) -> tuple[int, int] | None:
+    """The cheapest series orders (M, K) (fewest sums: M + nb·K) that the check made after the
+    scan would accept, for groups with these standard deviations of ln y and these largest
+    deviations from their centre; None when no candidate passes or the first rows say too little.
+
+    The check is :meth:`GroupSeries.moments` itself, run on a model of each group (normal moments
+    of its standard deviation, its extremes at ``reach``) with half the tolerances: y, √y and 1/y
+    to SERIES_TOL, the Box–Cox grid's ends to GRID_TOL. It only sizes the query; the same check on
+    the scanned sums decides, and a transform it refuses is scanned exactly."""
+    keep = np.isfinite(sd) & (sd > 0) & np.isfinite(reach) & (reach > 0)
+    if not keep.any():
+        return None
+    sd, reach = sd[keep], reach[keep]
+    tests = [(IDENTITY, SERIES_TOL), (SQRT, SERIES_TOL), (RECIPROCAL, SERIES_TOL),
+             (Transform("boxcox", GRID_END), GRID_TOL), (Transform("boxcox", -GRID_END), GRID_TOL)]
+    pairs = sorted((m + nb * k, m, k) for m in SERIES_ORDERS
+                   for k in (range(3, min(m, SERIES_K_MAX) + 1) if nb else (0,)))
+    for _, big_m, big_k in pairs:
+        model = _model_series(sd, reach, big_m, big_k, nb)
+        if all(model.moments(t, 0.5 * tol) is not None for t, tol in tests):
+            return big_m, big_k
+    return None
+
+
+def _model_series(sd: np.ndarray, reach: np.ndarray, big_m: int, big_k: int, nb: int) -> GroupSeries:
+    """Power sums of a normal group per (sd, reach): one row, mean 0, central moments
+    (k−1)!!·sd^k, extremes e^{±reach}; covariate cross-products 0 (the check needs their order only)."""
+    u = sd.size
+    dfact = np.array([0.0 if k % 2 else float(math.prod(range(k - 1, 0, -2))) for k in range(1, big_m + 1)])
+    s = dfact[None, :] * sd[:, None] ** np.arange(1, big_m + 1)[None, :]
+    return GroupSeries(np.ones(u), np.zeros(u), s, np.zeros((u, nb, big_k)), np.zeros((u, nb)),
+                       np.ones((u, nb, nb)), np.exp(-reach), np.exp(reach), np.zeros(nb))
 
 
 def _clean_categories(res: dict, cat_cols: list[str], cat_missing: set[str], nb: int) -> dict[str, np.ndarray] | None:

@@ -1047,3 +1047,50 @@ def test_a_response_at_or_below_zero_leaves_the_one_scan_path(tmp_path, y_value)
     sql = make_sql_study(str(path), y=Y, x=X, covariates=[CAT, NUM])
     assert sql._info["series"] is None and sql.n == 3000
     assert sql.domain_problem(LOG, "y") is not None
+
+
+@pytest.mark.parametrize("sd", [0.004, 0.03, 0.05, 0.1])
+def test_orders_sized_from_the_first_rows_hold_on_the_whole_file(sd):
+    # fitted_orders sizes the one scan from the first rows (each group's spread, its extremes
+    # doubled). On normal groups 30 times larger than the first rows, the check made after the
+    # scan must accept y, √y, 1/y and the Box–Cox grid's ends at those orders, and the orders
+    # must cost no more sums than the older sizing (choose_orders, a tenth of the tolerances).
+    from bendwise.engine.backends.scans import fitted_orders
+    from bendwise.engine.stats.power_sums import GRID_END, GRID_TOL, SERIES_TOL, choose_orders
+
+    rng = np.random.default_rng(31)
+    first, whole, covs, centres = [], [], [], []
+    for g in range(3):
+        ln_y = 2.0 + 0.4 * g + rng.normal(0.0, sd, 60_000)
+        first.append(ln_y[:2000])
+        whole.append(np.exp(ln_y))
+        covs.append([rng.normal(20.0, 2.0, ln_y.size)])
+        centres.append(float(ln_y[:2000].mean()))
+    sds = np.array([f.std() for f in first])
+    reach = np.array([np.abs(f - f.mean()).max() for f in first])
+    got = fitted_orders(sds, 2.0 * reach, 1)
+    assert got is not None
+    big_m, big_k = got
+    old_m, old_k = choose_orders(float(sds.max()), 2.0 * float(reach.max()), 1)
+    assert big_m + big_k <= old_m + old_k
+    series = _series_from_rows(whole, covs, centres, big_m, big_k)
+    for t, tol in ((IDENTITY, SERIES_TOL), (SQRT, SERIES_TOL), (RECIPROCAL, SERIES_TOL),
+                   (Transform("boxcox", GRID_END), GRID_TOL), (Transform("boxcox", -GRID_END), GRID_TOL)):
+        assert series.moments(t, tol) is not None, (t, got)
+    # one sum fewer of either kind and the model itself refuses (the orders are the cheapest)
+    from bendwise.engine.backends.scans import _model_series
+
+    for m, k in ((big_m - 2, big_k), (big_m, big_k - 1)):
+        if m >= 6 and 3 <= k <= m:
+            model = _model_series(sds, 2.0 * reach, m, k, 1)
+            assert any(model.moments(t, 0.5 * tol) is None
+                       for t, tol in ((IDENTITY, SERIES_TOL), (SQRT, SERIES_TOL), (RECIPROCAL, SERIES_TOL),
+                                      (Transform("boxcox", GRID_END), GRID_TOL),
+                                      (Transform("boxcox", -GRID_END), GRID_TOL)))
+
+
+def test_orders_are_not_sized_for_a_response_too_wide_or_flat():
+    from bendwise.engine.backends.scans import fitted_orders
+
+    assert fitted_orders(np.full(4, 0.4), np.full(4, 3.0), 2) is None  # no order holds 1e-10
+    assert fitted_orders(np.zeros(4), np.zeros(4), 2) is None  # nothing to size from
