@@ -120,7 +120,7 @@ def fitted_orders(sd: np.ndarray, reach: np.ndarray, nb: int) -> tuple[int, int]
     keep = np.isfinite(sd) & (sd > 0) & np.isfinite(reach) & (reach > 0)
     if not keep.any():
         return None
-    sd, reach = sd[keep], reach[keep]
+    sd, reach = _frontier(sd[keep], reach[keep])
     tests = [(IDENTITY, SERIES_TOL), (SQRT, SERIES_TOL), (RECIPROCAL, SERIES_TOL),
              (Transform("boxcox", GRID_END), GRID_TOL), (Transform("boxcox", -GRID_END), GRID_TOL)]
     pairs = sorted((m + nb * k, m, k) for m in SERIES_ORDERS
@@ -130,6 +130,20 @@ def fitted_orders(sd: np.ndarray, reach: np.ndarray, nb: int) -> tuple[int, int]
         if all(model.moments(t, 0.5 * tol) is not None for t, tol in tests):
             return big_m, big_k
     return None
+
+
+def _frontier(sd: np.ndarray, reach: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The groups no other group exceeds in both spread and reach (the model's bounds grow with
+    both, and its rounding term never binds: reach ≤ sd·√65536 in the first rows), so sizing on
+    them alone gives the same orders for any number of groups."""
+    order = np.lexsort((-reach, -sd))  # widest spread first, largest reach first among ties
+    best = -np.inf
+    kept = []
+    for i in order:
+        if reach[i] > best:
+            kept.append(i)
+            best = reach[i]
+    return sd[kept], reach[kept]
 
 
 def _model_series(sd: np.ndarray, reach: np.ndarray, big_m: int, big_k: int, nb: int) -> GroupSeries:

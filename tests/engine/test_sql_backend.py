@@ -1094,3 +1094,22 @@ def test_orders_are_not_sized_for_a_response_too_wide_or_flat():
 
     assert fitted_orders(np.full(4, 0.4), np.full(4, 3.0), 2) is None  # no order holds 1e-10
     assert fitted_orders(np.zeros(4), np.zeros(4), 2) is None  # nothing to size from
+
+
+def test_orders_from_the_undominated_groups_equal_those_from_all_groups(monkeypatch):
+    # sizing looks only at groups no other group exceeds in both spread and reach (many finest
+    # groups would otherwise make it slow); the orders must be those of every group
+    from bendwise.engine.backends import scans
+
+    rng = np.random.default_rng(41)
+    for _ in range(3):
+        sd = rng.uniform(0.005, 0.07, 300)
+        reach = 2.0 * sd * rng.uniform(2.0, 5.0, sd.size)
+        f_sd, f_reach = scans._frontier(sd, reach)
+        assert 0 < f_sd.size < 30
+        for s_, r_ in zip(sd, reach, strict=True):  # every group is matched or exceeded by a kept one
+            assert ((f_sd >= s_) & (f_reach >= r_)).any()
+        fast = scans.fitted_orders(sd, reach, 2)
+        with monkeypatch.context() as m:
+            m.setattr(scans, "_frontier", lambda a, b: (a, b))
+            assert scans.fitted_orders(sd, reach, 2) == fast
