@@ -9,6 +9,8 @@ Usage:
     python bench/bench_sql.py --profile             # also time every SQL scan of the tree
     python bench/bench_sql.py --md /tmp/sql_bench_section.md
     python bench/bench_sql.py --accumulators 10,20,38   # what k plain SUMs cost on the same file
+    python bench/bench_sql.py --repeat 5            # rounds of floor + tree (default 3)
+    python bench/bench_sql.py --before /path/to/python  # also the tree of another checkout, same rounds
 
 Data (simulated, seeded, written with pyarrow one row group at a time so generation never holds
 more than one chunk): x at 50 levels; two numeric covariates varying within every level (t1, t2);
@@ -20,11 +22,18 @@ What is timed, each in its own Python subprocess (peak RSS from getrusage ru_max
   floor     one DuckDB query: SELECT x, COUNT(*), SUM(y), SUM(y*y) … GROUP BY x on the file
             (median of three runs in one process)
   sql tree  engine.sql.make_sql_study(file, covariates t1,t2) + RemedyTree(study).grow(2)
+            (duckdb and the scipy modules the tree imports lazily are imported before the clock)
             (clean data with y > 0: one scan of power sums, see engine.sql._Series; the notes
             column says whether that path was taken and how many exact scans it still needed)
   mem tree  pandas.read_parquet + engine.make_study + RemedyTree(study).grow(2)  (--memory-rows)
-Targets: sql tree ≤ 4 × floor in wall time; peak RSS of the sql tree < 2 GB.
-With --profile the sql tree child times every query DuckDB runs and lists the slowest.
+Each round runs the floor, then the tree (then the --before tree), each in a fresh process; the
+ratio tree / floor is taken within each round (in-process wall time, and CPU time of all threads)
+and reported as the median over rounds with its range, so a load that drifts between rounds
+(other jobs on the machine) moves both sides of a ratio alike. The load average is printed.
+Targets (issue 18): sql tree ≤ 6 × floor; peak RSS of the sql tree < 1 GB.
+With --profile the sql tree child times every query DuckDB runs and lists the slowest (last round).
+``--before PYTHON`` runs the same tree child under another interpreter whose ``bendwise`` is an
+older checkout: the before/after comparison of the README, measured in the same rounds.
 """
 
 from __future__ import annotations
@@ -91,14 +100,15 @@ def _child_floor(path: str) -> dict:
     import duckdb
 
     con = duckdb.connect()
-    times = []
+    times, cpus = [], []
     for _ in range(3):  # the median of three runs (the first also reads the file's metadata)
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         res = con.execute(
             f"SELECT x, COUNT(*) AS n, SUM(y) AS s1, SUM(y * y) AS s2 FROM read_parquet('{path}') GROUP BY x"
         ).fetchall()
         times.append(time.perf_counter() - t0)
-    return {"seconds": sorted(times)[1], "runs": times, "groups": len(res)}
+        cpus.append(time.process_time() - c0)
+    return {"seconds": sorted(times)[1], "cpu": sorted(cpus)[1], "runs": times, "groups": len(res)}
 
 
 def _child_accumulators(path: str, counts: str) -> dict:
@@ -107,15 +117,18 @@ def _child_accumulators(path: str, counts: str) -> dict:
 
     con = duckdb.connect()
     cols = ("y", "t1", "t2")
+    floor = f"SELECT x, COUNT(*), SUM(y), SUM(y * y) FROM read_parquet('{path}') GROUP BY x"
     out = {}
     for k in [int(v) for v in counts.split(",")]:
         aggs = ", ".join(f"SUM({cols[i % 3]} + {i}.0)" for i in range(k))
-        times = []
-        for _ in range(3):
+        ratios = []
+        for _ in range(3):  # each time against a floor run just before it
             t0 = time.perf_counter()
+            con.execute(floor).fetchall()
+            t1 = time.perf_counter()
             con.execute(f"SELECT x, COUNT(*), {aggs} FROM read_parquet('{path}') GROUP BY x").fetchall()
-            times.append(time.perf_counter() - t0)
-        out[str(k)] = sorted(times)[1]
+            ratios.append((time.perf_counter() - t1) / (t1 - t0))
+        out[str(k)] = sorted(ratios)[1]
     return {"accumulators": out}
 
 
@@ -143,16 +156,22 @@ def _child_sql_tree(path: str, profile: bool) -> dict:
     if profile:
         real = duckdb.connect
         duckdb.connect = lambda *a, **k: _TimedConnection(real(*a, **k), log)  # type: ignore[assignment]
+    # the tree imports these lazily; import start-up is not part of either job (the floor, too,
+    # imports duckdb before its clock)
+    import scipy.linalg  # noqa: F401
+    import scipy.special  # noqa: F401
+    import scipy.stats  # noqa: F401
     from bendwise.engine.backends.duckdb import make_sql_study
     from bendwise.engine.tree.tree import RemedyTree
 
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     study = make_sql_study(path, y="y", x="x", covariates=list(COVARIATES))
     t1 = time.perf_counter()
     tree = RemedyTree(study)
     tree.grow(2)
     t2 = time.perf_counter()
-    out = {"study": t1 - t0, "grow": t2 - t1, "seconds": t2 - t0, "nodes": len(tree.nodes),
+    out = {"study": t1 - t0, "grow": t2 - t1, "seconds": t2 - t0, "cpu": time.process_time() - c0,
+           "nodes": len(tree.nodes),
            "suggested": tree.suggest().node, "levels": study.c, "n": study.n,
            "exact_scans": study.exact_scans, "one_scan": study._info.get("series") is not None,
            "orders": None if study._info.get("series") is None else [study._info["series"].M, study._info["series"].K]}
@@ -192,13 +211,13 @@ def child_main(argv: list[str]) -> None:
     sys.stdout.write("BENCH " + json.dumps(out) + "\n")
 
 
-def run_child(kind: str, path: Path, *extra: str) -> dict:
-    """Run one measurement in a fresh interpreter; wall time and its peak RSS."""
+def run_child(kind: str, path: Path, *extra: str, python: str = sys.executable) -> dict:
+    """Run one measurement in a fresh interpreter (``python``); wall time and its peak RSS."""
     before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
     t0 = time.perf_counter()
     # single-threaded BLAS for the small group-level solves, as the bendwise command sets it
     env = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"} | dict(os.environ)
-    proc = subprocess.run([sys.executable, __file__, "--child", kind, str(path), *extra],
+    proc = subprocess.run([python, __file__, "--child", kind, str(path), *extra],
                           capture_output=True, text=True, cwd=ROOT, env=env)
     wall = time.perf_counter() - t0
     if proc.returncode != 0:
@@ -217,7 +236,7 @@ def run_child(kind: str, path: Path, *extra: str) -> dict:
 
 
 def _kind(sql: str, avgs: int) -> str:
-    if "bw_chk" in sql:
+    if "nchk" in sql:
         return "one-scan group sums (series)"
     if "bw_pre" in sql:
         return "first rows (group centres)"
@@ -239,6 +258,58 @@ def _rows(n: int) -> str:
     return f"10^{exp}" if n == 10**exp else f"{n:.2e}".replace("e+0", "e")
 
 
+def _rounds(path: Path, args: argparse.Namespace) -> tuple[list[dict], list[dict], list[dict]]:
+    """``args.repeat`` rounds of floor, tree (and the --before tree), each child a fresh process."""
+    floors: list[dict] = []
+    sqls: list[dict] = []
+    befores: list[dict] = []
+    for r in range(args.repeat):
+        floors.append(run_child("floor", path))
+        sqls.append(run_child("sql", path, *(["--profile"] if args.profile else [])))
+        if args.before:
+            befores.append(run_child("sql", path, python=args.before))
+        # in-process times: interpreter and import start-up are not part of either job
+        print(f"round {r + 1}: floor {floors[-1]['seconds']:.2f} s, tree {sqls[-1]['seconds']:.2f} s"
+              + (f", before {befores[-1]['seconds']:.2f} s" if befores else "")
+              + f" (load {os.getloadavg()[0]:.1f})", flush=True)
+    return floors, sqls, befores
+
+
+def _tree_note(sql: dict) -> str:
+    return (f"{sql['nodes']} nodes; study {sql['study']:.1f} s, grow {sql['grow']:.1f} s; "
+            + (f"one-scan series (M = {sql['orders'][0]}, K = {sql['orders'][1]})" if sql["one_scan"] else "exact path")
+            + f", {sql['exact_scans']} extra scan(s)")
+
+
+def _median(values: list[float]) -> float:
+    v = sorted(values)
+    return v[len(v) // 2] if len(v) % 2 else 0.5 * (v[len(v) // 2 - 1] + v[len(v) // 2])
+
+
+def _spread(values: list[float], unit: str = "×") -> str:
+    """Median and range of a list, e.g. ``5.8× (5.5–6.1×)``."""
+    v, mid = sorted(values), _median(values)
+    return f"{mid:.1f}{unit} ({v[0]:.1f}–{v[-1]:.1f}{unit})" if len(v) > 1 else f"{mid:.1f}{unit}"
+
+
+def _ratio_lines(floors: list[dict], sqls: list[dict], befores: list[dict]) -> list[str]:
+    """Per-round ratios to the floor (wall and CPU), their median and range, and the targets."""
+    out = [f"{len(floors)} round(s); load average now {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores",
+           f"floor in-process: {_spread([f['seconds'] for f in floors], ' s')}, "
+           f"CPU {_spread([f['cpu'] for f in floors], ' s')}"]
+    for name, runs in (("sql tree", sqls), ("before", befores)):
+        if not runs:
+            continue
+        wall = [r["seconds"] / f["seconds"] for r, f in zip(runs, floors, strict=True)]
+        cpu = [r["cpu"] / f["cpu"] for r, f in zip(runs, floors, strict=True)]
+        rss = max(r["rss_mb"] for r in runs)
+        mid = _median(wall)
+        out.append(f"{name}: in-process {_spread([r['seconds'] for r in runs], ' s')}; ratio to the floor "
+                   f"{_spread(wall)} wall, {_spread(cpu)} CPU (target ≤ 6×: {'met' if mid <= 6 else 'missed'}); "
+                   f"peak RSS {_gb(rss)} (target < 1 GB: {'met' if rss < 1024 else 'missed'})")
+    return out
+
+
 def main() -> None:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--rows", type=float, default=1e8, help="rows of the main file (default 1e8)")
@@ -248,6 +319,9 @@ def main() -> None:
     p.add_argument("--profile", action="store_true", help="time every SQL query of the tree")
     p.add_argument("--skip-memory", action="store_true", help="leave out the in-memory race")
     p.add_argument("--md", metavar="FILE", help="also write the table as Markdown")
+    p.add_argument("--repeat", type=int, default=3, help="rounds of floor + tree (default 3)")
+    p.add_argument("--before", metavar="PYTHON",
+                   help="also time the tree under this interpreter (an older checkout's bendwise), same rounds")
     p.add_argument("--accumulators", metavar="K,K,…",
                    help="also time queries of K plain SUMs (the cost of accumulators alone), e.g. 10,20,38")
     args = p.parse_args()
@@ -264,20 +338,16 @@ def main() -> None:
         size = path.stat().st_size
         print(f"data: {path} ({_rows(rows)} rows, {size / 2**30:.2f} GiB"
               + (f", generated in {gen:.0f} s)" if gen else ", reused)"), flush=True)
-        floor = run_child("floor", path)
-        print(f"floor: {floor['wall']:.1f} s", flush=True)
-        sql = run_child("sql", path, *(["--profile"] if args.profile else []))
-        print(f"sql tree: {sql['wall']:.1f} s", flush=True)
-        # in-process times: interpreter and import start-up are not part of either job
-        ratio = sql["seconds"] / floor["seconds"]
+        floors, sqls, befores = _rounds(path, args)
+        floor, sql = floors[-1], sqls[-1]
         table = [
             ("DuckDB GROUP BY count/sum/sum² (floor)", rows, floor["wall"], floor["seconds"], floor["rss_mb"],
              "runs " + ", ".join(f"{v:.2f}" for v in floor["runs"]) + " s"),
-            ("DuckDB: make_sql_study + grow(2)", rows, sql["wall"], sql["seconds"], sql["rss_mb"],
-             f"{sql['nodes']} nodes; study {sql['study']:.1f} s, grow {sql['grow']:.1f} s; "
-             + (f"one-scan series (M = {sql['orders'][0]}, K = {sql['orders'][1]})" if sql["one_scan"] else "exact path")
-             + f", {sql['exact_scans']} extra scan(s)"),
+            ("DuckDB: make_sql_study + grow(2)", rows, sql["wall"], sql["seconds"], sql["rss_mb"], _tree_note(sql)),
         ]
+        if befores:
+            b = befores[-1]
+            table.append(("before: make_sql_study + grow(2)", rows, b["wall"], b["seconds"], b["rss_mb"], _tree_note(b)))
         if not args.skip_memory:
             if mem_rows == rows:
                 mpath, msql = path, sql
@@ -298,12 +368,10 @@ def main() -> None:
         lines.append("")
         if args.accumulators:
             acc = run_child("accumulators", path, args.accumulators)["accumulators"]
-            lines.append("plain SUM accumulators (median of 3): " + "; ".join(
-                f"{k}: {v:.2f} s = {v / floor['seconds']:.1f}× floor" for k, v in acc.items()))
+            lines.append("plain SUM accumulators, each run over a floor run just before it (median of 3): "
+                         + "; ".join(f"{k}: {v:.1f}× floor" for k, v in acc.items()))
             lines.append("")
-        lines.append(f"ratio sql tree / floor (in-process): {ratio:.1f}× (target ≤ 4×) — "
-                     f"{'met' if ratio <= 4 else 'missed'}; peak RSS {_gb(sql['rss_mb'])} (target < 2 GB) — "
-                     f"{'met' if sql['rss_mb'] < 2048 else 'missed'}")
+        lines += _ratio_lines(floors, sqls, befores)
         if args.profile:
             lines.append("")
             kinds: dict[str, list[float]] = {}

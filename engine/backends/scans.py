@@ -7,6 +7,7 @@ the ranges and domains, and the groups. Both return the same dictionary of facts
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from typing import Any
 
@@ -14,7 +15,17 @@ import numpy as np
 
 from ..errors import DataError
 from ..read.cleaning import DropCount
-from ..stats.power_sums import GroupSeries, choose_orders, series_helps
+from ..stats.power_sums import (
+    GRID_END,
+    GRID_TOL,
+    SERIES_K_MAX,
+    SERIES_ORDERS,
+    SERIES_TOL,
+    GroupSeries,
+    choose_orders,
+    series_helps,
+)
+from ..stats.transforms import IDENTITY, RECIPROCAL, SQRT, Transform
 from .dialect import DUCKDB, Dialect
 from .sql_text import centre_polynomial, series_sql
 
@@ -42,7 +53,7 @@ def series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missing
                                  fallback, centre_expr, d)).fetchnumpy()
     if progress:
         progress("")
-    cat_vals = _clean_categories(res, cat_cols, cat_missing)
+    cat_vals = _clean_categories(res, cat_cols, cat_missing, len(num_cols))
     if cat_vals is None:
         con.execute(f"{d.drop} bw_shift")
         return None
@@ -86,7 +97,9 @@ def _series_plan(con: Any, keys: list[str], cat_cols: list[str], num_cols: list[
     # the whole file reaches further into the tails than its first rows: twice their extremes
     if not series_helps(sd, 2.0 * spread, len(num_cols)):
         return None  # too wide a response for the series: scan each transform exactly
-    big_m, big_k = choose_orders(sd, 2.0 * spread, len(num_cols))
+    ls_g, lm_g = floats(pre["ls"]), floats(pre["lm"])
+    reach = np.maximum(floats(pre["lhi"]) - lm_g, lm_g - floats(pre["llo"]))
+    big_m, big_k = fitted_orders(ls_g, 2.0 * reach, len(num_cols)) or choose_orders(sd, 2.0 * spread, len(num_cols))
     big_k = big_k if num_cols else 0
     centre_expr = None if cat_cols else centre_polynomial(floats(pre["x"]), lm, w, floats(pre["ls"]))
     if centre_expr is None:  # a table of centres, joined on the group keys
@@ -95,14 +108,65 @@ def _series_plan(con: Any, keys: list[str], cat_cols: list[str], num_cols: list[
     return fallback, y_ref, t_ref, big_m, big_k, centre_expr
 
 
-def _clean_categories(res: dict, cat_cols: list[str], cat_missing: set[str]) -> dict[str, np.ndarray] | None:
+def fitted_orders(sd: np.ndarray, reach: np.ndarray, nb: int) -> tuple[int, int] | None:
+    """The cheapest series orders (M, K) (fewest sums: M + nb·K) that the check made after the
+    scan would accept, for groups with these standard deviations of ln y and these largest
+    deviations from their centre; None when no candidate passes or the first rows say too little.
+
+    The check is :meth:`GroupSeries.moments` itself, run on a model of each group (normal moments
+    of its standard deviation, its extremes at ``reach``) with half the tolerances: y, √y and 1/y
+    to SERIES_TOL, the Box–Cox grid's ends to GRID_TOL. It only sizes the query; the same check on
+    the scanned sums decides, and a transform it refuses is scanned exactly."""
+    keep = np.isfinite(sd) & (sd > 0) & np.isfinite(reach) & (reach > 0)
+    if not keep.any():
+        return None
+    sd, reach = _frontier(sd[keep], reach[keep])
+    tests = [(IDENTITY, SERIES_TOL), (SQRT, SERIES_TOL), (RECIPROCAL, SERIES_TOL),
+             (Transform("boxcox", GRID_END), GRID_TOL), (Transform("boxcox", -GRID_END), GRID_TOL)]
+    pairs = sorted((m + nb * k, m, k) for m in SERIES_ORDERS
+                   for k in (range(3, min(m, SERIES_K_MAX) + 1) if nb else (0,)))
+    for _, big_m, big_k in pairs:
+        model = _model_series(sd, reach, big_m, big_k, nb)
+        if all(model.moments(t, 0.5 * tol) is not None for t, tol in tests):
+            return big_m, big_k
+    return None
+
+
+def _frontier(sd: np.ndarray, reach: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The groups no other group exceeds in both spread and reach (the model's bounds grow with
+    both, and its rounding term never binds: reach ≤ sd·√65536 in the first rows), so sizing on
+    them alone gives the same orders for any number of groups."""
+    order = np.lexsort((-reach, -sd))  # widest spread first, largest reach first among ties
+    best = -np.inf
+    kept = []
+    for i in order:
+        if reach[i] > best:
+            kept.append(i)
+            best = reach[i]
+    return sd[kept], reach[kept]
+
+
+def _model_series(sd: np.ndarray, reach: np.ndarray, big_m: int, big_k: int, nb: int) -> GroupSeries:
+    """Power sums of a normal group per (sd, reach): one row, mean 0, central moments
+    (k−1)!!·sd^k, extremes e^{±reach}; covariate cross-products 0 (the check needs their order only)."""
+    u = sd.size
+    dfact = np.array([0.0 if k % 2 else float(math.prod(range(k - 1, 0, -2))) for k in range(1, big_m + 1)])
+    s = dfact[None, :] * sd[:, None] ** np.arange(1, big_m + 1)[None, :]
+    return GroupSeries(np.ones(u), np.zeros(u), s, np.zeros((u, nb, big_k)), np.zeros((u, nb)),
+                       np.ones((u, nb, nb)), np.exp(-reach), np.exp(reach), np.zeros(nb))
+
+
+def _clean_categories(res: dict, cat_cols: list[str], cat_missing: set[str], nb: int) -> dict[str, np.ndarray] | None:
     """Each category column's labels per group, or None when the scan met a cell the one-scan path
     cannot take (missing, non-finite, a response ≤ 0)."""
     n_unit = floats(res["n"])
-    s1 = floats(res["s1"])  # Σ(d + chk): NaN when any cell of the group is NaN or ±inf
+    s1 = floats(res["s1"])  # Σd: non-finite when a y of the group is NaN or +inf
     ylo, yhi = floats(res["ylo"]), floats(res["yhi"])
-    clean = bool((floats(res["nchk"]) == n_unit).all() and np.isfinite(floats(res["x"])).all()
-                 and np.isfinite(s1).all() and (ylo > 0).all() and np.isfinite(yhi).all())
+    # every y present and > 0 (d not NULL), every covariate cell present and finite, x finite
+    present = [floats(res["nchk"]), *(floats(res[f"nt{i}"]) for i in range(nb))]
+    finite = [floats(res["x"]), s1, yhi, *(floats(res[f"t{i}"]) for i in range(nb))]
+    clean = bool(all((v == n_unit).all() for v in present) and all(np.isfinite(v).all() for v in finite)
+                 and (ylo > 0).all())
     cat_vals: dict[str, np.ndarray] = {}
     for c in cat_cols:
         col = res[c]

@@ -72,8 +72,10 @@ def series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t_ref: Seq
     ``source`` has columns y, the keys and the numeric covariates; ``shift_table`` has the keys
     and a column ``bw_c`` (the group's centre; groups missing from it use ``fallback_centre``).
     Instead of the table, ``centre_expr`` may give the centre as an expression in x.
-    A column ``bw_chk`` is 0 on rows whose y, x and covariates are all finite, NULL or NaN
-    otherwise; it is counted and added into Σd, so dirty data are recognised. Standard SQL only.
+    Dirty data are recognised without a per-row check column: d is NULL where y is missing or
+    ≤ 0 (``nchk`` counts the rows where it is not), ``nt{i}`` counts each covariate's present
+    cells, a NaN or infinite y or covariate makes Σd or the covariate's sum non-finite, and a
+    bad x shows as a non-finite group key. Standard SQL only.
     """
     q = d.quote
     on = " AND ".join(f"r.{q(k)} = s.{q(k)}" for k in keys)
@@ -83,20 +85,19 @@ def series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t_ref: Seq
     else:
         joined = (f"SELECT {sel}, COALESCE(s.bw_c, {fallback_centre!r}) AS bw_c "
                   f"FROM {source} AS r LEFT JOIN {shift_table} AS s ON {on}")
-    chk = " + ".join(["y * 0", "x * 0", *(f"{q(b)} * 0" for b in nums)])
     cols = [*(q(k) for k in keys), "y", "bw_c", *(f"({q(b)} - {ref!r}) AS {q(b)}" for b, ref in zip(nums, t_ref, strict=True)),
-            "CASE WHEN y > 0 THEN LN(y) - bw_c END AS bw_d1", f"({chk}) AS bw_chk"]
+            "CASE WHEN y > 0 THEN LN(y) - bw_c END AS bw_d1"]
     query = f"SELECT {', '.join(cols)} FROM ({joined}) AS bw_j"
     have = 1
     while have < big_m:  # powers by repeated squaring: each level adds d^(h+1) … d^(2h)
         new = [f"bw_d{have} * bw_d{k - have} AS bw_d{k}" for k in range(have + 1, min(2 * have, big_m) + 1)]
         query = f"SELECT *, {', '.join(new)} FROM ({query}) AS bw_p{have}"
         have = min(2 * have, big_m)
-    aggs = ["COUNT(*) AS n", "COUNT(bw_chk) AS nchk", "MIN(y) AS ylo", "MAX(y) AS yhi", "MIN(bw_c) AS centre"]
+    aggs = ["COUNT(*) AS n", "COUNT(bw_d1) AS nchk", "MIN(y) AS ylo", "MAX(y) AS yhi", "MIN(bw_c) AS centre"]
     for i, b in enumerate(nums):
-        aggs.append(f"SUM({q(b)}) AS t{i}")
+        aggs += [f"COUNT({q(b)}) AS nt{i}", f"SUM({q(b)}) AS t{i}"]
         aggs += [f"SUM({q(b)} * {q(nums[j])}) AS tt{i}_{j}" for j in range(i, len(nums))]
-    aggs += ["SUM(bw_d1 + bw_chk) AS s1", *(f"SUM(bw_d{k}) AS s{k}" for k in range(2, big_m + 1))]
+    aggs += [f"SUM(bw_d{k}) AS s{k}" for k in range(1, big_m + 1)]
     for i, b in enumerate(nums):
         aggs += [f"SUM(bw_d{k} * {q(b)}) AS c{i}_{k}" for k in range(1, big_k + 1)]
     key_list = ", ".join(q(k) for k in keys)

@@ -210,7 +210,9 @@ def weighted_series_setup(con: Any, cat_cols: list[str], num_cols: list[str], ca
                                           "bw_shift", fallback, centre_expr, WEIGHT, d)).fetchnumpy()
     if progress:
         progress("")
-    cat_vals = _clean_categories(res, cat_cols, cat_missing)
+    # the weighted scan keeps its per-row check column (bw_chk: NULL or NaN at any bad cell, in
+    # nchk and s1), so no per-covariate counts are needed: nb = 0
+    cat_vals = _clean_categories(res, cat_cols, cat_missing, 0)
     wlo, whi = floats(res["wlo"]), floats(res["whi"])
     if cat_vals is None or not (np.isfinite(whi).all() and (wlo > 0).all()):
         con.execute(f"{d.drop} bw_shift")

@@ -1299,3 +1299,107 @@ def test_weighted_row_level_checks_say_why_or_use_the_weighted_sample(tmp_path):
     base, note = _rows_study(sql)
     assert note is not None and base.weights_name == W
     np.testing.assert_allclose(np.sort(base.weights), np.sort(mem.weights), rtol=0)
+
+@pytest.mark.parametrize("column", [Y, X, NUM])
+@pytest.mark.parametrize("value", ["null", "nan", "inf", "-inf"])
+def test_one_dirty_cell_anywhere_leaves_the_one_scan_path(tmp_path, column, value):
+    # The one scan has no per-row check column: a missing y or covariate shows in a count, a NaN
+    # or infinite one in a non-finite sum, a bad x in a group key. Each kind of cell, in each
+    # column, must send the study to the exact path with the memory engine's counts (reference:
+    # engine.make_study on the same rows).
+    frame = _tree_frame(3000, seed=23)
+    cols = {c: pa.array(frame[c].to_numpy()) for c in frame.columns}
+    vals = frame[column].to_numpy(dtype=float).copy()
+    mask = np.zeros(vals.size, dtype=bool)
+    if value == "null":
+        mask[1234] = True
+    else:
+        vals[1234] = float(value)
+    cols[column] = pa.array(vals, mask=mask)
+    path = tmp_path / "dirty.parquet"
+    pq.write_table(pa.table(cols), path)
+    sql = make_sql_study(str(path), y=Y, x=X, covariates=[CAT, NUM])
+    assert sql._info["series"] is None
+    read_back = pq.read_table(path).to_pandas()
+    mem = engine.make_study(read_back, y=Y, x=X, covariates=[CAT, NUM])
+    assert sql.n == mem.n == 2999
+    assert ([(d.column, d.reason, d.count) for d in sql.report.drops]
+            == [(d.column, d.reason, d.count) for d in mem.report.drops])
+
+
+@pytest.mark.parametrize("y_value", [0.0, -1.0])
+def test_a_response_at_or_below_zero_leaves_the_one_scan_path(tmp_path, y_value):
+    # d = ln y − c is NULL there, so the count of d falls short of the group's rows
+    frame = _tree_frame(3000, seed=24)
+    frame.loc[77, Y] = y_value
+    path = tmp_path / "nonpos.parquet"
+    frame.to_parquet(path)
+    sql = make_sql_study(str(path), y=Y, x=X, covariates=[CAT, NUM])
+    assert sql._info["series"] is None and sql.n == 3000
+    assert sql.domain_problem(LOG, "y") is not None
+
+
+@pytest.mark.parametrize("sd", [0.004, 0.03, 0.05, 0.1])
+def test_orders_sized_from_the_first_rows_hold_on_the_whole_file(sd):
+    # fitted_orders sizes the one scan from the first rows (each group's spread, its extremes
+    # doubled). On normal groups 30 times larger than the first rows, the check made after the
+    # scan must accept y, √y, 1/y and the Box–Cox grid's ends at those orders, and the orders
+    # must cost no more sums than the older sizing (choose_orders, a tenth of the tolerances).
+    from bendwise.engine.backends.scans import fitted_orders
+    from bendwise.engine.stats.power_sums import GRID_END, GRID_TOL, SERIES_TOL, choose_orders
+
+    rng = np.random.default_rng(31)
+    first, whole, covs, centres = [], [], [], []
+    for g in range(3):
+        ln_y = 2.0 + 0.4 * g + rng.normal(0.0, sd, 60_000)
+        first.append(ln_y[:2000])
+        whole.append(np.exp(ln_y))
+        covs.append([rng.normal(20.0, 2.0, ln_y.size)])
+        centres.append(float(ln_y[:2000].mean()))
+    sds = np.array([f.std() for f in first])
+    reach = np.array([np.abs(f - f.mean()).max() for f in first])
+    got = fitted_orders(sds, 2.0 * reach, 1)
+    assert got is not None
+    big_m, big_k = got
+    old_m, old_k = choose_orders(float(sds.max()), 2.0 * float(reach.max()), 1)
+    assert big_m + big_k <= old_m + old_k
+    series = _series_from_rows(whole, covs, centres, big_m, big_k)
+    for t, tol in ((IDENTITY, SERIES_TOL), (SQRT, SERIES_TOL), (RECIPROCAL, SERIES_TOL),
+                   (Transform("boxcox", GRID_END), GRID_TOL), (Transform("boxcox", -GRID_END), GRID_TOL)):
+        assert series.moments(t, tol) is not None, (t, got)
+    # one sum fewer of either kind and the model itself refuses (the orders are the cheapest)
+    from bendwise.engine.backends.scans import _model_series
+
+    for m, k in ((big_m - 2, big_k), (big_m, big_k - 1)):
+        if m >= 6 and 3 <= k <= m:
+            model = _model_series(sds, 2.0 * reach, m, k, 1)
+            assert any(model.moments(t, 0.5 * tol) is None
+                       for t, tol in ((IDENTITY, SERIES_TOL), (SQRT, SERIES_TOL), (RECIPROCAL, SERIES_TOL),
+                                      (Transform("boxcox", GRID_END), GRID_TOL),
+                                      (Transform("boxcox", -GRID_END), GRID_TOL)))
+
+
+def test_orders_are_not_sized_for_a_response_too_wide_or_flat():
+    from bendwise.engine.backends.scans import fitted_orders
+
+    assert fitted_orders(np.full(4, 0.4), np.full(4, 3.0), 2) is None  # no order holds 1e-10
+    assert fitted_orders(np.zeros(4), np.zeros(4), 2) is None  # nothing to size from
+
+
+def test_orders_from_the_undominated_groups_equal_those_from_all_groups(monkeypatch):
+    # sizing looks only at groups no other group exceeds in both spread and reach (many finest
+    # groups would otherwise make it slow); the orders must be those of every group
+    from bendwise.engine.backends import scans
+
+    rng = np.random.default_rng(41)
+    for _ in range(3):
+        sd = rng.uniform(0.005, 0.07, 300)
+        reach = 2.0 * sd * rng.uniform(2.0, 5.0, sd.size)
+        f_sd, f_reach = scans._frontier(sd, reach)
+        assert 0 < f_sd.size < 30
+        for s_, r_ in zip(sd, reach, strict=True):  # every group is matched or exceeded by a kept one
+            assert ((f_sd >= s_) & (f_reach >= r_)).any()
+        fast = scans.fitted_orders(sd, reach, 2)
+        with monkeypatch.context() as m:
+            m.setattr(scans, "_frontier", lambda a, b: (a, b))
+            assert scans.fitted_orders(sd, reach, 2) == fast
