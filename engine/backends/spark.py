@@ -152,6 +152,7 @@ class SparkConnection:
         self.progress = progress
         self.scans = 0
         self.bytes_returned = 0
+        self._groups = 0
 
     def execute(self, sql: str) -> _Result:
         text = sql.lstrip().upper()
@@ -169,6 +170,18 @@ class SparkConnection:
             warnings.simplefilter("ignore", FutureWarning)
             self.spark.createDataFrame(frame).createOrReplaceTempView(name)
 
+    def tag_jobs(self) -> str | None:
+        """Put the jobs this thread starts next into a job group of their own (so their stages can
+        be found after they finish); None where there is no SparkContext (Spark Connect)."""
+        try:
+            sc = self.spark.sparkContext
+            self._groups += 1
+            group = f"bendwise-{id(self)}-{self._groups}"
+            sc.setJobGroup(group, "bendwise scan")
+            return group
+        except Exception:  # Spark Connect or a stand-in without job groups
+            return None
+
     def tracker(self) -> Any:
         try:
             return self.spark.sparkContext.statusTracker()
@@ -184,6 +197,9 @@ class _Watched(_Result):
         self.con = con
 
     def _watch(self, fetch: Callable[[], Any]) -> Any:
+        """Fetch while a thread reports the active stages' task counts every half second; then
+        report the counts of the stages this fetch ran (a query shorter than the first poll still
+        shows Spark's own figures once)."""
         tracker = self.con.tracker() if self.con.progress is not None else None
         if tracker is None:
             return fetch()
@@ -191,14 +207,9 @@ class _Watched(_Result):
 
         def poll() -> None:
             while not done.wait(0.5):
-                parts = []
-                for sid in tracker.getActiveStageIds():
-                    info = tracker.getStageInfo(sid)
-                    if info is not None:
-                        parts.append(f"stage {sid}: {info.numCompletedTasks}/{info.numTasks} tasks")
-                if parts and self.con.progress is not None:
-                    self.con.progress("Spark " + ", ".join(parts))
+                self._report(tracker, tracker.getActiveStageIds())
 
+        group = self.con.tag_jobs()
         thread = threading.Thread(target=poll, daemon=True)
         thread.start()
         try:
@@ -206,6 +217,19 @@ class _Watched(_Result):
         finally:
             done.set()
             thread.join()
+            if group is not None:
+                with contextlib.suppress(Exception):  # progress is a courtesy: it never fails a query
+                    self._report(tracker, [sid for jid in tracker.getJobIdsForGroup(group)
+                                           for sid in (getattr(tracker.getJobInfo(jid), "stageIds", None) or [])])
+
+    def _report(self, tracker: Any, stage_ids: Sequence[int]) -> None:
+        parts = []
+        for sid in stage_ids:
+            info = tracker.getStageInfo(sid)
+            if info is not None:
+                parts.append(f"stage {sid}: {info.numCompletedTasks}/{info.numTasks} tasks")
+        if parts and self.con.progress is not None:
+            self.con.progress("Spark " + ", ".join(parts))
 
     def fetchall(self) -> list[tuple]:
         return self._watch(super().fetchall)

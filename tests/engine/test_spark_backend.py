@@ -269,6 +269,28 @@ def test_spark_task_counts_reach_the_progress_line():
     assert said == []
 
 
+def test_a_query_shorter_than_the_first_poll_still_reports_its_stages():
+    """The fetch runs in a job group of its own; after it, the stages of that group's jobs are
+    reported once (stand-in context and tracker: a fetch of 10 ms, long before the first poll)."""
+    from types import SimpleNamespace
+
+    from bendwise.engine.backends.spark import SparkConnection, _Watched
+
+    groups: list[str] = []
+    jobs = {5: SimpleNamespace(stageIds=[11, 12])}
+    stages = {11: SimpleNamespace(numCompletedTasks=2, numTasks=2), 12: SimpleNamespace(numCompletedTasks=1,
+                                                                                          numTasks=1)}
+    tracker = SimpleNamespace(getActiveStageIds=lambda: [], getStageInfo=stages.get, getJobInfo=jobs.get,
+                              getJobIdsForGroup=lambda g: [5] if groups and g == groups[-1] else [])
+    sc = SimpleNamespace(statusTracker=lambda: tracker, setJobGroup=lambda g, d: groups.append(g))
+    said: list[str] = []
+    con = SparkConnection(SimpleNamespace(sparkContext=sc), said.append)
+    assert _Watched(con, None)._watch(lambda: "quick") == "quick"
+    assert said == ["Spark stage 11: 2/2 tasks, stage 12: 1/1 tasks"]
+    _Watched(con, None)._watch(lambda: None)
+    assert len(set(groups)) == 2  # each fetch its own group
+
+
 @on_spark
 def test_spark_read_errors_are_one_line(tmp_path):
     """A ragged CSV line is named as the memory engine names it; a Parquet file that is not one
