@@ -167,9 +167,24 @@ class Study:
             if problem:
                 raise UsageError(problem)
             with np.errstate(all="ignore"):
-                z = np.asarray(t.forward(self.y), dtype=float)
-                jac = float(np.sum(t.log_abs_derivative(self.y)))
+                if t.kind in ("log", "boxcox"):  # the same operations on log y, taken once per study
+                    logy = self._log_y()
+                    lam = 0.0 if t.kind == "log" else float(t.param)
+                    z = logy if lam == 0 else np.expm1(lam * logy) / lam
+                    jac = float(np.sum((lam - 1.0) * logy)) if t.kind == "boxcox" else float(np.sum(-logy))
+                else:
+                    z = np.asarray(t.forward(self.y), dtype=float)
+                    jac = float(np.sum(t.log_abs_derivative(self.y)))
             hit = self._cache[key] = (z, jac)
+        return hit
+
+    def _log_y(self) -> np.ndarray:
+        """log y per row (every y > 0 here: the transforms' domain check comes first), cached and
+        read-only (the log transform's rows are this array)."""
+        hit = self._cache.get("log_y")
+        if hit is None:
+            hit = self._cache["log_y"] = np.log(self.y)
+            hit.setflags(write=False)
         return hit
 
     def level_weight_rows(self, w_level: np.ndarray) -> np.ndarray | None:
@@ -191,7 +206,7 @@ class Study:
         if hit is None:
             if (self.y <= 0).any():
                 raise UsageError("Box–Cox needs y > 0")
-            logy = np.log(self.y)
+            logy = self._log_y()
             slog = float(logy.sum())
             hit = self._cache["centred_log_y"] = (logy - slog / self.n, slog)
         return hit

