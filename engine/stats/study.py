@@ -167,11 +167,10 @@ class Study:
             if problem:
                 raise UsageError(problem)
             with np.errstate(all="ignore"):
-                if t.kind in ("log", "boxcox"):  # the same operations on log y, taken once per study
-                    logy = self._log_y()
-                    lam = 0.0 if t.kind == "log" else float(t.param)
-                    z = logy if lam == 0 else np.expm1(lam * logy) / lam
-                    jac = float(np.sum((lam - 1.0) * logy)) if t.kind == "boxcox" else float(np.sum(-logy))
+                # log and Box–Cox: the same operations on log y, taken once per study
+                via_log = t.from_log(self._log_y()) if t.of_log else None
+                if via_log is not None:
+                    z, jac = via_log
                 else:
                     z = np.asarray(t.forward(self.y), dtype=float)
                     jac = float(np.sum(t.log_abs_derivative(self.y)))

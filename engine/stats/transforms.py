@@ -72,6 +72,22 @@ class Transform:
                 return np.where(z > 0, np.power(np.where(z > 0, z, 1.0), 1.0 / a), np.nan)
         raise ValueError(k)
 
+    @property
+    def of_log(self) -> bool:
+        """True when g is a function of log v (log, Box–Cox): :meth:`from_log` applies."""
+        return self.kind in ("log", "boxcox")
+
+    def from_log(self, log_v: np.ndarray) -> tuple[np.ndarray, float] | None:
+        """(g(v), Σ log|g′(v)|) from log v, for the kinds that are functions of log v (log, Box–Cox),
+        with the same operations as :meth:`forward` and :meth:`log_abs_derivative`; None for others."""
+        if self.kind == "log":
+            return log_v, float(np.sum(-log_v))
+        if self.kind == "boxcox":
+            lam = float(self.param)  # type: ignore[arg-type]
+            z = log_v if lam == 0 else np.expm1(lam * log_v) / lam
+            return z, float(np.sum((lam - 1.0) * log_v))
+        return None
+
     def monotone_over(self, lo: float, hi: float) -> bool:
         """True when g is monotone (and defined) on [lo, hi]: then it keeps or reverses the order
         of values, so medians map through it."""
