@@ -79,7 +79,6 @@ def test_from_log_is_forward_and_jacobian_bit_for_bit():
     """The study takes log and Box–Cox responses from log y computed once: the same bits as
     forward() and the summed log_abs_derivative(); other kinds decline."""
     import numpy as np
-
     from bendwise.engine.stats.transforms import IDENTITY, LOG, RECIPROCAL, SQRT, boxcox
 
     y = np.random.default_rng(7).gamma(2.0, 3.0, 5000) + 1e-3
