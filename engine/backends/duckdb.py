@@ -56,7 +56,7 @@ from ..stats.study import (
 from ..stats.transforms import Transform
 from .dialect import DUCKDB, Dialect
 from .scans import exact_setup, floats, one_row, series_setup
-from .sql_text import aggregate_sql, lit, series_sql, transform_sql
+from .sql_text import aggregate_sql, lit, series_sql, shifted_transforms, transform_sql
 from .weighted import (
     WEIGHT,
     check_weights,
@@ -350,12 +350,8 @@ class SqlStudy(Study):
         info = self._info
         keys = ["x", *info["cat_sql"]]
         nums = info["num_sql"]
-        # Shift each response transform by its value at the mean of y (and covariates by their
-        # means, in bw_shifted) so the aggregates never carry a large offset; added back below.
-        y_ref = np.array([float(info["y_mean"])])
-        shifts = [float(np.asarray(t.forward(y_ref), dtype=float)[0]) for t in todo]
-        shifts = [v if math.isfinite(v) else 0.0 for v in shifts]
-        zs = [f"({transform_sql(t, 'y')} - {v!r})" for t, v in zip(todo, shifts, strict=True)]
+        # covariates are shifted by their means in bw_shifted; responses here; added back below
+        shifts, zs = shifted_transforms(todo, info["y_mean"])
         sql = aggregate_sql("bw_shifted", keys, nums, zs, self.dialect)
         self.exact_scans += 1
         self._say(f"scanning {self.n:,} rows for {len(todo)} response transform(s)")

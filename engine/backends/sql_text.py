@@ -8,6 +8,7 @@ run them; the DuckDB study (``duckdb.py``) and its set-up scans (``scans.py``) u
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 
 import numpy as np
@@ -28,6 +29,15 @@ def q(name: str) -> str:
 def lit(text: str) -> str:
     """Quote an SQL string literal (DuckDB; other engines ask their :class:`Dialect`)."""
     return DUCKDB.literal(text)
+
+
+def shifted_transforms(todo: Sequence[Transform], y_mean: float) -> tuple[list[float], list[str]]:
+    """Each transform's value at the mean of y (0 where it is not finite) and the SQL of g(y) minus
+    it: aggregates of the shifted responses never carry a large offset (added back afterwards)."""
+    y_ref = np.array([float(y_mean)])
+    shifts = [float(np.asarray(t.forward(y_ref), dtype=float)[0]) for t in todo]
+    shifts = [v if math.isfinite(v) else 0.0 for v in shifts]
+    return shifts, [f"({transform_sql(t, 'y')} - {v!r})" for t, v in zip(todo, shifts, strict=True)]
 
 
 def transform_sql(t: Transform, col: str = "y") -> str:

@@ -30,7 +30,7 @@ from ..stats.results import SideTest
 from ..stats.spread import bartlett_from_groups
 from ..stats.transforms import Transform
 from .scans import floats
-from .sql_text import transform_sql, weighted_aggregate_sql, weighted_series_sql
+from .sql_text import shifted_transforms, weighted_aggregate_sql, weighted_series_sql
 
 __all__ = ["WEIGHT", "check_weights", "weights_in_range", "weighted_moments", "weighted_spread", "unweighted_request",
            "WeightedSeries", "weighted_series_setup"]
@@ -95,10 +95,7 @@ def weighted_moments(study: Any, todo: Sequence[Transform]) -> dict[tuple, dict]
     info = study._info
     keys = ["x", *info["cat_sql"]]
     nums = info["num_sql"]
-    y_ref = np.array([float(info["y_mean"])])
-    shifts = [float(np.asarray(t.forward(y_ref), dtype=float)[0]) for t in todo]
-    shifts = [v if math.isfinite(v) else 0.0 for v in shifts]
-    zs = [f"({transform_sql(t, 'y')} - {v!r})" for t, v in zip(todo, shifts, strict=True)]
+    shifts, zs = shifted_transforms(todo, info["y_mean"])
     sql = weighted_aggregate_sql("bw_shifted", keys, nums, zs, shifts, WEIGHT, study.dialect)
     study.exact_scans += 1
     study._say(f"scanning {study.n:,} rows for {len(todo)} weighted response transform(s)")

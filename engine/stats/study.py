@@ -583,11 +583,7 @@ class Study:
 
     def level_counts(self) -> np.ndarray:
         """Rows per x level (cached, read-only)."""
-        hit = self._cache.get("level_counts")
-        if hit is None:
-            hit = self._cache["level_counts"] = np.bincount(self.x_codes, minlength=self.c)
-            hit.setflags(write=False)
-        return hit
+        return self._group_counts(())
 
     def describe_design(self) -> str:
         """'24 rows at 8 levels (3 replicates each)' or a range of replicate counts."""
