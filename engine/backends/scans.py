@@ -27,9 +27,9 @@ from ..stats.power_sums import (
 )
 from ..stats.transforms import IDENTITY, RECIPROCAL, SQRT, Transform
 from .dialect import DUCKDB, Dialect
-from .sql_text import centre_polynomial, series_sql
+from .sql_text import CentreCurve, centre_polynomial, series_sql
 
-__all__ = ["series_setup", "exact_setup", "floats", "one_row", "PREFIX_ROWS"]
+__all__ = ["series_setup", "exact_setup", "floats", "one_row", "group_centres", "PREFIX_ROWS"]
 
 ProgressFn = Callable[[str], None]
 
@@ -46,11 +46,12 @@ def series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missing
     plan = _series_plan(con, keys, cat_cols, num_cols, progress, d)
     if plan is None:
         return None
-    fallback, y_ref, t_ref, big_m, big_k, centre_expr = plan
+    fallback, y_ref, t_ref, big_m, big_k, curve = plan
     if progress:
         progress("scanning rows: group sums (one pass)")
     res = con.execute(series_sql("bw_all", keys, num_cols, [float(v) for v in t_ref], big_m, big_k, "bw_shift",
-                                 fallback, centre_expr, d)).fetchnumpy()
+                                 fallback, curve, d)).fetchnumpy()
+    res["centre"] = group_centres(res, curve)
     if progress:
         progress("")
     cat_vals = _clean_categories(res, cat_cols, cat_missing, len(num_cols))
@@ -69,8 +70,14 @@ def series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missing
             "num_mean": num_mean, "y_mean": y_ref, "units": units, "series": series}
 
 
+def group_centres(res: dict, curve: CentreCurve | None) -> np.ndarray:
+    """Each group's centre of ln y in a one-scan result: the curve at the group's x (the scan
+    computed the same numbers per row), else the centre the scan returned."""
+    return floats(res["centre"]) if curve is None else curve.at(floats(res["x"]))
+
+
 def _series_plan(con: Any, keys: list[str], cat_cols: list[str], num_cols: list[str], progress: ProgressFn | None,
-                 d: Dialect) -> tuple[float, float, np.ndarray, int, int, str | None] | None:
+                 d: Dialect) -> tuple[float, float, np.ndarray, int, int, CentreCurve | None] | None:
     """From the first rows: each group's centre of log y (a polynomial in x, or the table
     ``bw_shift``), the reference values and the series orders; None when the series cannot serve."""
     q = d.quote
@@ -101,11 +108,11 @@ def _series_plan(con: Any, keys: list[str], cat_cols: list[str], num_cols: list[
     reach = np.maximum(floats(pre["lhi"]) - lm_g, lm_g - floats(pre["llo"]))
     big_m, big_k = fitted_orders(ls_g, 2.0 * reach, len(num_cols)) or choose_orders(sd, 2.0 * spread, len(num_cols))
     big_k = big_k if num_cols else 0
-    centre_expr = None if cat_cols else centre_polynomial(floats(pre["x"]), lm, w, floats(pre["ls"]))
-    if centre_expr is None:  # a table of centres, joined on the group keys
+    curve = None if cat_cols else centre_polynomial(floats(pre["x"]), lm, w, floats(pre["ls"]))
+    if curve is None:  # a table of centres, joined on the group keys
         shift = {k: (floats(pre[k]) if k == "x" else np.asarray(pre[k], dtype=object)) for k in keys}
         d.put(con, "bw_shift", shift | {"bw_c": lm})
-    return fallback, y_ref, t_ref, big_m, big_k, centre_expr
+    return fallback, y_ref, t_ref, big_m, big_k, curve
 
 
 def fitted_orders(sd: np.ndarray, reach: np.ndarray, nb: int) -> tuple[int, int] | None:

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -17,7 +18,7 @@ from ..errors import UsageError
 from ..stats.transforms import Transform
 from .dialect import DUCKDB, Dialect
 
-__all__ = ["q", "lit", "transform_sql", "aggregate_sql", "series_sql", "centre_polynomial",
+__all__ = ["q", "lit", "transform_sql", "aggregate_sql", "series_sql", "centre_polynomial", "CentreCurve",
            "weighted_aggregate_sql", "weighted_series_sql"]
 
 
@@ -73,15 +74,26 @@ def aggregate_sql(source: str, keys: Sequence[str], nums: Sequence[str], zs: Seq
     return f"SELECT {key_list}, {', '.join(parts)} FROM {source} GROUP BY {key_list} ORDER BY {key_list}"
 
 
+def _with_centre(sel: str, source: str, on: str, shift_table: str | None, fallback_centre: float,
+                 curve: CentreCurve | None) -> str:
+    """The rows of ``source`` (columns ``sel``) with each group's centre of ln y as ``bw_c``: the
+    polynomial ``curve`` in x, else a LEFT JOIN on the group keys to ``shift_table``."""
+    if curve is not None:
+        return f"SELECT {sel}, {curve.sql()} AS bw_c FROM {source} AS r"
+    return (f"SELECT {sel}, COALESCE(s.bw_c, {fallback_centre!r}) AS bw_c "
+            f"FROM {source} AS r LEFT JOIN {shift_table} AS s ON {on}")
+
+
 def series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t_ref: Sequence[float], big_m: int,
-               big_k: int, shift_table: str | None, fallback_centre: float, centre_expr: str | None = None,
+               big_k: int, shift_table: str | None, fallback_centre: float, curve: CentreCurve | None = None,
                d: Dialect = DUCKDB) -> str:
     """The one-scan GROUP BY query: per finest group, count, extremes of y, covariate sums and
     cross-products, and power sums Σd^k (k ≤ M), Σd^k·t (k ≤ K) of d = ln y − centre.
 
     ``source`` has columns y, the keys and the numeric covariates; ``shift_table`` has the keys
     and a column ``bw_c`` (the group's centre; groups missing from it use ``fallback_centre``).
-    Instead of the table, ``centre_expr`` may give the centre as an expression in x.
+    Instead of the table, ``curve`` may give the centre as a polynomial in x; the query then
+    leaves the centre out of its results (``CentreCurve.at`` gives it), else it returns it as ``centre``.
     Dirty data are recognised without a per-row check column: d is NULL where y is missing or
     ≤ 0 (``nchk`` counts the rows where it is not), ``nt{i}`` counts each covariate's present
     cells, a NaN or infinite y or covariate makes Σd or the covariate's sum non-finite, and a
@@ -90,11 +102,7 @@ def series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t_ref: Seq
     q = d.quote
     on = " AND ".join(f"r.{q(k)} = s.{q(k)}" for k in keys)
     sel = ", ".join([*(f"r.{q(k)}" for k in keys), "r.y", *(f"r.{q(b)}" for b in nums)])
-    if centre_expr is not None:
-        joined = f"SELECT {sel}, {centre_expr} AS bw_c FROM {source} AS r"
-    else:
-        joined = (f"SELECT {sel}, COALESCE(s.bw_c, {fallback_centre!r}) AS bw_c "
-                  f"FROM {source} AS r LEFT JOIN {shift_table} AS s ON {on}")
+    joined = _with_centre(sel, source, on, shift_table, fallback_centre, curve)
     cols = [*(q(k) for k in keys), "y", "bw_c", *(f"({q(b)} - {ref!r}) AS {q(b)}" for b, ref in zip(nums, t_ref, strict=True)),
             "CASE WHEN y > 0 THEN LN(y) - bw_c END AS bw_d1"]
     query = f"SELECT {', '.join(cols)} FROM ({joined}) AS bw_j"
@@ -103,7 +111,8 @@ def series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t_ref: Seq
         new = [f"bw_d{have} * bw_d{k - have} AS bw_d{k}" for k in range(have + 1, min(2 * have, big_m) + 1)]
         query = f"SELECT *, {', '.join(new)} FROM ({query}) AS bw_p{have}"
         have = min(2 * have, big_m)
-    aggs = ["COUNT(*) AS n", "COUNT(bw_d1) AS nchk", "MIN(y) AS ylo", "MAX(y) AS yhi", "MIN(bw_c) AS centre"]
+    aggs = ["COUNT(*) AS n", "COUNT(bw_d1) AS nchk", "MIN(y) AS ylo", "MAX(y) AS yhi",
+            *(["MIN(bw_c) AS centre"] if curve is None else [])]
     for i, b in enumerate(nums):
         aggs += [f"COUNT({q(b)}) AS nt{i}", f"SUM({q(b)}) AS t{i}"]
         aggs += [f"SUM({q(b)} * {q(nums[j])}) AS tt{i}_{j}" for j in range(i, len(nums))]
@@ -114,10 +123,37 @@ def series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t_ref: Seq
     return f"SELECT {key_list}, {', '.join(aggs)} FROM ({query}) AS bw_q GROUP BY {key_list} ORDER BY {key_list}"
 
 
-def centre_polynomial(px: np.ndarray, lm: np.ndarray, w: np.ndarray, ls: np.ndarray) -> str | None:
-    """A cubic (or lower) in x through the first rows' group means of ln y, as SQL, when it
-    passes within a quarter of the smallest group spread of every one of them (a join on the
-    group keys costs more than the polynomial); None otherwise."""
+@dataclass(frozen=True)
+class CentreCurve:
+    """A cubic (or lower) in u = (x − centre)/scale: each replicate group's centre of ln y.
+
+    The scan computes it per row as SQL (:meth:`sql`); :meth:`at` computes it for each group's x
+    with the same operations in the same order (IEEE arithmetic: the same bits), so the scan need
+    not carry the centre back as an aggregate."""
+
+    centre: float
+    scale: float
+    coef: tuple[float, ...]
+
+    def sql(self) -> str:
+        u_sql = f"((x - {self.centre!r}) / {self.scale!r})"
+        expr = repr(self.coef[-1])
+        for c in self.coef[-2::-1]:
+            expr = f"({c!r} + {u_sql} * {expr})"
+        return expr
+
+    def at(self, x: np.ndarray) -> np.ndarray:
+        u = (np.asarray(x, dtype=float) - self.centre) / self.scale
+        out = np.full(u.shape, self.coef[-1])
+        for c in self.coef[-2::-1]:
+            out = c + u * out
+        return out
+
+
+def centre_polynomial(px: np.ndarray, lm: np.ndarray, w: np.ndarray, ls: np.ndarray) -> CentreCurve | None:
+    """A cubic (or lower) in x through the first rows' group means of ln y, when it passes within
+    a quarter of the smallest group spread of every one of them (a join on the group keys costs
+    more than the polynomial); None otherwise."""
     spreads = ls[np.isfinite(ls) & (ls > 0)]
     if px.size < 1 or spreads.size == 0 or not np.isfinite(lm).all():
         return None
@@ -129,11 +165,7 @@ def centre_polynomial(px: np.ndarray, lm: np.ndarray, w: np.ndarray, ls: np.ndar
     coef = np.linalg.lstsq(v * sw[:, None], lm * sw, rcond=None)[0]
     if float(np.max(np.abs(v @ coef - lm))) > 0.25 * float(spreads.min()):
         return None
-    u_sql = f"((x - {centre!r}) / {scale!r})"
-    expr = repr(float(coef[-1]))
-    for c in coef[-2::-1]:
-        expr = f"({float(c)!r} + {u_sql} * {expr})"
-    return expr
+    return CentreCurve(centre, scale, tuple(float(c) for c in coef))
 
 
 
@@ -179,7 +211,7 @@ def weighted_aggregate_sql(source: str, keys: Sequence[str], nums: Sequence[str]
 
 
 def weighted_series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t_ref: Sequence[float], big_m: int,
-                        big_k: int, shift_table: str | None, fallback_centre: float, centre_expr: str | None,
+                        big_k: int, shift_table: str | None, fallback_centre: float, curve: CentreCurve | None,
                         weight: str, d: Dialect = DUCKDB) -> str:
     """The one-scan query of :func:`series_sql` for a table with a weights column ``weight``: per
     finest group the same count, extremes, centre and unweighted Σd^k (k ≤ M), and besides them
@@ -190,11 +222,7 @@ def weighted_series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t
     q = d.quote
     on = " AND ".join(f"r.{q(k)} = s.{q(k)}" for k in keys)
     sel = ", ".join([*(f"r.{q(k)}" for k in keys), "r.y", *(f"r.{q(b)}" for b in nums), f"r.{q(weight)} AS bw_w"])
-    if centre_expr is not None:
-        joined = f"SELECT {sel}, {centre_expr} AS bw_c FROM {source} AS r"
-    else:
-        joined = (f"SELECT {sel}, COALESCE(s.bw_c, {fallback_centre!r}) AS bw_c "
-                  f"FROM {source} AS r LEFT JOIN {shift_table} AS s ON {on}")
+    joined = _with_centre(sel, source, on, shift_table, fallback_centre, curve)
     chk = " + ".join(["y * 0", "x * 0", "bw_w * 0", *(f"{q(b)} * 0" for b in nums)])
     cols = [*(q(k) for k in keys), "y", "bw_c", "bw_w",
             *(f"({q(b)} - {ref!r}) AS {q(b)}" for b, ref in zip(nums, t_ref, strict=True)),
@@ -206,8 +234,9 @@ def weighted_series_sql(source: str, keys: Sequence[str], nums: Sequence[str], t
         new = [f"bw_d{have} * bw_d{k - have} AS bw_d{k}" for k in range(have + 1, min(2 * have, big_m) + 1)]
         query = f"SELECT *, {', '.join(new)} FROM ({query}) AS bw_p{have}"
         have = min(2 * have, big_m)
-    aggs = ["COUNT(*) AS n", "COUNT(bw_chk) AS nchk", "MIN(y) AS ylo", "MAX(y) AS yhi", "MIN(bw_c) AS centre",
-            "MIN(bw_w) AS wlo", "MAX(bw_w) AS whi", "SUM(bw_w) AS sw", "SUM(bw_r) AS sr", "SUM(bw_lw) AS slw"]
+    aggs = ["COUNT(*) AS n", "COUNT(bw_chk) AS nchk", "MIN(y) AS ylo", "MAX(y) AS yhi",
+            *(["MIN(bw_c) AS centre"] if curve is None else []), "MIN(bw_w) AS wlo", "MAX(bw_w) AS whi",
+            "SUM(bw_w) AS sw", "SUM(bw_r) AS sr", "SUM(bw_lw) AS slw"]
     aggs += ["SUM(bw_d1 + bw_chk) AS s1", *(f"SUM(bw_d{k}) AS s{k}" for k in range(2, big_m + 1))]
     aggs += [f"SUM(bw_w * bw_d{k}) AS ws{k}" for k in range(1, big_m + 1)]
     aggs += [f"SUM(bw_r * bw_d{k}) AS rs{k}" for k in range(1, big_m + 1)]

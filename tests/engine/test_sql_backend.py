@@ -1403,3 +1403,41 @@ def test_orders_from_the_undominated_groups_equal_those_from_all_groups(monkeypa
         with monkeypatch.context() as m:
             m.setattr(scans, "_frontier", lambda a, b: (a, b))
             assert scans.fitted_orders(sd, reach, 2) == fast
+
+
+@hyp(40)
+@given(coef=st.lists(st.floats(-50, 50, allow_nan=False), min_size=1, max_size=4),
+       centre=st.floats(-1e6, 1e6, allow_nan=False), scale=st.floats(1e-3, 1e6, allow_nan=False),
+       xs=st.lists(st.floats(-1e7, 1e7, allow_nan=False, allow_subnormal=False), min_size=1, max_size=30))
+def test_centre_curve_in_numpy_is_the_scan_bit_for_bit(coef, centre, scale, xs):
+    # the one scan no longer returns each group's centre of ln y: CentreCurve.at must give the very
+    # numbers DuckDB computed per row (same operations, same order; IEEE arithmetic, common practice)
+    from bendwise.engine.backends.sql_text import CentreCurve
+
+    curve = CentreCurve(centre, scale, tuple(coef))
+    con = duckdb.connect()
+    con.register("bw_x", pd.DataFrame({"x": np.asarray(xs, dtype=float)}))
+    got = con.execute(f"SELECT x, {curve.sql()} AS c FROM bw_x").fetchnumpy()
+    want = curve.at(np.asarray(got["x"], dtype=float))
+    assert np.array_equal(np.asarray(got["c"], dtype=float), want, equal_nan=True)
+
+
+def test_one_scan_with_a_centre_curve_leaves_the_centre_out(tmp_path):
+    # one accumulator fewer per row: the polynomial path's query carries no MIN(bw_c); the study
+    # built from it equals the in-memory one (compared in the tests above), and its centres are the curve's
+    from bendwise.engine.backends.duckdb import series_sql
+    from bendwise.engine.backends.sql_text import CentreCurve
+
+    curve = CentreCurve(3.0, 2.0, (4.0, 0.5))
+    with_curve = series_sql("bw_all", ["x"], [], [], 6, 0, None, 0.0, curve)
+    joined = series_sql("bw_all", ["x"], [], [], 6, 0, "bw_shift", 0.0)
+    assert "MIN(bw_c)" not in with_curve and "MIN(bw_c) AS centre" in joined
+    frame = pd.DataFrame({"x": np.repeat([1.0, 2.0, 3.0, 4.0], 50)})
+    frame["y"] = np.exp(1.0 + 0.3 * frame["x"] + np.random.default_rng(5).normal(0, 0.05, len(frame)))
+    path = tmp_path / "c.parquet"
+    frame.to_parquet(path)
+    study = make_sql_study(str(path), y="y", x="x")
+    series = study._info["series"]
+    assert series is not None
+    logs = np.log(frame["y"]).groupby(frame["x"]).mean().to_numpy()
+    assert np.allclose(series.base, logs, rtol=0, atol=1e-12)
