@@ -30,7 +30,7 @@ def test_floor_queries_compute_the_statistics_they_name(tmp_path):
     frame = pd.read_parquet(path)
     con = duckdb.connect()
     queries = bench.floor_queries(str(path), con)
-    assert set(queries) == {"floor", "same", "fixed4"}
+    assert set(queries) == {"floor", "same", "fixed4", "series"}
     by = frame.groupby("x")
     same = sorted(con.execute(queries["same"]).fetchall())
     assert len(same) == by.ngroups == bench.LEVELS
@@ -57,3 +57,11 @@ def test_floor_queries_compute_the_statistics_they_name(tmp_path):
             assert np.isclose(sza - s1 * sa / n, ((z - z.mean()) * (a - a.mean())).sum(), rtol=1e-7, atol=1e-9)
             assert np.isclose(szb - s1 * sb / n, ((z - z.mean()) * (b - b.mean())).sum(), rtol=1e-7, atol=1e-9)
     assert len(con.execute(queries["floor"]).fetchall()) == bench.LEVELS
+    series = sorted(con.execute(queries["series"]).fetchall())
+    for row, (x, g) in zip(series, by, strict=True):
+        assert len(row) == 1 + 8 + 10 + 2 * 8  # key, count/extremes/covariates, Σd^k, Σd^k·t
+        n, ly, a = len(g), np.log(g["y"].to_numpy()), g["t1"].to_numpy()
+        s1, s2 = row[9], row[10]
+        assert row[0] == x and row[1] == n
+        assert np.isclose(s2 - s1 * s1 / n, ((ly - ly.mean()) ** 2).sum(), rtol=1e-9)
+        assert np.isclose(row[19] - s1 * row[4] / n, ((ly - ly.mean()) * (a - a.mean())).sum(), rtol=1e-7, atol=1e-9)
