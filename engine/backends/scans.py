@@ -29,7 +29,7 @@ from ..stats.transforms import IDENTITY, RECIPROCAL, SQRT, Transform
 from .dialect import DUCKDB, Dialect
 from .sql_text import CentreCurve, centre_polynomial, series_sql
 
-__all__ = ["series_setup", "exact_setup", "floats", "one_row", "group_centres", "PREFIX_ROWS"]
+__all__ = ["series_setup", "exact_setup", "floats", "one_row", "one_scan", "PREFIX_ROWS"]
 
 ProgressFn = Callable[[str], None]
 
@@ -42,18 +42,12 @@ def series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missing
                  progress: ProgressFn | None, d: Dialect = DUCKDB) -> dict | None:
     """Everything the study needs from one scan, or None when the data need the exact path
     (missing or non-finite cells, a response ≤ 0, nothing in the first rows)."""
-    keys = ["x", *cat_cols]
-    plan = _series_plan(con, keys, cat_cols, num_cols, progress, d)
-    if plan is None:
+    scan = one_scan(con, cat_cols, num_cols, progress, d, "group sums",
+                    lambda keys, t_ref, big_m, big_k, fallback, curve: series_sql(
+                        "bw_all", keys, num_cols, t_ref, big_m, big_k, "bw_shift", fallback, curve, d))
+    if scan is None:
         return None
-    fallback, y_ref, t_ref, big_m, big_k, curve = plan
-    if progress:
-        progress("scanning rows: group sums (one pass)")
-    res = con.execute(series_sql("bw_all", keys, num_cols, [float(v) for v in t_ref], big_m, big_k, "bw_shift",
-                                 fallback, curve, d)).fetchnumpy()
-    res["centre"] = group_centres(res, curve)
-    if progress:
-        progress("")
+    res, y_ref, t_ref, big_m, big_k = scan
     cat_vals = _clean_categories(res, cat_cols, cat_missing, len(num_cols))
     if cat_vals is None:
         con.execute(f"{d.drop} bw_shift")
@@ -70,10 +64,25 @@ def series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missing
             "num_mean": num_mean, "y_mean": y_ref, "units": units, "series": series}
 
 
-def group_centres(res: dict, curve: CentreCurve | None) -> np.ndarray:
-    """Each group's centre of ln y in a one-scan result: the curve at the group's x (the scan
-    computed the same numbers per row), else the centre the scan returned."""
-    return floats(res["centre"]) if curve is None else curve.at(floats(res["x"]))
+def one_scan(con: Any, cat_cols: list[str], num_cols: list[str], progress: ProgressFn | None, d: Dialect,
+             what: str, sql_for: Callable[..., str]) -> tuple[dict, float, np.ndarray, int, int] | None:
+    """Plan the one scan from the first rows and run it: the result (with each group's centre of
+    ln y as ``centre``), the reference y and covariate values and the orders (M, K); None when the
+    series cannot serve. ``sql_for(keys, t_ref, M, K, fallback_centre, curve)`` writes the query
+    (plain or weighted)."""
+    keys = ["x", *cat_cols]
+    plan = _series_plan(con, keys, cat_cols, num_cols, progress, d)
+    if plan is None:
+        return None
+    fallback, y_ref, t_ref, big_m, big_k, curve = plan
+    if progress:
+        progress(f"scanning rows: {what} (one pass)")
+    res = con.execute(sql_for(keys, [float(v) for v in t_ref], big_m, big_k, fallback, curve)).fetchnumpy()
+    # the curve at each group's x: the scan computed the same numbers per row; else the joined centre
+    res["centre"] = floats(res["centre"]) if curve is None else curve.at(floats(res["x"]))
+    if progress:
+        progress("")
+    return res, y_ref, t_ref, big_m, big_k
 
 
 def _series_plan(con: Any, keys: list[str], cat_cols: list[str], num_cols: list[str], progress: ProgressFn | None,

@@ -194,20 +194,14 @@ def weighted_series_setup(con: Any, cat_cols: list[str], num_cols: list[str], ca
                           progress: Any, d: Any) -> dict | None:
     """The facts of :func:`engine.backends.scans.series_setup` from one weighted scan, or None when
     the data need the exact path (a bad cell, y ≤ 0, a weight that is not positive and finite)."""
-    from .scans import _clean_categories, _constant_covariates, _series_plan, group_centres
+    from .scans import _clean_categories, _constant_covariates, one_scan
 
-    keys = ["x", *cat_cols]
-    plan = _series_plan(con, keys, cat_cols, num_cols, progress, d)
-    if plan is None:
+    scan = one_scan(con, cat_cols, num_cols, progress, d, "weighted group sums",
+                    lambda keys, t_ref, big_m, big_k, fallback, curve: weighted_series_sql(
+                        "bw_all", keys, num_cols, t_ref, big_m, big_k, "bw_shift", fallback, curve, WEIGHT, d))
+    if scan is None:
         return None
-    fallback, y_ref, t_ref, big_m, big_k, curve = plan
-    if progress:
-        progress("scanning rows: weighted group sums (one pass)")
-    res = con.execute(weighted_series_sql("bw_all", keys, num_cols, [float(v) for v in t_ref], big_m, big_k,
-                                          "bw_shift", fallback, curve, WEIGHT, d)).fetchnumpy()
-    res["centre"] = group_centres(res, curve)
-    if progress:
-        progress("")
+    res, y_ref, t_ref, big_m, big_k = scan
     # the weighted scan keeps its per-row check column (bw_chk: NULL or NaN at any bad cell, in
     # nchk and s1), so no per-covariate counts are needed: nb = 0
     cat_vals = _clean_categories(res, cat_cols, cat_missing, 0)
