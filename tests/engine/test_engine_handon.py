@@ -16,20 +16,12 @@ import numpy as np
 import pandas as pd
 import pytest
 from bendwise.tui.cli import main
+from cli_in_process import run_cli as _cli
 
 pytest.importorskip("duckdb")
 
 DATA = Path(__file__).resolve().parents[2] / "datasets"
 RUN2 = DATA / "sensor_calibration_run2.csv"
-
-
-def _cli(argv: list[str], capsys) -> tuple[object, str, str]:
-    try:
-        code: object = main(argv)
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
 
 
 def same_numbers(a, b, rel: float = 1e-9) -> None:

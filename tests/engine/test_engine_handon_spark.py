@@ -7,22 +7,16 @@ Spark context and few queries. Slow (a JVM starts); without pyspark skipped, exc
 from __future__ import annotations
 
 import json
-import os
 import subprocess
 import sys
 from pathlib import Path
 
 import pandas as pd
 import pytest
+from cli_in_process import need_pyspark
 from test_engine_handon import RUN2, _bad_tables, _cli, same_numbers, sensor_spec  # noqa: F401 (a fixture)
 
-try:
-    import pyspark  # noqa: F401
-except ImportError:
-    if os.environ.get("CI"):
-        raise
-    pytest.skip("pyspark is not installed (pip install 'bendwise[spark]'); CI installs it and runs these",
-                allow_module_level=True)
+need_pyspark()
 
 from bendwise.engine.backends.spark import spark_session  # noqa: E402
 

@@ -22,18 +22,10 @@ from bendwise.engine.handon.runs_spec import read_runs, satterthwaite
 from bendwise.engine.handon.specfile import load_spec, schema_path
 from bendwise.engine.stats.dist import t_ppf
 from bendwise.tui.cli import main
+from cli_in_process import run_cli as _cli
 
 DEMO = Path(__file__).resolve().parents[2] / "datasets" / "multi_day_calibration.csv"
 ARGS = [str(DEMO), "-y", "absorbance", "-x", "conc_ug_l", "--runs", "day", "--report", "md", "--depth", "1"]
-
-
-def _cli(argv: list[str], capsys) -> tuple[object, str, str]:
-    try:
-        code: object = main(argv)
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
 
 
 @pytest.fixture(scope="module")

@@ -23,6 +23,7 @@ from bendwise.engine.stats.transforms import LOG, SQRT
 from bendwise.engine.tree.model_spec import ModelSpec, WeightRule
 from bendwise.engine.tree.runs_node import node_runs, score_runs
 from bendwise.engine.tree.tree import RemedyTree
+from cli_in_process import run_cli as _cli
 from scipy.stats import f as f_dist
 from statsmodels.stats.anova import anova_lm
 
@@ -162,17 +163,6 @@ def test_weighted_node_has_no_run_model_and_no_criteria():
     assert node.runs is None and "weights" in node.runs_error
     assert node.score.criteria.aicc is None
     assert tree.node_json(node)["runs"] is None
-
-
-def _cli(argv: list[str], capsys) -> tuple[object, str, str]:
-    from bendwise.tui.cli import main
-
-    try:
-        code: object = main(argv)
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
 
 
 def test_grow_runs_on_the_command_line(capsys):

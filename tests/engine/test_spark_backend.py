@@ -11,7 +11,6 @@ where it must run.
 from __future__ import annotations
 
 import json
-import os
 import sys
 import types
 
@@ -22,6 +21,7 @@ import pytest
 from bendwise.engine.backends.dialect import DUCKDB, SPARK
 from bendwise.engine.errors import DataError, UsageError
 from bendwise.engine.tree.model_spec import ModelSpec
+from cli_in_process import need_pyspark
 from hypothesis import given
 from test_sql_backend import (
     CAT,
@@ -40,13 +40,7 @@ from test_sql_backend import (
     write_parquet,
 )
 
-try:
-    import pyspark  # noqa: F401
-except ImportError:
-    if os.environ.get("CI"):
-        raise
-    pytest.skip("pyspark is not installed (pip install 'bendwise[spark]'); CI installs it and runs these",
-                allow_module_level=True)
+need_pyspark()
 
 from bendwise.engine.backends import spark as spark_backend  # noqa: E402
 from bendwise.engine.backends.spark import make_spark_study, spark_session  # noqa: E402
