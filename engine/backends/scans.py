@@ -29,7 +29,7 @@ from ..stats.transforms import IDENTITY, RECIPROCAL, SQRT, Transform
 from .dialect import DUCKDB, Dialect
 from .sql_text import CentreCurve, centre_polynomial, series_sql
 
-__all__ = ["series_setup", "exact_setup", "floats", "one_row", "one_scan", "PREFIX_ROWS"]
+__all__ = ["series_setup", "exact_setup", "floats", "one_row", "one_scan", "scan_facts", "PREFIX_ROWS"]
 
 ProgressFn = Callable[[str], None]
 
@@ -53,15 +53,22 @@ def series_setup(con: Any, cat_cols: list[str], num_cols: list[str], cat_missing
         con.execute(f"{d.drop} bw_shift")
         return None
     series = _group_series(res, len(num_cols), big_m, big_k, t_ref)
+    return scan_facts(res, y_ref, t_ref, num_cols, cat_vals, series, series, float(floats(res["n"]).sum()))
+
+
+def scan_facts(res: dict, y_ref: float, t_ref: np.ndarray, num_cols: list[str], cat_vals: dict[str, np.ndarray],
+               series: Any, covariate_series: GroupSeries, covariate_n: float) -> dict:
+    """The study's facts from a clean one-scan result (plain or weighted): counts, Σ ln y, ranges,
+    the covariates' means and constancy (from ``covariate_series`` over total weight ``covariate_n``)."""
     n_unit = floats(res["n"])
     n = int(n_unit.sum())
     slog = float((floats(res["s1"]) + n_unit * floats(res["centre"])).sum())
     num_mean = {b: float(floats(res[f"t{i}"]).sum() / n + t_ref[i]) for i, b in enumerate(num_cols)}
-    units = {"x": floats(res["x"]), "n": n_unit, **cat_vals}
-    return {"n": n, "n_read": n, "drops": (), "y_min": float(series.ylo.min()), "y_max": float(series.yhi.max()),
-            "y_le0": 0, "y_eq0": 0, "y_lt0": 0, "slog": slog, "slogabs": slog,
-            "num_constant": _constant_covariates(series, num_cols, t_ref, n),
-            "num_mean": num_mean, "y_mean": y_ref, "units": units, "series": series}
+    return {"n": n, "n_read": n, "drops": (), "y_min": float(floats(res["ylo"]).min()),
+            "y_max": float(floats(res["yhi"]).max()), "y_le0": 0, "y_eq0": 0, "y_lt0": 0, "slog": slog,
+            "slogabs": slog, "num_constant": _constant_covariates(covariate_series, num_cols, t_ref, covariate_n),
+            "num_mean": num_mean, "y_mean": y_ref, "units": {"x": floats(res["x"]), "n": n_unit, **cat_vals},
+            "series": series}
 
 
 def one_scan(con: Any, cat_cols: list[str], num_cols: list[str], progress: ProgressFn | None, d: Dialect,

@@ -194,7 +194,7 @@ def weighted_series_setup(con: Any, cat_cols: list[str], num_cols: list[str], ca
                           progress: Any, d: Any) -> dict | None:
     """The facts of :func:`engine.backends.scans.series_setup` from one weighted scan, or None when
     the data need the exact path (a bad cell, y ≤ 0, a weight that is not positive and finite)."""
-    from .scans import _clean_categories, _constant_covariates, one_scan
+    from .scans import _clean_categories, one_scan, scan_facts
 
     scan = one_scan(con, cat_cols, num_cols, progress, d, "weighted group sums",
                     lambda keys, t_ref, big_m, big_k, fallback, curve: weighted_series_sql(
@@ -209,16 +209,9 @@ def weighted_series_setup(con: Any, cat_cols: list[str], num_cols: list[str], ca
     if cat_vals is None or not (np.isfinite(whi).all() and (wlo > 0).all()):
         con.execute(f"{d.drop} bw_shift")
         return None
-    n_unit, sw = floats(res["n"]), floats(res["sw"])
     series = _three_series(res, len(num_cols), big_m, big_k, t_ref)
-    n = int(n_unit.sum())
-    slog = float((floats(res["s1"]) + n_unit * floats(res["centre"])).sum())
-    num_mean = {b: float(floats(res[f"t{i}"]).sum() / n + t_ref[i]) for i, b in enumerate(num_cols)}
-    return {"n": n, "n_read": n, "drops": (), "y_min": float(floats(res["ylo"]).min()),
-            "y_max": float(floats(res["yhi"]).max()), "y_le0": 0, "y_eq0": 0, "y_lt0": 0, "slog": slog,
-            "slogabs": slog, "num_constant": _constant_covariates(series.weighted, num_cols, t_ref, float(sw.sum())),
-            "num_mean": num_mean, "y_mean": y_ref, "units": {"x": floats(res["x"]), "n": n_unit, **cat_vals},
-            "series": series, "weights": (float(wlo.min()), float(whi.max()), float(floats(res["slw"]).sum()))}
+    facts = scan_facts(res, y_ref, t_ref, num_cols, cat_vals, series, series.weighted, float(floats(res["sw"]).sum()))
+    return facts | {"weights": (float(wlo.min()), float(whi.max()), float(floats(res["slw"]).sum()))}
 
 
 def _three_series(res: dict, nb: int, big_m: int, big_k: int, t_ref: np.ndarray) -> WeightedSeries:
